@@ -1,0 +1,238 @@
+"""Command line of Ceiling Lab: ``python -m engine SUBCOMMAND ...``.
+
+Subcommands
+-----------
+ceiling    one ceiling from options given as quantity strings
+machines   the machines of a machines file, with their ceilings at a speed
+
+Bad input exits with status 2 and one line on stderr starting with ``error:``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from collections.abc import Sequence
+
+from engine.air import REFERENCE_TEMPERATURE_K, site_pressure
+from engine.carriers import CARRIER_KINDS, ROTATION, carrier_from_spec
+from engine.ceiling import ceiling_figures
+from engine.errors import CeilingLabError, InputError
+from engine.machines import Machine, load_machines
+from engine.units import parse_quantity, parse_speed
+
+EXIT_BAD_INPUT = 2
+EXIT_INTERNAL = 1
+
+# Geometry options of `ceiling`: option name -> machines-file key.
+_GEOMETRY_OPTIONS = {
+    "outer_radius": "outer radius of the charged zone (disc), e.g. '23 cm'",
+    "outer_diameter": "outer diameter of the charged zone (disc), e.g. '46 cm'",
+    "inner_radius": "inner radius of the charged zone (disc)",
+    "inner_diameter": "inner diameter of the charged zone (disc)",
+    "sector_fill": "fraction of the annulus that carries charge (disc), e.g. 0.55 or '55 %'",
+    "width": "belt width, e.g. '5 cm'",
+    "roller_diameter": "diameter of the roller the speed is read on (belt)",
+    "loop_length": "belt loop length, when the speed counts belt circulations",
+    "radius": "cylinder radius",
+    "diameter": "cylinder diameter",
+    "active_length": "charged length of the cylinder",
+    "area_per_rev": "charged area per revolution (custom), e.g. '0.12 m^2'",
+}
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose errors are one `error:` line and exit status 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        raise InputError(message)
+
+
+def _positive_count(text: str, name: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise InputError(f"{name} must be a whole number, got '{text}'") from None
+    if not 1 <= value <= 1000:
+        raise InputError(f"{name} must be from 1 to 1000, got {value}")
+    return value
+
+
+def _positive_number(text: str, name: str) -> float:
+    value = parse_quantity(text, "fraction", name)
+    if not value > 0:
+        raise InputError(f"{name} must be above 0, got '{text}'")
+    return value
+
+
+def _air_from_options(args: argparse.Namespace) -> tuple[float, float]:
+    pressure = parse_quantity(args.pressure, "pressure", "--pressure") if args.pressure else None
+    altitude = parse_quantity(args.altitude, "length", "--altitude") if args.altitude else None
+    if pressure is not None and altitude is not None:
+        raise InputError("give either --pressure or --altitude, not both")
+    pressure_pa = site_pressure(pressure, altitude)
+    temperature_k = (parse_quantity(args.temperature, "temperature", "--temperature")
+                     if args.temperature else REFERENCE_TEMPERATURE_K)
+    if not temperature_k > 0:
+        raise InputError("--temperature must be above absolute zero")
+    return pressure_pa, temperature_k
+
+
+def _speed_from_option(text: str) -> tuple[float, str]:
+    speed, kind = parse_speed(text, "--speed")
+    if not speed >= 0:
+        raise InputError(f"--speed must not be negative, got '{text}'")
+    return speed, kind
+
+
+def _format_summary(figures: dict[str, object], label: str) -> str:
+    if figures["speed_rev_s"] is not None:
+        speed = f"{figures['speed_rev_s']:.4g} rev/s ({figures['speed_rev_s'] * 60:.4g} rpm)"
+    else:
+        speed = f"{figures['linear_speed_m_s']:.4g} m/s belt speed"
+    area = figures["area_per_rev_m2"]
+    lines = [
+        f"Ceiling of {label} at {speed}",
+        "  charged area per revolution   "
+        + (f"{area:.5g} m^2 (one carrier)" if area is not None else "n/a (linear belt speed)"),
+        f"  swept area per second         {figures['swept_area_per_s_m2']:.5g} m^2/s "
+        "(one carrier)",
+        f"  air                           {figures['pressure_kPa']:.4g} kPa, "
+        f"{figures['temperature_C']:.1f} degC, relative density "
+        f"{figures['relative_air_density']:.3f}",
+        f"  breakdown field               {figures['breakdown_field_MV_m']:.3g} MV/m, "
+        f"charge density limit {figures['charge_density_limit_uC_m2']:.4g} uC/m^2",
+        f"  carriers x collection factor  {figures['carriers']} x "
+        f"{figures['collection_factor']:g}",
+        f"  ceiling current               {figures['ceiling_current_uA']:.4g} uA",
+    ]
+    return "\n".join(lines)
+
+
+def _command_ceiling(args: argparse.Namespace) -> int:
+    spec = {key: getattr(args, key) for key in _GEOMETRY_OPTIONS
+            if getattr(args, key) is not None}
+    carrier = carrier_from_spec(args.carrier, spec, f"{args.carrier} carrier")
+    reference_field = (parse_quantity(args.breakdown_field, "electric_field",
+                                      "--breakdown-field") if args.breakdown_field else None)
+    if reference_field is not None and not reference_field > 0:
+        raise InputError("--breakdown-field must be positive")
+    machine = Machine(
+        id="command-line",
+        label=f"a {args.carrier} machine",
+        carrier=carrier,
+        carriers=_positive_count(args.carriers, "--carriers"),
+        collection_factor=_positive_number(args.collection_factor, "--collection-factor"),
+        **({"reference_field_v_m": reference_field} if reference_field else {}),
+    )
+    speed, speed_kind = _speed_from_option(args.speed)
+    pressure_pa, temperature_k = _air_from_options(args)
+    figures = ceiling_figures(machine, speed, speed_kind, pressure_pa, temperature_k)
+    if args.json:
+        print(json.dumps(figures))
+    else:
+        print(_format_summary(figures, machine.label))
+    return 0
+
+
+def _command_machines(args: argparse.Namespace) -> int:
+    machine_file = load_machines(args.file)
+    speed = _speed_from_option(args.speed) if args.speed else None
+    rows = []
+    for machine in machine_file.machines:
+        row: dict[str, object] = {
+            "id": machine.id,
+            "label": machine.label,
+            "carrier": machine.kind,
+            "carriers": machine.carriers,
+            "collection_factor": machine.collection_factor,
+            "area_per_rev_m2": machine.carrier.area_per_rev_m2,
+        }
+        if speed is not None:
+            if speed[1] not in machine.carrier.speed_kinds:
+                wanted = "a linear speed (m/s)" if speed[1] == ROTATION else "a rotation rate"
+                row.update(ceiling_current_uA=None,
+                           note=f"this {machine.kind} needs {wanted} for its ceiling")
+            else:
+                row.update(ceiling_figures(machine, speed[0], speed[1],
+                                           machine_file.site.pressure_pa,
+                                           machine_file.site.temperature_k))
+        rows.append(row)
+    if args.json:
+        print(json.dumps(rows))
+        return 0
+    if not rows:
+        print(f"{args.file}: no machines")
+        return 0
+    header = f"{'id':<24} {'carrier':<9} {'N':>3} {'area/rev [m^2]':>15}"
+    if speed is not None:
+        header += f" {'ceiling [uA]':>13}"
+    print(header)
+    for row in rows:
+        area = row["area_per_rev_m2"]
+        line = (f"{row['id']:<24} {row['carrier']:<9} {row['carriers']:>3} "
+                f"{(f'{area:.5g}' if area is not None else 'linear only'):>15}")
+        if speed is not None:
+            ceiling = row.get("ceiling_current_uA")
+            line += f" {(f'{ceiling:.4g}' if ceiling is not None else '-'):>13}"
+            if row.get("note"):
+                line += f"  ({row['note']})"
+        print(line)
+    if speed is not None:
+        site = machine_file.site
+        print(f"at {args.speed}, {site.pressure_pa / 1e3:.4g} kPa, "
+              f"{site.temperature_k - 273.15:.1f} degC")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of ``python -m engine`` with all its subcommands."""
+    parser = _Parser(prog="python -m engine",
+                     description="Ceiling Lab: ceilings of electrostatic generators.")
+    commands = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    ceiling = commands.add_parser("ceiling", help="one ceiling from geometry and speed")
+    ceiling.add_argument("--carrier", required=True, choices=CARRIER_KINDS)
+    for key, help_text in _GEOMETRY_OPTIONS.items():
+        ceiling.add_argument("--" + key.replace("_", "-"), dest=key, help=help_text)
+    ceiling.add_argument("--carriers", default="1", help="number of carriers N (default 1)")
+    ceiling.add_argument("--collection-factor", default="1",
+                         help="charge loads per revolution per carrier k (default 1)")
+    ceiling.add_argument("--speed", required=True,
+                         help="rotation rate ('300 rpm', '5 rev/s') or belt speed ('6 m/s')")
+    ceiling.add_argument("--pressure", help="air pressure, e.g. '97.2 kPa'")
+    ceiling.add_argument("--temperature", help="air temperature, e.g. '20 degC' (default)")
+    ceiling.add_argument("--altitude", help="site altitude, used when no pressure is given")
+    ceiling.add_argument("--breakdown-field", help="breakdown field of air at the reference "
+                         "atmosphere (default '3.0 MV/m')")
+    ceiling.add_argument("--json", action="store_true", help="print one JSON object")
+    ceiling.set_defaults(run=_command_ceiling)
+
+    machines = commands.add_parser("machines", help="list the machines of a machines file")
+    machines.add_argument("file", help="machines file (TOML)")
+    machines.add_argument("--speed", help="speed for the ceilings, e.g. '300 rpm'")
+    machines.add_argument("--json", action="store_true", help="print a JSON list")
+    machines.set_defaults(run=_command_machines)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; return the exit status (0, or 2 for bad input)."""
+    try:
+        args = build_parser().parse_args(argv)
+        return args.run(args)
+    except CeilingLabError as error:
+        print(f"error: {error}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("error: interrupted", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except Exception as error:  # noqa: BLE001 - the user sees one line, never a traceback
+        print(f"error: internal problem ({type(error).__name__}: {error}); please report it",
+              file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,404 @@
+"""Machine descriptions and the machines file (TOML, a layout of our own).
+
+A machines file holds an optional ``[site]`` table and one ``[[machine]]`` table per machine::
+
+    [site]
+    altitude = "350 m"            # or pressure = "97.2 kPa"; temperature = "20 degC"
+
+    [[machine]]
+    id = "gallery-twin"
+    label = "Gallery twin-disc, restored"
+    carrier = "disc"
+    outer_diameter = "46 cm"
+    inner_diameter = "30 cm"
+    sector_fill = 0.55
+    carriers = 2
+    collection_factor = 1.0
+    breakdown_field = "3.0 MV/m"
+
+    [machine.tolerance]
+    outer_diameter = "1 mm"
+    speed = "2 %"
+    current = "3 %"
+
+Tolerances are read as one standard uncertainty (1 sigma) of the value they belong to.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import re
+import tomllib
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from engine.air import REFERENCE_BREAKDOWN_FIELD_V_M, REFERENCE_TEMPERATURE_K, site_pressure
+from engine.carriers import CARRIER_KINDS, SPEC_KEYS, Carrier, carrier_from_spec
+from engine.errors import InputError
+from engine.units import Tolerance, parse_quantity, parse_tolerance
+
+MACHINE_ID_PATTERN = re.compile(r"^[A-Za-z0-9_-]{1,64}$")
+#: Largest machines file read [bytes].
+MAX_MACHINES_FILE_BYTES = 2_000_000
+#: Most machines in one file.
+MAX_MACHINES = 1_000
+
+_COMMON_KEYS = ("id", "label", "carrier", "carriers", "collection_factor", "breakdown_field",
+                "material", "notes", "tolerance")
+_TOLERANCE_EXTRA_KINDS = {
+    "speed": "rotation_rate",
+    "current": "current",
+    "breakdown_field": "electric_field",
+}
+_SITE_KEYS = ("altitude", "pressure", "temperature")
+_MAX_TEXT = 500
+
+
+@dataclass(frozen=True)
+class Machine:
+    """One electrostatic machine: its carrier geometry and how its carriers deliver charge.
+
+    Attributes
+    ----------
+    id : str
+        Short identifier: letters, digits, '-' and '_'.
+    label : str
+        Human-readable name.
+    carrier : Carrier
+        Geometry of one carrier (see :mod:`engine.carriers`).
+    carriers : int
+        Number N of carriers that deliver charge (discs in a stack, belts).
+    collection_factor : float
+        Charge loads k delivered per revolution per carrier [-]; default 1.
+    reference_field_v_m : float
+        Breakdown field of air at the reference atmosphere for this machine [V/m].
+    tolerances : mapping of str to Tolerance
+        One standard uncertainty per key: geometry keys, ``speed``, ``current``,
+        ``breakdown_field``.
+    material : str
+        Carrier material in generic words (acrylic, glass, polyester film), optional.
+    notes : str
+        Free text, optional.
+    spec : mapping
+        The geometry keys as the user wrote them ("46 cm"), kept for writing the file back.
+    """
+
+    id: str
+    label: str
+    carrier: Carrier
+    carriers: int = 1
+    collection_factor: float = 1.0
+    reference_field_v_m: float = REFERENCE_BREAKDOWN_FIELD_V_M
+    tolerances: Mapping[str, Tolerance] = field(default_factory=dict)
+    material: str = ""
+    notes: str = ""
+    spec: Mapping[str, object] = field(default_factory=dict)
+    tolerance_spec: Mapping[str, str] = field(default_factory=dict)
+    breakdown_field_text: str = ""
+
+    @property
+    def kind(self) -> str:
+        """Carrier kind: disc, belt, cylinder or custom."""
+        return self.carrier.kind
+
+    def to_table(self) -> dict[str, object]:
+        """The machine as a TOML table (plain dict), in the file's own keys and units."""
+        table: dict[str, object] = {"id": self.id, "label": self.label, "carrier": self.kind}
+        table.update(self.spec)
+        table["carriers"] = self.carriers
+        table["collection_factor"] = self.collection_factor
+        if self.breakdown_field_text:
+            table["breakdown_field"] = self.breakdown_field_text
+        if self.material:
+            table["material"] = self.material
+        if self.notes:
+            table["notes"] = self.notes
+        if self.tolerance_spec:
+            table["tolerance"] = dict(self.tolerance_spec)
+        return table
+
+
+@dataclass(frozen=True)
+class Site:
+    """Where the machines run, when no readings give the air conditions.
+
+    Attributes
+    ----------
+    pressure_pa : float
+        Air pressure [Pa]: measured, from the altitude, or the reference 101.3 kPa.
+    temperature_k : float
+        Air temperature [K], default 293.15 K.
+    spec : mapping
+        The keys as the user wrote them.
+    """
+
+    pressure_pa: float = 101_300.0
+    temperature_k: float = REFERENCE_TEMPERATURE_K
+    spec: Mapping[str, str] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class MachineFile:
+    """The content of a machines file: the site and the machines, in file order."""
+
+    site: Site
+    machines: tuple[Machine, ...]
+
+    def by_id(self) -> dict[str, Machine]:
+        """Machines keyed by id."""
+        return {machine.id: machine for machine in self.machines}
+
+
+def _text_field(table: Mapping[str, object], key: str, where: str) -> str:
+    value = table.get(key, "")
+    if not isinstance(value, str):
+        raise InputError(f"{where}: {key} must be text in quotes")
+    if len(value) > _MAX_TEXT:
+        raise InputError(f"{where}: {key} is longer than {_MAX_TEXT} characters")
+    return value
+
+
+def machine_from_table(table: Mapping[str, object], where: str = "machine") -> Machine:
+    """Build and validate one machine from a TOML table (or any mapping of the same keys).
+
+    Parameters
+    ----------
+    table : mapping
+        Keys ``id``, ``carrier``, the geometry keys of that carrier, and optionally
+        ``label``, ``carriers``, ``collection_factor``, ``breakdown_field``, ``material``,
+        ``notes`` and a ``tolerance`` table.
+    where : str
+        Where the table comes from, for messages (``"machines.toml, machine 2"``).
+
+    Returns
+    -------
+    Machine
+
+    Raises
+    ------
+    InputError
+        Naming the machine id, the key and the fix.
+    """
+    if not isinstance(table, Mapping):
+        raise InputError(f"{where}: a machine must be a table of keys")
+    machine_id = table.get("id")
+    if machine_id is None:
+        raise InputError(f"{where}: the key 'id' is missing, e.g. id = \"gallery-twin\"")
+    if not isinstance(machine_id, str) or not MACHINE_ID_PATTERN.match(machine_id):
+        raise InputError(
+            f"{where}: id {machine_id!r} must be 1 to 64 letters, digits, '-' or '_'"
+        )
+    where = f"machine '{machine_id}'"
+    kind = table.get("carrier")
+    if kind is None:
+        raise InputError(f"{where}: the key 'carrier' is missing; use one of "
+                         f"{', '.join(CARRIER_KINDS)}")
+    if kind not in SPEC_KEYS:
+        raise InputError(
+            f"{where}: carrier {kind!r} is not known; use one of {', '.join(CARRIER_KINDS)}"
+        )
+    geometry_keys = SPEC_KEYS[kind]  # type: ignore[index]
+    unknown = sorted(set(table) - set(_COMMON_KEYS) - set(geometry_keys))
+    if unknown:
+        raise InputError(
+            f"{where}: '{unknown[0]}' is not a key of a {kind} machine; its keys are "
+            f"{', '.join(list(_COMMON_KEYS) + list(geometry_keys))}"
+        )
+    spec = {key: table[key] for key in geometry_keys if key in table}
+    carrier = carrier_from_spec(kind, spec, where)  # type: ignore[arg-type]
+
+    carriers = table.get("carriers", 1)
+    if isinstance(carriers, bool) or not isinstance(carriers, int) or not 1 <= carriers <= 1000:
+        raise InputError(f"{where}: carriers must be a whole number from 1 to 1000, "
+                         f"got {carriers!r}")
+    factor = table.get("collection_factor", 1.0)
+    if isinstance(factor, bool) or not isinstance(factor, (int, float)) or not (
+        math.isfinite(factor) and 0 < factor <= 100
+    ):
+        raise InputError(f"{where}: collection_factor must be a number above 0 (default 1), "
+                         f"got {factor!r}")
+    field_text = table.get("breakdown_field", "")
+    reference_field = REFERENCE_BREAKDOWN_FIELD_V_M
+    if field_text:
+        reference_field = parse_quantity(field_text, "electric_field", f"{where}: breakdown_field")
+        if not reference_field > 0:
+            raise InputError(f"{where}: breakdown_field must be positive")
+
+    tolerance_table = table.get("tolerance", {})
+    if not isinstance(tolerance_table, Mapping):
+        raise InputError(f"{where}: tolerance must be a table, [machine.tolerance]")
+    tolerances: dict[str, Tolerance] = {}
+    for key, text in tolerance_table.items():
+        kind_of_key = geometry_keys.get(key) or _TOLERANCE_EXTRA_KINDS.get(key)
+        if kind_of_key is None:
+            raise InputError(
+                f"{where}: tolerance '{key}' is not known; tolerances can be given for "
+                f"{', '.join(list(geometry_keys) + list(_TOLERANCE_EXTRA_KINDS))}"
+            )
+        if key in geometry_keys and key not in spec:
+            raise InputError(f"{where}: tolerance '{key}' is given but {key} is not")
+        if kind_of_key == "fraction":
+            if isinstance(text, (int, float)) and not isinstance(text, bool):
+                tolerances[key] = Tolerance(abs(float(text)), relative=False)
+                continue
+        tolerances[key] = parse_tolerance(text, kind_of_key, f"{where}: tolerance {key}")
+    return Machine(
+        id=machine_id,
+        label=_text_field(table, "label", where) or machine_id,
+        carrier=carrier,
+        carriers=carriers,
+        collection_factor=float(factor),
+        reference_field_v_m=reference_field,
+        tolerances=tolerances,
+        material=_text_field(table, "material", where),
+        notes=_text_field(table, "notes", where),
+        spec=spec,
+        tolerance_spec={key: tolerance_table[key] for key in tolerance_table},
+        breakdown_field_text=field_text if isinstance(field_text, str) else "",
+    )
+
+
+def site_from_table(table: Mapping[str, object], where: str = "site") -> Site:
+    """Build the site from a ``[site]`` table: altitude or pressure, and temperature.
+
+    Parameters
+    ----------
+    table : mapping
+        Optional keys ``altitude``, ``pressure`` (not both) and ``temperature``.
+    where : str
+        For messages.
+
+    Returns
+    -------
+    Site
+    """
+    if not isinstance(table, Mapping):
+        raise InputError(f"{where}: [site] must be a table")
+    unknown = sorted(set(table) - set(_SITE_KEYS))
+    if unknown:
+        raise InputError(f"{where}: '{unknown[0]}' is not a site key; use "
+                         f"{', '.join(_SITE_KEYS)}")
+    altitude = (parse_quantity(table["altitude"], "length", f"{where}: altitude")
+                if "altitude" in table else None)
+    pressure = (parse_quantity(table["pressure"], "pressure", f"{where}: pressure")
+                if "pressure" in table else None)
+    try:
+        pressure_pa = site_pressure(pressure, altitude)
+    except InputError as error:
+        raise InputError(f"{where}: {error}") from None
+    temperature = (parse_quantity(table["temperature"], "temperature", f"{where}: temperature")
+                   if "temperature" in table else REFERENCE_TEMPERATURE_K)
+    if not temperature > 0:
+        raise InputError(f"{where}: temperature must be above absolute zero")
+    return Site(pressure_pa, temperature, {key: str(table[key]) for key in table})
+
+
+def parse_machines_text(text: str, source: str = "machines file") -> MachineFile:
+    """Read a machines file from its text.
+
+    Parameters
+    ----------
+    text : str
+        TOML text in the layout of this module.
+    source : str
+        Name of the file, for messages.
+
+    Returns
+    -------
+    MachineFile
+
+    Raises
+    ------
+    InputError
+        For invalid TOML, unknown or missing keys, bad values and duplicate ids, naming the
+        file, the machine id and the key.
+    """
+    if len(text) > MAX_MACHINES_FILE_BYTES:
+        raise InputError(f"{source}: the file is larger than {MAX_MACHINES_FILE_BYTES} bytes")
+    try:
+        document = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as error:
+        raise InputError(f"{source}: not a valid TOML file ({error})") from None
+    except RecursionError:
+        raise InputError(f"{source}: the file nests tables too deeply") from None
+    unknown = sorted(set(document) - {"site", "machine"})
+    if unknown:
+        raise InputError(f"{source}: '{unknown[0]}' is not a section of a machines file; "
+                         "use [site] and [[machine]]")
+    site = site_from_table(document.get("site", {}), f"{source}, [site]")
+    tables = document.get("machine", [])
+    if not isinstance(tables, list):
+        raise InputError(f"{source}: machines are written as [[machine]] tables")
+    if len(tables) > MAX_MACHINES:
+        raise InputError(f"{source}: more than {MAX_MACHINES} machines")
+    machines = []
+    seen: set[str] = set()
+    for number, table in enumerate(tables, 1):
+        try:
+            machine = machine_from_table(table, f"machine {number}")
+        except InputError as error:
+            raise InputError(f"{source}: {error}") from None
+        if machine.id in seen:
+            raise InputError(f"{source}: machine id '{machine.id}' is used twice; "
+                             "give each machine its own id")
+        seen.add(machine.id)
+        machines.append(machine)
+    return MachineFile(site, tuple(machines))
+
+
+def load_machines(path: str | Path) -> MachineFile:
+    """Read a machines file from disk (see :func:`parse_machines_text`)."""
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as error:
+        raise InputError(f"{path}: cannot be read ({error.strerror or error})") from None
+    if len(raw) > MAX_MACHINES_FILE_BYTES:
+        raise InputError(f"{path}: the file is larger than {MAX_MACHINES_FILE_BYTES} bytes")
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: a machines file must be UTF-8 text") from None
+    return parse_machines_text(text, str(path))
+
+
+def _toml_value(value: object) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(value)
+    # JSON string escapes are valid TOML basic-string escapes.
+    return json.dumps(str(value), ensure_ascii=False)
+
+
+def dump_machines(machine_file: MachineFile | Sequence[Machine]) -> str:
+    """Write machines (and the site) as TOML text that :func:`parse_machines_text` reads back.
+
+    Parameters
+    ----------
+    machine_file : MachineFile or sequence of Machine
+
+    Returns
+    -------
+    str
+        TOML text.
+    """
+    if isinstance(machine_file, MachineFile):
+        site_spec, machines = machine_file.site.spec, machine_file.machines
+    else:
+        site_spec, machines = {}, tuple(machine_file)
+    lines = ["# Ceiling Lab machines file"]
+    if site_spec:
+        lines += ["", "[site]"] + [f"{key} = {_toml_value(value)}"
+                                   for key, value in site_spec.items()]
+    for machine in machines:
+        table = machine.to_table()
+        tolerance = table.pop("tolerance", None)
+        lines += ["", "[[machine]]"]
+        lines += [f"{key} = {_toml_value(value)}" for key, value in table.items()]
+        if tolerance:
+            lines += ["", "[machine.tolerance]"]
+            lines += [f"{key} = {_toml_value(value)}" for key, value in tolerance.items()]
+    return "\n".join(lines) + "\n"
