@@ -91,7 +91,8 @@ def _parse_units(unit_text: str, field: str) -> pint.Unit:
     """Parse a unit expression, refusing anything that is not a plain unit expression."""
     if not _UNIT_ALLOWED.match(unit_text):
         raise InputError(f"{field}: '{unit_text}' is not a unit this tool knows")
-    stripped = _EXPONENT.sub("", unit_text)
+    # "1/min" is a reciprocal, not a number: the leading 1 may stay.
+    stripped = re.sub(r"(?<![\w.])1\s*/", "/", _EXPONENT.sub("", unit_text))
     if re.search(r"\d", stripped) or "**" in stripped or "^" in stripped:
         raise InputError(
             f"{field}: '{unit_text}' has a number or a power where a unit belongs; "

@@ -1,0 +1,161 @@
+"""The command line: right ceilings for every carrier kind in any units, clear errors."""
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from engine.__main__ import main
+from tests.test_machines import EXAMPLE
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def run(capsys, *argv):
+    status = main(list(argv))
+    captured = capsys.readouterr()
+    return status, captured.out, captured.err
+
+
+def run_json(capsys, *argv):
+    status, out, err = run(capsys, *argv, "--json")
+    assert status == 0, err
+    return json.loads(out)
+
+
+def test_disc_in_centimetres_and_inches_agree(capsys):
+    metric = run_json(capsys, "ceiling", "--carrier", "disc", "--outer-diameter", "45.72 cm",
+                      "--inner-diameter", "30.48 cm", "--carriers", "2", "--speed", "300 rpm")
+    imperial = run_json(capsys, "ceiling", "--carrier", "disc", "--outer-radius", "9 in",
+                        "--inner-radius", "6 in", "--carriers", "2", "--speed", "5 rev/s")
+    assert metric["ceiling_current_uA"] == pytest.approx(imperial["ceiling_current_uA"])
+    # Hand-worked: pi (0.2286^2 - 0.1524^2) = 0.091207 m^2; I = 26.5626e-6 * 0.091207 * 5 * 2
+    assert metric["ceiling_current_uA"] == pytest.approx(24.227, rel=1e-4)
+    assert metric["area_per_rev_m2"] == pytest.approx(0.091207, rel=1e-4)
+    assert metric["speed_rev_s"] == pytest.approx(5.0)
+    assert metric["relative_air_density"] == pytest.approx(1.0)
+
+
+def test_belt_three_ways(capsys):
+    # v = pi * 0.05 m * 2 rev/s = 0.314159 m/s; I = 26.5626e-6 * 0.05 * 0.314159 = 0.41724 uA
+    roller = run_json(capsys, "ceiling", "--carrier", "belt", "--width", "5 cm",
+                      "--roller-diameter", "5 cm", "--speed", "120 rpm")
+    linear = run_json(capsys, "ceiling", "--carrier", "belt", "--width", "50 mm",
+                      "--speed", "0.3141592653589793 m/s")
+    assert roller["ceiling_current_uA"] == pytest.approx(0.41724, rel=1e-4)
+    assert linear["ceiling_current_uA"] == pytest.approx(roller["ceiling_current_uA"])
+    assert linear["area_per_rev_m2"] is None and linear["speed_rev_s"] is None
+    assert linear["swept_area_per_s_m2"] == pytest.approx(roller["swept_area_per_s_m2"])
+    loop = run_json(capsys, "ceiling", "--carrier", "belt", "--width", "5 cm",
+                    "--loop-length", "120 cm", "--speed", "1 Hz")
+    # 0.05 * 1.2 = 0.06 m^2 per circulation; I = 26.5626e-6 * 0.06 * 1 = 1.5938 uA
+    assert loop["ceiling_current_uA"] == pytest.approx(1.5938, rel=1e-4)
+
+
+def test_cylinder_and_custom_at_altitude_and_pressure(capsys):
+    cylinder = run_json(capsys, "ceiling", "--carrier", "cylinder", "--radius", "10 cm",
+                        "--active-length", "0.4 m", "--speed", "3 rev/s", "--altitude", "1500 m")
+    # delta = 84 559.7 / 101 300 = 0.834745; I = 26.5626 * 0.834745 * 0.251327 * 3 = 16.718 uA
+    assert cylinder["relative_air_density"] == pytest.approx(0.834745, rel=1e-5)
+    assert cylinder["ceiling_current_uA"] == pytest.approx(16.718, rel=1e-4)
+    custom = run_json(capsys, "ceiling", "--carrier", "custom", "--area-per-rev", "0.12 m^2",
+                      "--speed", "3 rev/s", "--pressure", "84.6 kPa", "--temperature", "30 degC",
+                      "--collection-factor", "2", "--breakdown-field", "3.2 MV/m")
+    # delta = (84.6 / 101.3) * (293.15 / 303.15) = 0.807598; sigma = eps0 * 3.2e6 * delta
+    # = 22.882 uC/m^2; I = 22.882e-6 * 0.12 * 3 * 2 = 16.475 uA
+    assert custom["relative_air_density"] == pytest.approx(0.807598, rel=1e-5)
+    assert custom["ceiling_current_uA"] == pytest.approx(16.475, rel=1e-4)
+
+
+def test_plain_output_is_a_short_summary(capsys):
+    status, out, _ = run(capsys, "ceiling", "--carrier", "disc", "--outer-radius", "20 cm",
+                         "--speed", "300 rpm")
+    assert status == 0
+    assert "ceiling current" in out and "uA" in out and "300 rpm" in out
+    assert len(out.splitlines()) < 12
+
+
+@pytest.mark.parametrize(
+    ("argv", "message"),
+    [
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 kg", "--speed", "300 rpm"],
+         "needs a length"),
+        (["ceiling", "--carrier", "disc", "--speed", "300 rpm"], "outer_radius or outer_diameter"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm"], "--speed"),
+        (["ceiling", "--carrier", "wheel", "--speed", "3 Hz"], "invalid choice"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "6 m/s"],
+         "rotation rate"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "-5 rpm"],
+         "must not be negative"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+          "--pressure", "90 kPa", "--altitude", "300 m"], "not both"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+          "--temperature", "-300 degC"], "above absolute zero"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+          "--altitude", "40 km"], "altitude must be between"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+          "--carriers", "two"], "whole number"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+          "--collection-factor", "0"], "above 0"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+          "--breakdown-field", "3 kV"], "electric field"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--width", "3 cm",
+          "--speed", "5 rpm"], "not a disc key"),
+        (["ceiling", "--carrier", "belt", "--width", "5 cm", "--speed", "300 rpm"],
+         "linear speed"),
+        (["ceiling", "--carrier", "disc", "--outer-radius", "10**10**10 m", "--speed", "5 rpm"],
+         "power where a unit belongs"),
+        (["machines", "/nonexistent/machines.toml"], "cannot be read"),
+        (["nonsense"], "invalid choice"),
+        ([], "required"),
+    ],
+)
+def test_bad_input_is_one_error_line_and_status_2(capsys, argv, message):
+    status, out, err = run(capsys, *argv)
+    assert status == 2
+    assert out == ""
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error:")
+    assert message in lines[0]
+
+
+def test_machines_listing(capsys, tmp_path):
+    path = tmp_path / "machines.toml"
+    path.write_text(EXAMPLE, encoding="utf-8")
+    rows = run_json(capsys, "machines", str(path), "--speed", "300 rpm")
+    assert [row["id"] for row in rows] == ["gallery-twin", "school-belt", "workshop-cylinder",
+                                           "sketch"]
+    # ICAO pressure at 350 m (97 190.66 Pa, ambiance) gives delta = 0.959434 at 20 degC.
+    twin = rows[0]
+    assert twin["relative_air_density"] == pytest.approx(97_190.66 / 101_300, rel=1e-6)
+    assert twin["ceiling_current_uA"] == pytest.approx(13.9516 * 97_190.66 / 101_300, rel=1e-4)
+    status, out, _ = run(capsys, "machines", str(path), "--speed", "300 rpm")
+    assert status == 0 and "gallery-twin" in out and "ceiling [uA]" in out
+    without_speed = run_json(capsys, "machines", str(path))
+    assert "ceiling_current_uA" not in without_speed[0]
+    linear = run_json(capsys, "machines", str(path), "--speed", "6 m/s")
+    assert linear[1]["ceiling_current_uA"] is not None  # the belt takes a linear speed
+    assert linear[0]["ceiling_current_uA"] is None and "rotation rate" in linear[0]["note"]
+
+
+def test_machines_file_error_is_one_line(capsys, tmp_path):
+    path = tmp_path / "bad.toml"
+    path.write_text(EXAMPLE.replace('carriers = 2', 'carriers = -2'), encoding="utf-8")
+    status, _, err = run(capsys, "machines", str(path))
+    assert status == 2 and err.startswith("error:") and "gallery-twin" in err
+
+
+def test_module_runs_as_a_program_without_traceback():
+    done = subprocess.run(
+        [sys.executable, "-m", "engine", "ceiling", "--carrier", "disc", "--outer-radius",
+         "20 cm", "--speed", "nonsense"], cwd=ROOT, capture_output=True, text=True, timeout=60)
+    assert done.returncode == 2
+    assert done.stderr.startswith("error:") and "Traceback" not in done.stderr
+    done = subprocess.run(
+        [sys.executable, "-m", "engine", "ceiling", "--carrier", "disc", "--outer-radius",
+         "20 cm", "--speed", "300 rpm", "--json"], cwd=ROOT, capture_output=True, text=True,
+        timeout=60)
+    assert done.returncode == 0
+    assert json.loads(done.stdout)["ceiling_current_uA"] > 0

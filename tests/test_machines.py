@@ -1,0 +1,130 @@
+"""The machines file: reading, writing back, and messages for every kind of mistake."""
+
+import pytest
+
+from engine.errors import InputError
+from engine.machines import dump_machines, load_machines, parse_machines_text
+
+EXAMPLE = """
+[site]
+altitude = "350 m"
+
+[[machine]]
+id = "gallery-twin"
+label = "Gallery twin-disc, restored"
+carrier = "disc"
+outer_diameter = "46 cm"
+inner_diameter = "30 cm"
+sector_fill = 0.55
+carriers = 2
+collection_factor = 1.0
+breakdown_field = "3.0 MV/m"
+material = "acrylic"
+
+[machine.tolerance]
+outer_diameter = "1 mm"
+inner_diameter = "2 mm"
+speed = "2 %"
+current = "3 %"
+
+[[machine]]
+id = "school-belt"
+carrier = "belt"
+width = "5 cm"
+roller_diameter = "2 in"
+
+[[machine]]
+id = "workshop-cylinder"
+carrier = "cylinder"
+diameter = "18 in"
+active_length = "40 cm"
+
+[[machine]]
+id = "sketch"
+carrier = "custom"
+area_per_rev = "0.12 m^2"
+"""
+
+
+def test_example_file_reads():
+    machine_file = parse_machines_text(EXAMPLE)
+    machines = machine_file.by_id()
+    assert list(machines) == ["gallery-twin", "school-belt", "workshop-cylinder", "sketch"]
+    twin = machines["gallery-twin"]
+    assert twin.carriers == 2 and twin.carrier.sector_fill == 0.55
+    assert twin.carrier.outer_radius_m == pytest.approx(0.23)
+    assert twin.tolerances["speed"].relative and twin.tolerances["speed"].value == 0.02
+    assert twin.tolerances["outer_diameter"].value == pytest.approx(0.001)
+    assert machines["school-belt"].label == "school-belt"
+    # ICAO standard atmosphere at 350 m (the ambiance package gives 97 190 Pa).
+    assert machine_file.site.pressure_pa == pytest.approx(97_190.0, rel=1e-4)
+
+
+def test_written_file_reads_back_identically(tmp_path):
+    original = parse_machines_text(EXAMPLE)
+    path = tmp_path / "machines.toml"
+    path.write_text(dump_machines(original), encoding="utf-8")
+    again = load_machines(path)
+    assert again.machines == original.machines
+    assert again.site.pressure_pa == original.site.pressure_pa
+    # The user's units survive the round trip.
+    assert '"46 cm"' in path.read_text(encoding="utf-8")
+
+
+def test_text_with_quotes_and_newlines_round_trips():
+    text = EXAMPLE.replace('material = "acrylic"',
+                           'notes = "said \\"fine\\"\\nsecond line = 2"')
+    original = parse_machines_text(text)
+    assert parse_machines_text(dump_machines(original)).machines == original.machines
+
+
+@pytest.mark.parametrize(
+    ("change", "message"),
+    [
+        (('carrier = "disc"', 'carrier = "wheel"'), "machine 'gallery-twin': carrier 'wheel'"),
+        (('sector_fill = 0.55', 'sector_fil = 0.55'),
+         "machine 'gallery-twin': 'sector_fil' is not a key of a disc machine"),
+        (('outer_diameter = "46 cm"\n', ''),
+         "machine 'gallery-twin': outer_radius or outer_diameter is missing"),
+        (('outer_diameter = "46 cm"', 'outer_diameter = "46 kg"'),
+         "machine 'gallery-twin': outer_diameter needs a length"),
+        (('carriers = 2', 'carriers = 0'), "carriers must be a whole number"),
+        (('carriers = 2', 'carriers = 2.5'), "carriers must be a whole number"),
+        (('collection_factor = 1.0', 'collection_factor = -1'), "collection_factor must be"),
+        (('breakdown_field = "3.0 MV/m"', 'breakdown_field = "3.0 MV"'),
+         "breakdown_field needs an electric field"),
+        (('speed = "2 %"', 'spede = "2 %"'), "tolerance 'spede' is not known"),
+        (('speed = "2 %"', 'speed = "2 kg"'), "tolerance speed"),
+        (('id = "school-belt"', 'id = "gallery-twin"'), "machine id 'gallery-twin' is used twice"),
+        (('id = "school-belt"', 'id = "school belt!"'), "must be 1 to 64 letters"),
+        (('id = "sketch"\n', ''), "machine 4: the key 'id' is missing"),
+        (('altitude = "350 m"', 'altitude = "350 m"\npressure = "97 kPa"'), "not both"),
+        (('altitude = "350 m"', 'height = "350 m"'), "'height' is not a site key"),
+        (('[site]', '[sight]'), "'sight' is not a section"),
+        (('width = "5 cm"', 'width = 5'), "expected a quantity with a unit"),
+        (('label = "Gallery twin-disc, restored"', 'label = 7'), "label must be text"),
+    ],
+)
+def test_mistakes_name_the_machine_key_and_fix(change, message):
+    old, new = change
+    assert old in EXAMPLE
+    with pytest.raises(InputError, match=message.replace("(", r"\(")):
+        parse_machines_text(EXAMPLE.replace(old, new, 1), "lab.toml")
+
+
+def test_invalid_toml_names_the_file():
+    with pytest.raises(InputError, match="lab.toml: not a valid TOML file"):
+        parse_machines_text("[[machine]\nid = ", "lab.toml")
+
+
+def test_unreadable_file(tmp_path):
+    with pytest.raises(InputError, match="cannot be read"):
+        load_machines(tmp_path / "missing.toml")
+    binary = tmp_path / "binary.toml"
+    binary.write_bytes(b"\xff\xfe\x00garbage\x80")
+    with pytest.raises(InputError, match="UTF-8"):
+        load_machines(binary)
+
+
+def test_empty_file_has_no_machines():
+    assert parse_machines_text("").machines == ()
