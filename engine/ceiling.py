@@ -7,6 +7,7 @@ million readings.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -19,6 +20,7 @@ from engine.air import (
     relative_air_density,
 )
 from engine.carriers import ROTATION
+from engine.errors import InputError
 from engine.machines import Machine
 
 
@@ -149,3 +151,101 @@ def ceiling_figures(machine: Machine, speed: float, speed_kind: str = ROTATION,
         "charge_density_limit_uC_m2": float(result.charge_density_limit_c_m2) * 1e6,
         "ceiling_current_uA": float(result.ceiling_current_a) * 1e6,
     }
+
+
+def _limit_density(machine: Machine, pressure_pa, temperature_k):
+    return charge_density_limit(
+        breakdown_field(relative_air_density(pressure_pa, temperature_k),
+                        machine.reference_field_v_m))
+
+
+def speed_for_current(machine: Machine, target_current_a: float, speed_kind: str = ROTATION,
+                      pressure_pa: float = REFERENCE_PRESSURE_PA,
+                      temperature_k: float = REFERENCE_TEMPERATURE_K) -> float:
+    """Speed at which the ceiling reaches a target current (the planner's inverse question).
+
+    Parameters
+    ----------
+    machine : Machine
+    target_current_a : float
+        Target ceiling current [A], positive.
+    speed_kind : {"rotation", "linear"}
+        Whether to answer in rev/s or, for a belt, in m/s.
+    pressure_pa, temperature_k : float
+        Air conditions [Pa], [K].
+
+    Returns
+    -------
+    float
+        Speed [rev/s] or [m/s]: f = I / (sigma_limit * A_rev * N * k), since the ceiling is
+        linear in speed.
+    """
+    if not target_current_a > 0:
+        raise InputError("the target current must be positive")
+    per_unit_speed = float(machine_ceiling(machine, 1.0, speed_kind, pressure_pa,
+                                           temperature_k).ceiling_current_a)
+    return target_current_a / per_unit_speed
+
+
+#: The size the planner varies for each carrier kind, with the others held.
+SIZE_TO_VARY = {
+    "disc": "outer radius (inner radius and sector fill held)",
+    "belt": "width (rollers or loop held)",
+    "cylinder": "active length (radius held)",
+    "custom": "area per revolution",
+}
+
+
+def size_for_current(machine: Machine, target_current_a: float, speed: float,
+                     speed_kind: str = ROTATION, pressure_pa: float = REFERENCE_PRESSURE_PA,
+                     temperature_k: float = REFERENCE_TEMPERATURE_K) -> tuple[str, float]:
+    """Size that makes the ceiling reach a target current at a given speed.
+
+    Parameters
+    ----------
+    machine : Machine
+        The machine whose other sizes are held (see :data:`SIZE_TO_VARY`).
+    target_current_a : float
+        Target ceiling current [A].
+    speed : float
+        Speed [rev/s], or [m/s] for a belt with ``speed_kind="linear"``.
+    speed_kind : {"rotation", "linear"}
+    pressure_pa, temperature_k : float
+        Air conditions [Pa], [K].
+
+    Returns
+    -------
+    tuple of (str, float)
+        What was varied, and its value [m] (or [m^2] for a custom carrier).
+
+    Notes
+    -----
+    The swept area per second needed is A_s = I / (sigma_limit * N * k). A disc then needs
+    r_out = sqrt(A_rev / (pi fill) + r_in^2) with A_rev = A_s / f; a belt needs w = A_s / v
+    (v = f * length per revolution); a cylinder L = A_rev / (2 pi r); a custom carrier A_rev.
+    """
+    if not target_current_a > 0:
+        raise InputError("the target current must be positive")
+    if not speed > 0:
+        raise InputError("the speed must be positive")
+    sigma = float(_limit_density(machine, pressure_pa, temperature_k))
+    swept_needed = target_current_a / (sigma * machine.carriers * machine.collection_factor)
+    carrier = machine.carrier
+    if carrier.kind == "belt":
+        if speed_kind == ROTATION:
+            if carrier.length_per_rev_m is None:
+                raise InputError("this belt needs a linear speed (m/s) for the planner")
+            belt_speed = speed * carrier.length_per_rev_m
+        else:
+            belt_speed = speed
+        return "width", swept_needed / belt_speed
+    if speed_kind != ROTATION:
+        raise InputError(f"a {carrier.kind} carrier's speed must be a rotation rate")
+    area_per_rev = swept_needed / speed
+    if carrier.kind == "disc":
+        radius = math.sqrt(area_per_rev / (math.pi * carrier.sector_fill)
+                           + carrier.inner_radius_m**2)
+        return "outer radius", radius
+    if carrier.kind == "cylinder":
+        return "active length", area_per_rev / (2 * math.pi * carrier.radius_m)
+    return "area per revolution", area_per_rev

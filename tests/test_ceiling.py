@@ -111,3 +111,30 @@ def test_rpm_and_rev_per_second_agree(rpm):
 def test_ceiling_current_broadcasts():
     values = ceiling_current(np.array([1e-5, 2e-5]), 0.5, carriers=np.array([1, 2]))
     np.testing.assert_allclose(values, [5e-6, 2e-5])
+
+
+def test_planner_inverse_questions_give_back_the_target():
+    from engine.ceiling import size_for_current, speed_for_current
+
+    twin = machine()
+    # The ceiling is 13.952 uA at 5 rev/s (hand-worked above), so 27.9 uA needs 10 rev/s.
+    assert speed_for_current(twin, 27.904e-6) == pytest.approx(10.0, rel=1e-4)
+    what, radius = size_for_current(twin, 13.952e-6 * 4, 5.0)
+    assert what == "outer radius"
+    # Four times the annulus: pi fill (r^2 - 0.15^2) = 4 * 0.052527 -> r = 0.39426 m
+    assert radius == pytest.approx(math.sqrt(4 * 0.0304 + 0.15**2), rel=1e-4)
+    bigger_table = {**TWIN_DISC, "outer_radius": f"{radius!r} m"}
+    del bigger_table["outer_diameter"]
+    bigger = machine_from_table(bigger_table)
+    assert machine_ceiling(bigger, 5.0).ceiling_current_a == pytest.approx(13.952e-6 * 4,
+                                                                         rel=1e-4)
+    belt = machine_from_table({"id": "b", "carrier": "belt", "width": "5 cm",
+                               "roller_diameter": "5 cm"})
+    what, width = size_for_current(belt, 2 * 0.41724e-6, 2.0)
+    assert what == "width" and width == pytest.approx(0.10, rel=1e-4)
+    cylinder = machine_from_table({"id": "c", "carrier": "cylinder", "radius": "10 cm",
+                                   "active_length": "40 cm"})
+    what, length = size_for_current(cylinder, 2 * 20.04e-6, 3.0)
+    assert what == "active length" and length == pytest.approx(0.8, rel=1e-3)
+    with pytest.raises(InputError, match="positive"):
+        speed_for_current(twin, 0.0)
