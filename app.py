@@ -1,39 +1,38 @@
-"""Ceiling Lab: the frame of the Streamlit app (placeholder until the dashboard lands)."""
+"""Ceiling Lab: the frame of the Streamlit app. It sets the page, the sidebar and the navigation;
+each page is a short script in pages/."""
 
 import streamlit as st
 
-from engine.carriers import CARRIER_KINDS
-from engine.ceiling import ceiling_figures
-from engine.errors import InputError
-from engine.machines import machine_from_table
-from engine.units import parse_speed
+from engine.demo import load_demo
+from pages import _shared as shared
 
-st.set_page_config(page_title="Ceiling Lab", layout="wide")
-st.title("Ceiling Lab")
-st.warning(
-    "High voltage: electrostatic generators make tens to hundreds of kilovolts, and charged "
-    "capacitors can give a dangerous shock. Follow your institution's electrical safety rules "
-    "and local codes; this tool computes, it does not make a set-up safe."
+st.set_page_config(page_title="Ceiling Lab", page_icon=":material/bolt:", layout="wide")
+
+store = shared.store()
+if store.is_empty() and not st.session_state.get("demo-declined"):
+    with st.spinner("First start: loading the demonstration lab..."):
+        load_demo(store)
+
+navigation = st.navigation(
+    [
+        st.Page("pages/overview.py", title="Overview", icon=":material/home:", default=True),
+        st.Page("pages/machines.py", title="Machines", icon=":material/settings:"),
+        st.Page("pages/readings.py", title="Readings", icon=":material/upload_file:"),
+        st.Page("pages/compare.py", title="Compare", icon=":material/monitoring:"),
+        st.Page("pages/sessions.py", title="Sessions", icon=":material/timeline:"),
+        st.Page("pages/planner.py", title="Planner", icon=":material/straighten:"),
+        st.Page("pages/report.py", title="Report", icon=":material/description:"),
+        st.Page("pages/safety.py", title="Safety and method", icon=":material/warning:"),
+    ]
 )
-kind = st.selectbox("Carrier", CARRIER_KINDS, key="carrier")
-fields = {
-    "disc": ["outer_diameter", "inner_diameter", "sector_fill"],
-    "belt": ["width", "roller_diameter"],
-    "cylinder": ["diameter", "active_length"],
-    "custom": ["area_per_rev"],
-}[kind]
-defaults = {"outer_diameter": "46 cm", "inner_diameter": "30 cm", "sector_fill": "1",
-            "width": "5 cm", "roller_diameter": "5 cm", "diameter": "20 cm",
-            "active_length": "40 cm", "area_per_rev": "0.12 m^2"}
-table = {"id": "sketch", "carrier": kind}
-for name in fields:
-    value = st.text_input(name.replace("_", " "), defaults[name], key=name)
-    if value.strip():
-        table[name] = value
-speed_text = st.text_input("speed", "300 rpm", key="speed")
-try:
-    speed, speed_kind = parse_speed(speed_text)
-    figures = ceiling_figures(machine_from_table(table), speed, speed_kind)
-    st.metric("Ceiling current", f"{figures['ceiling_current_uA']:.3g} uA")
-except InputError as error:
-    st.error(str(error))
+
+with st.sidebar:
+    counts = store.counts()
+    st.markdown(f"**Ceiling Lab** · {counts['machines']} machines · {counts['readings']:,} "
+                "readings")
+    if store.has_demo():
+        st.caption("The demonstration lab is loaded (invented data). Remove it on the Overview "
+                   "page when you start your own.")
+    st.caption(shared.SAFETY_SHORT)
+
+navigation.run()

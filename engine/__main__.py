@@ -4,6 +4,8 @@ Subcommands
 -----------
 ceiling    one ceiling from options given as quantity strings
 machines   the machines of a machines file, with their ceilings at a speed
+evaluate   every reading of a file with its derived columns (CSV, XLSX or JSON)
+summary    the findings per machine (or machine and session)
 
 Bad input exits with status 2 and one line on stderr starting with ``error:``.
 """
@@ -12,14 +14,18 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import sys
 from collections.abc import Sequence
+from pathlib import Path
 
+from engine import analysis, columns, report
 from engine.air import REFERENCE_TEMPERATURE_K, site_pressure
 from engine.carriers import CARRIER_KINDS, ROTATION, carrier_from_spec
 from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
 from engine.machines import Machine, load_machines
+from engine.readings import ReadOptions, merge_environment, read_environment, read_readings
 from engine.units import parse_quantity, parse_speed
 
 EXIT_BAD_INPUT = 2
@@ -186,6 +192,152 @@ def _command_machines(args: argparse.Namespace) -> int:
     return 0
 
 
+def _pairs(values: list[str] | None, option: str) -> dict[str, str]:
+    pairs = {}
+    for value in values or []:
+        key, separator, text = value.partition("=")
+        if not separator or not key.strip():
+            raise InputError(f"{option} takes FIELD=VALUE, e.g. {option} speed=rpm; got '{value}'")
+        pairs[key.strip()] = text.strip()
+    return pairs
+
+
+def _read_options(args: argparse.Namespace) -> ReadOptions:
+    mapping = {header: field for field, header in _pairs(args.column, "--column").items()}
+    return ReadOptions(
+        separator=args.separator, decimal=args.decimal, encoding=args.encoding,
+        mapping=mapping or None, units=_pairs(args.unit, "--unit") or None,
+        machine=args.machine, session=args.session, day_first=args.day_first,
+    )
+
+
+def _derived_from_files(args: argparse.Namespace):
+    """Read the machines, the readings and the log, merge, derive: the frame and messages."""
+    machine_file = load_machines(args.machines)
+    result = read_readings(args.readings, _read_options(args))
+    frame = result.frame
+    messages = list(result.messages)
+    if args.machine and result.mapping.get("machine"):
+        keep = frame[columns.MACHINE] == args.machine
+        messages.append(f"kept the {int(keep.sum())} readings of machine '{args.machine}'")
+        frame = frame[keep]
+    if args.environment:
+        tolerance_s = parse_quantity(args.tolerance, "duration", "--tolerance")
+        if not tolerance_s >= 0:
+            raise InputError("--tolerance must not be negative")
+        log = read_environment(args.environment, ReadOptions(day_first=args.day_first))
+        messages.extend(log.messages)
+        frame = merge_environment(frame, log.frame, tolerance_s)
+    derived = analysis.derive(frame, machine_file.by_id(), machine_file.site)
+    return machine_file, derived, messages
+
+
+def _command_evaluate(args: argparse.Namespace) -> int:
+    _machine_file, derived, _messages = _derived_from_files(args)
+    table = report.output_frame(derived)
+    flagged = int((derived[columns.FLAGS] != "").sum())
+    if args.output:
+        target = Path(args.output)
+        suffix = target.suffix.lower()
+        if suffix not in {".csv", ".xlsx"}:
+            raise InputError(f"--output must end in .csv or .xlsx, got '{target.name}'")
+        data = (report.to_xlsx_bytes(table) if suffix == ".xlsx"
+                else report.to_csv_bytes(table))
+        try:
+            target.write_bytes(data)
+        except OSError as error:
+            raise InputError(f"{target}: cannot be written ({error.strerror or error})") from None
+        if not args.json:
+            print(f"wrote {len(table)} readings ({flagged} flagged) to {target}")
+    if args.json:
+        print(table.to_json(orient="records", date_format="iso"))
+    elif not args.output:
+        sys.stdout.write(report.to_csv_bytes(table).decode("utf-8"))
+    return 0
+
+
+def _json_ready(value: object) -> object:
+    if isinstance(value, (tuple, list)):
+        return [_json_ready(item) for item in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if hasattr(value, "item"):
+        return _json_ready(value.item())
+    return value
+
+
+def _command_summary(args: argparse.Namespace) -> int:
+    machine_file, derived, _messages = _derived_from_files(args)
+    reference_rh = parse_quantity(args.reference_rh, "fraction", "--reference-rh")
+    if not 0 <= reference_rh <= 100:
+        raise InputError("--reference-rh is a relative humidity in percent, 0 to 100")
+    table = analysis.findings(derived, machine_file.by_id(), by_session=args.by_session,
+                              reference_rh=reference_rh / 100)
+    records = [{key: _json_ready(value) for key, value in row.items()}
+               for row in table.to_dict(orient="records")]
+    if args.json:
+        print(json.dumps(records))
+        return 0
+    if not records:
+        print("no readings")
+        return 0
+    for record in records:
+        print(_format_finding(record, reference_rh))
+    return 0
+
+
+def _number(value: object, pattern: str, unit: str = "", scale: float = 1.0) -> str:
+    if value is None:
+        return "n/a"
+    return format(value * scale, pattern) + (f" {unit}" if unit else "")
+
+
+def _format_finding(record: dict, reference_rh: float) -> str:
+    title = record["machine"] + (f", session '{record['session']}'" if record.get("session")
+                                 else "")
+    interval = record.get("charge_per_rev_ci_nC")
+    rows = [
+        ("readings used / flagged", f"{record['readings_used']} / {record['readings_flagged']}"),
+        ("efficiency, median", _number(record.get("efficiency_median"), ".1f", "%", 100)),
+        ("charge per revolution", _number(record.get("charge_per_rev_nC"), ".4g", "nC")
+         + (f" (95 % CI {interval[0]:.4g} to {interval[1]:.4g})" if interval else "")),
+        ("offset current", _number(record.get("offset_current_uA"), ".3g", "uA")
+         + f", R^2 {_number(record.get('fit_r2'), '.3f')}"),
+        ("observed collection factor", _number(record.get("observed_collection_factor"), ".3g")),
+        ("humidity slope", _number(record.get("humidity_slope_per_10pct"), "+.1f",
+                                   "% points per +10 % RH", 100)),
+        (f"efficiency at {reference_rh:g} % RH",
+         _number(record.get("efficiency_at_reference_rh"), ".1f", "%", 100)),
+    ]
+    if record.get("notes"):
+        rows.append(("notes", record["notes"]))
+    return "\n".join([title] + [f"  {name:<30} {value}" for name, value in rows])
+
+
+def _add_reading_options(command: argparse.ArgumentParser) -> None:
+    command.add_argument("machines", help="machines file (TOML)")
+    command.add_argument("readings", help="readings file (CSV or XLSX)")
+    command.add_argument("--environment", help="a separate humidity/temperature log")
+    command.add_argument("--machine", help="machine id for a file with no machine column; "
+                         "with one, keep only this machine's readings")
+    command.add_argument("--session", help="session name for a file with no session column")
+    command.add_argument("--tolerance", default="5 min",
+                         help="how far in time a log entry may be from a reading (default 5 min)")
+    command.add_argument("--separator", help="CSV separator (detected when not given)")
+    command.add_argument("--decimal", choices=[".", ","], help="decimal mark (detected)")
+    command.add_argument("--encoding", help="text encoding, e.g. utf-8 or latin-1 (detected)")
+    dates = command.add_mutually_exclusive_group()
+    dates.add_argument("--day-first", dest="day_first", action="store_true", default=None,
+                       help="dates such as 03/04/2026 are day first")
+    dates.add_argument("--month-first", dest="day_first", action="store_false",
+                       help="dates such as 03/04/2026 are month first")
+    command.add_argument("--column", action="append", metavar="FIELD=HEADER",
+                         help="use the file's column HEADER for FIELD (repeatable)")
+    command.add_argument("--unit", action="append", metavar="FIELD=UNIT",
+                         help="unit of a column whose header has none, e.g. speed=rev/s")
+    command.add_argument("--json", action="store_true", help="print JSON")
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of ``python -m engine`` with all its subcommands."""
     parser = _Parser(prog="python -m engine",
@@ -214,6 +366,18 @@ def build_parser() -> argparse.ArgumentParser:
     machines.add_argument("--speed", help="speed for the ceilings, e.g. '300 rpm'")
     machines.add_argument("--json", action="store_true", help="print a JSON list")
     machines.set_defaults(run=_command_machines)
+
+    evaluate = commands.add_parser("evaluate", help="every reading with its derived columns")
+    _add_reading_options(evaluate)
+    evaluate.add_argument("--output", help="write FILE.csv or FILE.xlsx instead of printing")
+    evaluate.set_defaults(run=_command_evaluate)
+
+    summary = commands.add_parser("summary", help="findings per machine")
+    _add_reading_options(summary)
+    summary.add_argument("--reference-rh", default="45",
+                         help="relative humidity [%%] for the efficiency comparison (default 45)")
+    summary.add_argument("--by-session", action="store_true", help="one finding per session")
+    summary.set_defaults(run=_command_summary)
     return parser
 
 

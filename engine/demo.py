@@ -1,0 +1,51 @@
+"""The invented demonstration scenario of ``sample_data/``, loaded into a store as demo data."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from engine.machines import load_machines
+from engine.readings import merge_environment, read_environment, read_readings
+from engine.store import Store
+
+DEMO_FOLDER = Path(__file__).resolve().parents[1] / "sample_data"
+
+#: Readings files of the scenario with their name in the store and their humidity log, if any.
+DEMO_IMPORTS = (
+    ("readings_twin_disc.csv", "Science centre twin-disc, before and after restoration", None),
+    ("readings_belt.csv", "School belt machine, three student groups", None),
+    ("readings_cylinder.csv", "Workshop cylinder, a damp day", "environment_cylinder.csv"),
+    ("readings_stack.csv", "Six-disc stack, open day", None),
+)
+
+
+def load_demo(store: Store, folder: Path = DEMO_FOLDER) -> list[int]:
+    """Load the demonstration machines and readings into ``store``, all marked as demo.
+
+    Parameters
+    ----------
+    store : Store
+        An open store.
+    folder : Path
+        Folder of the scenario (``sample_data/``).
+
+    Returns
+    -------
+    list of int
+        The new import ids.
+    """
+    machine_file = load_machines(folder / "machines.toml")
+    for machine in machine_file.machines:
+        store.save_machine(machine, demo=True)
+    if machine_file.site.spec:
+        store.save_site(dict(machine_file.site.spec))
+    import_ids = []
+    for readings_name, title, log_name in DEMO_IMPORTS:
+        frame = read_readings(folder / readings_name).frame
+        environment = None
+        if log_name:
+            environment = read_environment(folder / log_name).frame
+            frame = merge_environment(frame, environment)
+        import_ids.append(store.import_readings(frame, title, source=readings_name,
+                                                environment=environment, demo=True))
+    return import_ids

@@ -1,0 +1,988 @@
+"""Figures: plotly charts shared by the Streamlit pages and the HTML report.
+
+Every builder takes the frames that travel between engine modules, the readings with their
+derived columns (:data:`engine.columns.READING_COLUMNS` + :data:`engine.columns.DERIVED_COLUMNS`,
+SI units) and the findings per machine, and returns a :class:`plotly.graph_objects.Figure` in
+display units (rpm, uA, nC, %, degC). Ceiling lines come from
+:func:`engine.ceiling.machine_ceiling`; no physics is computed here.
+
+Conventions shared by all charts:
+
+- each machine keeps one colour (:func:`machine_colours`) on every chart;
+- readings with flags are left out of the fits and drawn only with ``show_flagged=True``, in
+  grey with x markers;
+- a trace of more than :data:`WEBGL_THRESHOLD` points is drawn with WebGL (``Scattergl``);
+- empty input gives a figure that says :data:`NO_READINGS` instead of raising;
+- text from the user (labels, ids, sessions) is HTML-escaped before plotly sees it, because
+  plotly reads a few HTML tags in its text.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+from collections.abc import Iterable, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from plotly.subplots import make_subplots
+
+from engine import columns as col
+from engine.air import REFERENCE_PRESSURE_PA, REFERENCE_TEMPERATURE_K
+from engine.carriers import Belt, Cylinder, Disc
+from engine.ceiling import machine_ceiling
+from engine.errors import InputError
+from engine.machines import Machine
+from engine.units import to_display
+
+# colour-blind-safe qualitative palette
+PALETTE: tuple[str, ...] = (
+    "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000",
+)
+#: Colour of flagged readings.
+FLAGGED_COLOUR = "#8C8C8C"
+#: Traces with more points than this are drawn with WebGL.
+WEBGL_THRESHOLD = 20_000
+#: What an empty chart says.
+NO_READINGS = "No readings to show"
+#: Reference relative humidity of the humidity fit [%], unless told otherwise.
+DEFAULT_REFERENCE_RH_PCT = 45.0
+
+SPEED_AXIS = "Speed [rpm]"
+CURRENT_AXIS = "Current [µA]"
+EFFICIENCY_AXIS = "Efficiency [%]"
+CHARGE_AXIS = "Charge per revolution [nC]"
+RH_AXIS = "Relative humidity [%]"
+TEMPERATURE_AXIS = "Temperature [°C]"
+ELAPSED_AXIS = "Elapsed time [min]"
+
+_NANO = 1e9  # coulomb to nanocoulomb (SI prefix)
+_STRIP_POINTS_MAX = 2_000  # above this the charge chart shows the box only
+_DISC_SECTORS_DRAWN = 12
+_LINE_POINTS = 25
+
+
+# --- small helpers ---------------------------------------------------------------------------
+
+def machine_colours(machine_ids: Iterable[object]) -> dict[str, str]:
+    """One colour per machine, stable for the sorted list of ids.
+
+    Parameters
+    ----------
+    machine_ids : iterable of str
+        Machine ids, in any order, repeats allowed.
+
+    Returns
+    -------
+    dict of str to str
+        Hex colour per id: the i-th id in sorted order takes ``PALETTE[i % 8]``, so the same
+        set of machines has the same colours on every chart and every page.
+    """
+    ids = sorted({str(machine_id) for machine_id in machine_ids if not _missing(machine_id)})
+    return {machine_id: PALETTE[number % len(PALETTE)] for number, machine_id in enumerate(ids)}
+
+
+def _missing(value: object) -> bool:
+    if value is None:
+        return True
+    try:
+        return bool(pd.isna(value))
+    except (TypeError, ValueError):
+        return False
+
+
+def _number(value: object) -> float:
+    """A float from a findings cell; NaN for None, text or anything else."""
+    try:
+        number = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return math.nan
+    return number
+
+
+def _interval(value: object) -> tuple[float, float]:
+    """A (low, high) pair from a findings cell holding a 2-item list or tuple."""
+    if isinstance(value, (list, tuple, np.ndarray)) and len(value) == 2:
+        return _number(value[0]), _number(value[1])
+    return math.nan, math.nan
+
+
+def _escape(text: object) -> str:
+    return html.escape(str(text), quote=False)
+
+
+def _escape_series(series: pd.Series) -> pd.Series:
+    text = series.astype(object).where(series.notna(), "").astype(str)
+    return (text.str.replace("&", "&amp;", regex=False)
+            .str.replace("<", "&lt;", regex=False)
+            .str.replace(">", "&gt;", regex=False))
+
+
+def _floats(frame: pd.DataFrame, column: str) -> np.ndarray:
+    """A column as floats; NaN where it is missing, empty or not a number."""
+    if column not in frame:
+        return np.full(len(frame), np.nan)
+    return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+
+
+def _flagged(frame: pd.DataFrame) -> np.ndarray:
+    """True where a reading carries at least one flag."""
+    if col.FLAGS not in frame:
+        return np.zeros(len(frame), dtype=bool)
+    flags = frame[col.FLAGS].astype(object).where(frame[col.FLAGS].notna(), "").astype(str)
+    return (flags.str.strip() != "").to_numpy(dtype=bool)
+
+
+def _machine_column(frame: pd.DataFrame) -> np.ndarray:
+    if col.MACHINE not in frame:
+        return np.full(len(frame), "", dtype=object)
+    machines = frame[col.MACHINE]
+    return machines.astype(object).where(machines.notna(), "").astype(str).to_numpy(dtype=object)
+
+
+def _machine_ids(frame: pd.DataFrame) -> list[str]:
+    return sorted({machine_id for machine_id in _machine_column(frame) if machine_id})
+
+
+def _label(machines: Mapping[str, Machine], machine_id: str) -> str:
+    machine = machines.get(machine_id)
+    return machine.label if machine is not None and machine.label else machine_id
+
+
+def _colours_for(colours: Mapping[str, str] | None, machine_ids: Sequence[str]) -> dict[str, str]:
+    chosen = machine_colours(machine_ids)
+    if colours:
+        chosen.update({str(key): value for key, value in colours.items()})
+    return chosen
+
+
+def _scatter(points: int, **trace: object) -> go.Scatter | go.Scattergl:
+    """A scatter trace, WebGL when it holds more than :data:`WEBGL_THRESHOLD` points."""
+    if points > WEBGL_THRESHOLD:
+        return go.Scattergl(**trace)
+    return go.Scatter(**trace)
+
+
+def _empty_figure(title: str = "", message: str = NO_READINGS) -> go.Figure:
+    figure = go.Figure()
+    figure.add_annotation(text=message, x=0.5, y=0.5, xref="paper", yref="paper",
+                          showarrow=False, font={"size": 16})
+    figure.update_layout(title=title, template="plotly_white")
+    figure.update_xaxes(visible=False)
+    figure.update_yaxes(visible=False)
+    return figure
+
+
+def _nothing_drawn(title: str, hidden_flagged: int) -> go.Figure:
+    if hidden_flagged:
+        return _empty_figure(title, f"{NO_READINGS} ({hidden_flagged} flagged readings hidden; "
+                                    "show flagged readings to see them)")
+    return _empty_figure(title)
+
+
+def _add_notes(figure: go.Figure, notes: Sequence[str]) -> None:
+    """Short notes under the chart: what is not drawn and why."""
+    if not notes:
+        return
+    figure.add_annotation(text="<br>".join(notes), x=0, y=-0.16, xref="paper", yref="paper",
+                          xanchor="left", yanchor="top", align="left", showarrow=False,
+                          font={"size": 11})
+    figure.update_layout(margin={"b": 90 + 16 * len(notes)})
+
+
+def _style(figure: go.Figure, title: str, x_title: str, y_title: str) -> None:
+    figure.update_layout(title=title, template="plotly_white", hovermode="closest",
+                         legend={"title": {"text": "Machine"}})
+    figure.update_xaxes(title_text=x_title)
+    figure.update_yaxes(title_text=y_title)
+
+
+def _finite_range(values: np.ndarray) -> tuple[float, float] | None:
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return None
+    return float(finite.min()), float(finite.max())
+
+
+def _median_density(frame: pd.DataFrame) -> float:
+    """Median relative air density of some readings; 1 (the reference) when none is known."""
+    density = _floats(frame, col.RELATIVE_AIR_DENSITY)
+    density = density[np.isfinite(density) & (density > 0)]
+    return float(np.median(density)) if density.size else 1.0
+
+
+def _ceiling_at_density(machine: Machine, speed_rev_s, relative_density: float):
+    """Ceiling current [A] at a relative air density, or None where rpm does not apply.
+
+    ``machine_ceiling`` takes pressure and temperature; at the reference temperature a pressure
+    of delta * 101.3 kPa is relative air density delta (IEC 60060-1 definition).
+    """
+    try:
+        result = machine_ceiling(machine, speed_rev_s,
+                                 pressure_pa=relative_density * REFERENCE_PRESSURE_PA,
+                                 temperature_k=REFERENCE_TEMPERATURE_K)
+    except InputError:
+        # a belt known only by its linear speed has no ceiling per revolution
+        return None
+    return np.asarray(result.ceiling_current_a, dtype=float)
+
+
+def _findings_rows(findings: pd.DataFrame | None, machine_id: str) -> list[dict[str, object]]:
+    if findings is None or len(findings) == 0 or "machine" not in findings:
+        return []
+    machine = findings["machine"].astype(object).where(findings["machine"].notna(), "")
+    return findings[machine.astype(str) == machine_id].to_dict("records")
+
+
+def _session_of(row: Mapping[str, object]) -> str:
+    session = row.get("session")
+    return "" if _missing(session) else str(session)
+
+
+def _session_rows(frame: pd.DataFrame, session: str) -> np.ndarray:
+    """Rows of ``frame`` in ``session``; all rows when no session is asked for."""
+    if not session or col.SESSION not in frame:
+        return np.ones(len(frame), dtype=bool)
+    sessions = frame[col.SESSION].astype(object).where(frame[col.SESSION].notna(), "")
+    return (sessions.astype(str) == session).to_numpy(dtype=bool)
+
+
+def _fit_name(label: str, session: str) -> str:
+    return f"{label}, {session}: fit" if session else f"{label}: fit"
+
+
+def _flagged_trace(frame: pd.DataFrame, x: np.ndarray, y: np.ndarray,
+                   machines: Mapping[str, Machine], x_text: str, y_text: str,
+                   showlegend: bool = True, label: str | None = None) -> go.Scatter | go.Scattergl:
+    """Grey x markers for flagged readings, with machine label and flags in the hover.
+
+    ``label`` (already escaped) stands for every reading's machine when they are all of one.
+    """
+    ids = pd.Series(_machine_column(frame), dtype=object)
+    if label is None:
+        labels = _escape_series(ids.map({key: _label(machines, key) for key in ids.unique()}))
+    else:
+        labels = pd.Series([label] * len(ids), dtype=object)
+    flags = _escape_series(frame[col.FLAGS]) if col.FLAGS in frame else pd.Series([""] * len(ids))
+    lines = "<br>".join(["%{customdata[0]}", *(text for text in (x_text, y_text) if text),
+                         "flags: %{customdata[1]}"])
+    return _scatter(
+        len(frame), x=x, y=y, mode="markers", name="flagged readings",
+        legendgroup="flagged", showlegend=showlegend,
+        marker={"color": FLAGGED_COLOUR, "symbol": "x", "size": 7},
+        customdata=np.column_stack([labels.to_numpy(), flags.to_numpy()]),
+        hovertemplate=lines + "<extra>flagged</extra>",
+    )
+
+
+def _rpm(speed_rev_s):
+    return to_display(speed_rev_s, "rotation_rate", "rpm")
+
+
+def _micro_amp(current_a):
+    return to_display(current_a, "current", "uA")
+
+
+def _percent(fraction):
+    return to_display(fraction, "fraction", "%")
+
+
+def _not_drawn_notes(machines: Mapping[str, Machine], no_speed: list[str],
+                     no_description: list[str]) -> list[str]:
+    notes = []
+    if no_speed:
+        notes.append("Not on this chart (no speed in rpm; a belt known only by its speed in "
+                     "m/s needs roller_diameter or loop_length): "
+                     + ", ".join(_escape(_label(machines, key)) for key in no_speed))
+    if no_description:
+        notes.append("No ceiling drawn (machine not in the machines list): "
+                     + ", ".join(_escape(key) for key in no_description))
+    return notes
+
+
+# --- comparison charts -----------------------------------------------------------------------
+
+def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None = None,
+                     machines: Mapping[str, Machine] | None = None,
+                     colours: Mapping[str, str] | None = None,
+                     show_flagged: bool = False) -> go.Figure:
+    """Measured current against speed, with each machine's ceiling and fitted line.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with derived columns (SI units).
+    findings : pandas.DataFrame, optional
+        One row per machine (or machine and session) with ``charge_per_rev_nC`` [nC] and
+        ``offset_current_uA`` [uA] of the fit I = q f + I0.
+    machines : mapping of str to Machine, optional
+        Machine descriptions by id, for labels and ceiling lines.
+    colours : mapping of str to str, optional
+        Colour per machine id; default :func:`machine_colours`.
+    show_flagged : bool
+        Draw flagged readings too (grey x markers).
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Current [uA] against speed [rpm]. The ceiling line is dashed, drawn over the
+        machine's speed range at the median relative air density of its clean readings.
+    """
+    title = "Measured current and ceiling against speed"
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    machines = machines or {}
+    ids = _machine_ids(derived)
+    colours = _colours_for(colours, ids)
+    flagged = _flagged(derived)
+    machine_column = _machine_column(derived)
+    speed_rev_s = _floats(derived, col.SPEED_REV_S)
+    speed_rpm = _rpm(speed_rev_s)
+    current_ua = _micro_amp(_floats(derived, col.CURRENT_A))
+    figure = go.Figure()
+    no_speed, no_description = [], []
+    for machine_id in ids:
+        rows = (machine_column == machine_id) & ~flagged
+        if not rows.any():
+            continue
+        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+        speed_range = _finite_range(speed_rev_s[rows])
+        if speed_range is None:
+            no_speed.append(machine_id)
+            continue
+        figure.add_trace(_scatter(
+            int(rows.sum()), x=speed_rpm[rows], y=current_ua[rows], mode="markers", name=label,
+            legendgroup=machine_id, marker={"color": colour, "size": 6, "opacity": 0.75},
+            hovertemplate="Speed %{x:.0f} rpm<br>Current %{y:.3g} µA",
+        ))
+        machine = machines.get(machine_id)
+        line_rev_s = np.linspace(*speed_range, _LINE_POINTS)
+        if machine is None:
+            no_description.append(machine_id)
+        else:
+            density = _median_density(derived[rows])
+            ceiling = _ceiling_at_density(machine, line_rev_s, density)
+            if ceiling is not None:
+                figure.add_trace(go.Scatter(
+                    x=_rpm(line_rev_s), y=_micro_amp(ceiling), mode="lines",
+                    name=f"{label}: ceiling", legendgroup=machine_id,
+                    line={"color": colour, "dash": "dash"},
+                    hovertemplate=(f"Ceiling at relative air density {density:.3f}"
+                                   "<br>Speed %{x:.0f} rpm<br>Ceiling %{y:.3g} µA"),
+                ))
+        for row in _findings_rows(findings, machine_id):
+            charge_nc = _number(row.get("charge_per_rev_nC"))
+            offset_ua = _number(row.get("offset_current_uA"))
+            if not math.isfinite(charge_nc):
+                continue
+            offset_ua = offset_ua if math.isfinite(offset_ua) else 0.0
+            session = _session_of(row)
+            fit_rows = rows & _session_rows(derived, session)
+            fit_range = _finite_range(speed_rev_s[fit_rows]) or speed_range
+            fit_rev_s = np.linspace(*fit_range, _LINE_POINTS)
+            fitted_ua = _micro_amp(charge_nc / _NANO * fit_rev_s) + offset_ua
+            figure.add_trace(go.Scatter(
+                x=_rpm(fit_rev_s), y=fitted_ua, mode="lines",
+                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
+                line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
+                hovertemplate=(f"Fit I = q f + I0: q = {charge_nc:.3g} nC, "
+                               f"I0 = {offset_ua:.3g} µA"
+                               "<br>Speed %{x:.0f} rpm<br>Current %{y:.3g} µA"),
+            ))
+    shown_flagged = flagged & np.isfinite(speed_rev_s)
+    if show_flagged and shown_flagged.any():
+        figure.add_trace(_flagged_trace(
+            derived[shown_flagged], speed_rpm[shown_flagged], current_ua[shown_flagged],
+            machines, "Speed %{x:.0f} rpm", "Current %{y:.3g} µA"))
+    if not figure.data:
+        return _nothing_drawn(title, 0 if show_flagged else int(flagged.sum()))
+    _style(figure, title, SPEED_AXIS, CURRENT_AXIS)
+    _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
+    return figure
+
+
+def efficiency_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None = None,
+                        machines: Mapping[str, Machine] | None = None,
+                        colours: Mapping[str, str] | None = None,
+                        show_flagged: bool = False) -> go.Figure:
+    """Efficiency (measured over ceiling current) against speed, per machine.
+
+    Parameters
+    ----------
+    derived, findings, machines, colours, show_flagged
+        As for :func:`current_vs_speed`.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Efficiency [%] against speed [rpm], with error bars of one standard uncertainty, a
+        100 % line (the ceiling) and, where a speed fit exists, the efficiency that the fit
+        I = q f + I0 gives against the ceiling at the machine's median air density.
+    """
+    title = "Efficiency against speed"
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    machines = machines or {}
+    ids = _machine_ids(derived)
+    colours = _colours_for(colours, ids)
+    flagged = _flagged(derived)
+    machine_column = _machine_column(derived)
+    speed_rev_s = _floats(derived, col.SPEED_REV_S)
+    speed_rpm = _rpm(speed_rev_s)
+    efficiency_pct = _percent(_floats(derived, col.EFFICIENCY))
+    uncertainty_pct = _percent(_floats(derived, col.EFFICIENCY_U))
+    figure = go.Figure()
+    no_speed, no_description = [], []
+    for machine_id in ids:
+        rows = (machine_column == machine_id) & ~flagged
+        if not rows.any():
+            continue
+        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+        speed_range = _finite_range(speed_rev_s[rows])
+        if speed_range is None:
+            no_speed.append(machine_id)
+            continue
+        error = uncertainty_pct[rows]
+        figure.add_trace(_scatter(
+            int(rows.sum()), x=speed_rpm[rows], y=efficiency_pct[rows], mode="markers",
+            name=label, legendgroup=machine_id,
+            marker={"color": colour, "size": 6, "opacity": 0.75},
+            error_y={"type": "data", "array": np.nan_to_num(error, nan=0.0),
+                     "visible": bool(np.isfinite(error).any()), "thickness": 1, "width": 0},
+            hovertemplate="Speed %{x:.0f} rpm<br>Efficiency %{y:.1f} % ± %{error_y.array:.1f}",
+        ))
+        machine = machines.get(machine_id)
+        if machine is None:
+            no_description.append(machine_id)
+            continue
+        density = _median_density(derived[rows])
+        for row in _findings_rows(findings, machine_id):
+            charge_nc = _number(row.get("charge_per_rev_nC"))
+            offset_ua = _number(row.get("offset_current_uA"))
+            if not math.isfinite(charge_nc):
+                continue
+            offset_ua = offset_ua if math.isfinite(offset_ua) else 0.0
+            session = _session_of(row)
+            fit_range = (_finite_range(speed_rev_s[rows & _session_rows(derived, session)])
+                         or speed_range)
+            fit_rev_s = np.linspace(*fit_range, _LINE_POINTS)
+            ceiling = _ceiling_at_density(machine, fit_rev_s, density)
+            if ceiling is None or not np.all(ceiling > 0):
+                continue
+            fitted_ua = _micro_amp(charge_nc / _NANO * fit_rev_s) + offset_ua
+            figure.add_trace(go.Scatter(
+                x=_rpm(fit_rev_s), y=100.0 * fitted_ua / _micro_amp(ceiling), mode="lines",
+                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
+                line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
+                hovertemplate=("Speed fit over ceiling at relative air density "
+                               f"{density:.3f}<br>Speed %{{x:.0f}} rpm"
+                               "<br>Efficiency %{y:.1f} %"),
+            ))
+    shown_flagged = flagged & np.isfinite(speed_rev_s)
+    if show_flagged and shown_flagged.any():
+        figure.add_trace(_flagged_trace(
+            derived[shown_flagged], speed_rpm[shown_flagged], efficiency_pct[shown_flagged],
+            machines, "Speed %{x:.0f} rpm", "Efficiency %{y:.1f} %"))
+    if not figure.data:
+        return _nothing_drawn(title, 0 if show_flagged else int(flagged.sum()))
+    figure.add_hline(y=100.0, line={"color": "#666666", "dash": "dash", "width": 1},
+                     annotation_text="ceiling (100 %)", annotation_position="top left")
+    _style(figure, title, SPEED_AXIS, EFFICIENCY_AXIS)
+    _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
+    return figure
+
+
+def _box_statistics(values: np.ndarray) -> dict[str, list[float]]:
+    """Quartiles and whisker ends (most extreme points within 1.5 IQR; common practice)."""
+    q1, median, q3 = np.percentile(values, [25, 50, 75])
+    spread = 1.5 * (q3 - q1)
+    inside = values[(values >= q1 - spread) & (values <= q3 + spread)]
+    return {"q1": [q1], "median": [median], "q3": [q3],
+            "lowerfence": [inside.min()], "upperfence": [inside.max()]}
+
+
+def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None = None,
+                   machines: Mapping[str, Machine] | None = None,
+                   colours: Mapping[str, str] | None = None,
+                   show_flagged: bool = False) -> go.Figure:
+    """Measured charge per revolution of each machine against its ceiling per revolution.
+
+    Parameters
+    ----------
+    derived, findings, machines, colours, show_flagged
+        As for :func:`current_vs_speed`; findings give ``charge_per_rev_nC`` and
+        ``charge_per_rev_ci_nC`` (95 % interval) of the speed fit.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Charge per revolution [nC]: a box of the clean readings per machine (quartiles,
+        whiskers to the furthest reading within 1.5 interquartile ranges), the readings
+        themselves when there are at most 2 000, the fitted q with its interval (diamond),
+        and the ceiling per revolution at the median air density (wide bar marker).
+    """
+    title = "Charge per revolution against the ceiling per revolution"
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    machines = machines or {}
+    ids = _machine_ids(derived)
+    colours = _colours_for(colours, ids)
+    flagged = _flagged(derived)
+    machine_column = _machine_column(derived)
+    charge_nc = _floats(derived, col.CHARGE_PER_REV_C) * _NANO
+    figure = go.Figure()
+    position_of: dict[str, int] = {}
+    tick_text: list[str] = []
+    no_speed, no_description = [], []
+    jitter = np.random.default_rng(0)  # fixed seed: the same data draw the same chart
+    for machine_id in ids:
+        machine_rows = machine_column == machine_id
+        rows = machine_rows & ~flagged & np.isfinite(charge_nc)
+        if not (machine_rows & ~flagged).any():
+            continue
+        if not rows.any():
+            no_speed.append(machine_id)
+            continue
+        position = position_of[machine_id] = len(tick_text)
+        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+        tick_text.append(label)
+        values = charge_nc[rows]
+        figure.add_trace(go.Box(
+            x=[position], **_box_statistics(values), name=label, legendgroup=machine_id,
+            marker={"color": colour}, line={"color": colour}, boxpoints=False,
+            hoverinfo="y+name",
+        ))
+        if values.size <= _STRIP_POINTS_MAX:
+            figure.add_trace(go.Scatter(
+                x=position + jitter.uniform(-0.18, 0.18, values.size), y=values,
+                mode="markers", name=f"{label}: readings", legendgroup=machine_id,
+                showlegend=False, marker={"color": colour, "size": 4, "opacity": 0.45},
+                hovertemplate="Charge per revolution %{y:.3g} nC",
+            ))
+        for row in _findings_rows(findings, machine_id):
+            fitted = _number(row.get("charge_per_rev_nC"))
+            if not math.isfinite(fitted):
+                continue
+            low, high = _interval(row.get("charge_per_rev_ci_nC"))
+            session = _session_of(row)
+            has_interval = math.isfinite(low) and math.isfinite(high)
+            figure.add_trace(go.Scatter(
+                x=[position + 0.3], y=[fitted], mode="markers",
+                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
+                marker={"color": colour, "symbol": "diamond", "size": 10,
+                        "line": {"color": "#000000", "width": 1}},
+                error_y={"type": "data", "symmetric": False,
+                         "array": [high - fitted if has_interval else 0.0],
+                         "arrayminus": [fitted - low if has_interval else 0.0],
+                         "visible": has_interval},
+                hovertemplate=(f"Fitted q = {fitted:.3g} nC"
+                               + (f" (95 % CI {low:.3g} to {high:.3g} nC)"
+                                  if has_interval else "")),
+            ))
+        machine = machines.get(machine_id)
+        if machine is None:
+            no_description.append(machine_id)
+            continue
+        density = _median_density(derived[rows])
+        ceiling = _ceiling_at_density(machine, 1.0, density)  # the current at 1 rev/s is q_rev
+        if ceiling is None:
+            continue
+        figure.add_trace(go.Scatter(
+            x=[position], y=[float(ceiling) * _NANO], mode="markers",
+            name=f"{label}: ceiling", legendgroup=machine_id,
+            marker={"color": colour, "symbol": "line-ew-open", "size": 44,
+                    "line": {"color": colour, "width": 3}},
+            hovertemplate=(f"Ceiling per revolution at relative air density {density:.3f}"
+                           "<br>%{y:.3g} nC"),
+        ))
+    shown_flagged = flagged & np.isfinite(charge_nc)
+    if show_flagged and shown_flagged.any():
+        # machines with only flagged readings get their own place on the axis
+        for machine_id in sorted(set(machine_column[shown_flagged]) - set(position_of)):
+            position_of[machine_id] = len(tick_text)
+            tick_text.append(_escape(_label(machines, machine_id)))
+        positions = pd.Series(machine_column[shown_flagged]).map(position_of)
+        figure.add_trace(_flagged_trace(
+            derived[shown_flagged], positions.to_numpy(dtype=float), charge_nc[shown_flagged],
+            machines, "", "Charge per revolution %{y:.3g} nC"))
+    if not figure.data:
+        return _nothing_drawn(title, 0 if show_flagged else int(flagged.sum()))
+    _style(figure, title, "Machine", CHARGE_AXIS)
+    figure.update_xaxes(tickmode="array", tickvals=list(range(len(tick_text))), ticktext=tick_text,
+                        title_text="Machine [-]")
+    _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
+    return figure
+
+
+def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame | None = None,
+                           machines: Mapping[str, Machine] | None = None,
+                           colours: Mapping[str, str] | None = None,
+                           show_flagged: bool = False,
+                           reference_rh_pct: float = DEFAULT_REFERENCE_RH_PCT) -> go.Figure:
+    """Efficiency against relative humidity, with each machine's linear humidity fit.
+
+    Parameters
+    ----------
+    derived, findings, machines, colours, show_flagged
+        As for :func:`current_vs_speed`; findings give ``efficiency_at_reference_rh``
+        (fraction) and ``humidity_slope_per_10pct`` (fraction per +10 % RH).
+    reference_rh_pct : float
+        Relative humidity at which ``efficiency_at_reference_rh`` was evaluated [%].
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Efficiency [%] against relative humidity [%]. The fit line is
+        eff(rh) = eff_ref + slope * (rh - rh_ref) / 10, drawn over the machine's RH range.
+    """
+    title = "Efficiency against relative humidity"
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    machines = machines or {}
+    ids = _machine_ids(derived)
+    colours = _colours_for(colours, ids)
+    flagged = _flagged(derived)
+    machine_column = _machine_column(derived)
+    rh_pct = _percent(_floats(derived, col.RH))
+    efficiency_pct = _percent(_floats(derived, col.EFFICIENCY))
+    figure = go.Figure()
+    no_humidity = []
+    for machine_id in ids:
+        rows = (machine_column == machine_id) & ~flagged
+        if not rows.any():
+            continue
+        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+        rh_range = _finite_range(rh_pct[rows])
+        if rh_range is None:
+            no_humidity.append(_escape(_label(machines, machine_id)))
+            continue
+        figure.add_trace(_scatter(
+            int(rows.sum()), x=rh_pct[rows], y=efficiency_pct[rows], mode="markers",
+            name=label, legendgroup=machine_id,
+            marker={"color": colour, "size": 6, "opacity": 0.75},
+            hovertemplate="RH %{x:.1f} %<br>Efficiency %{y:.1f} %",
+        ))
+        for row in _findings_rows(findings, machine_id):
+            at_reference = _number(row.get("efficiency_at_reference_rh"))
+            slope = _number(row.get("humidity_slope_per_10pct"))
+            if not (math.isfinite(at_reference) and math.isfinite(slope)):
+                continue
+            session = _session_of(row)
+            fit_range = _finite_range(rh_pct[rows & _session_rows(derived, session)]) or rh_range
+            line_rh = np.linspace(*fit_range, _LINE_POINTS)
+            line_efficiency = _percent(at_reference + slope * (line_rh - reference_rh_pct) / 10)
+            figure.add_trace(go.Scatter(
+                x=line_rh, y=line_efficiency, mode="lines",
+                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
+                line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
+                hovertemplate=(f"Humidity fit: {_percent(slope):+.1f} % points per +10 % RH, "
+                               f"{_percent(at_reference):.1f} % at {reference_rh_pct:g} % RH"
+                               "<br>RH %{x:.1f} %<br>Efficiency %{y:.1f} %"),
+            ))
+    shown_flagged = flagged & np.isfinite(rh_pct)
+    if show_flagged and shown_flagged.any():
+        figure.add_trace(_flagged_trace(
+            derived[shown_flagged], rh_pct[shown_flagged], efficiency_pct[shown_flagged],
+            machines, "RH %{x:.1f} %", "Efficiency %{y:.1f} %"))
+    if not figure.data:
+        return _nothing_drawn(title, 0 if show_flagged else int(flagged.sum()))
+    _style(figure, title, RH_AXIS, EFFICIENCY_AXIS)
+    if no_humidity:
+        _add_notes(figure, ["Not on this chart (no humidity recorded): " + ", ".join(no_humidity)])
+    return figure
+
+
+# --- one machine -----------------------------------------------------------------------------
+
+def _time_axis(frame: pd.DataFrame) -> tuple[pd.Series | np.ndarray, str, np.ndarray, bool]:
+    """x values for a timeline: clock time when every reading has one, else elapsed minutes.
+
+    Returns the values, the axis title, a mask of readings that have an x value and whether
+    the axis is clock time.
+    """
+    times = frame[col.TIME] if col.TIME in frame else pd.Series(pd.NaT, index=frame.index)
+    if not pd.api.types.is_datetime64_any_dtype(times):
+        times = pd.to_datetime(times, errors="coerce", utc=True)
+    has_time = times.notna().to_numpy(dtype=bool)
+    elapsed_min = to_display(_floats(frame, col.ELAPSED_S), "duration", "min")
+    has_elapsed = np.isfinite(elapsed_min)
+    if has_time.all() or has_time.sum() > has_elapsed.sum():
+        zone = getattr(times.dt, "tz", None)
+        if zone is not None:
+            # plotly draws wall-clock time; keep the readings' own clock and name its zone
+            return (times.dt.tz_localize(None), f"Time [clock time, {zone}]", has_time, True)
+        return times, "Time [clock time]", has_time, True
+    return elapsed_min, ELAPSED_AXIS, has_elapsed, False
+
+
+def session_timeline(derived: pd.DataFrame | None, machine_id: str,
+                     colours: Mapping[str, str] | None = None, show_flagged: bool = True,
+                     label: str | None = None, session: str | None = None) -> go.Figure:
+    """One machine's readings over time, on a shared time axis.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with derived columns (SI units).
+    machine_id : str
+        The machine to show.
+    colours : mapping of str to str, optional
+        Colour per machine id.
+    show_flagged : bool
+        Mark flagged readings with grey x symbols (default True: a timeline is where one
+        looks for them).
+    label : str, optional
+        Machine label for titles and hover; default the id.
+    session : str, optional
+        Show only this session.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Four rows: current and ceiling [uA]; speed [rpm]; relative humidity [%] with
+        temperature [degC] on a second axis; efficiency [%]. The x axis is clock time when
+        every reading has one, else the elapsed time [min].
+    """
+    label = _escape(label or machine_id)
+    title = f"Session timeline: {label}" + (f", {_escape(session)}" if session else "")
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    rows = (_machine_column(derived) == str(machine_id)) & _session_rows(derived, session or "")
+    frame = derived[rows]
+    if len(frame) == 0:
+        return _empty_figure(title)
+    x_values, x_title, has_x, is_time = _time_axis(frame)
+    order = np.argsort(np.asarray(x_values, dtype="datetime64[ns]" if is_time else float),
+                       kind="stable")
+    frame = frame.iloc[order]
+    x_values = (x_values.iloc[order] if isinstance(x_values, pd.Series)
+                else np.asarray(x_values)[order])
+    has_x = has_x[order]
+    flagged = _flagged(frame)
+    clean, marked = has_x & ~flagged, has_x & flagged
+    if not clean.any() and not (show_flagged and marked.any()):
+        return _nothing_drawn(title, 0 if show_flagged else int(marked.sum()))
+    colour = _colours_for(colours, [str(machine_id)])[str(machine_id)]
+    x_clean = x_values[clean]
+    x_marked = x_values[marked]
+    x_hover = "%{x}" if is_time else "%{x:.1f} min"
+    figure = make_subplots(rows=4, cols=1, shared_xaxes=True, vertical_spacing=0.04,
+                           specs=[[{}], [{}], [{"secondary_y": True}], [{}]])
+    current_ua = _micro_amp(_floats(frame, col.CURRENT_A))
+    ceiling_ua = _micro_amp(_floats(frame, col.CEILING_A))
+    speed_rpm = _rpm(_floats(frame, col.SPEED_REV_S))
+    rh_pct = _percent(_floats(frame, col.RH))
+    temperature_c = to_display(_floats(frame, col.TEMPERATURE_K), "temperature", "degC")
+    efficiency_pct = _percent(_floats(frame, col.EFFICIENCY))
+    points = int(clean.sum())
+    mode = "lines+markers" if points <= WEBGL_THRESHOLD else "markers"
+    panels = (
+        (1, False, current_ua, "measured current", colour, "solid", "Current %{y:.3g} µA"),
+        (1, False, ceiling_ua, "ceiling", colour, "dash", "Ceiling %{y:.3g} µA"),
+        (2, False, speed_rpm, "speed", colour, "solid", "Speed %{y:.0f} rpm"),
+        (3, False, rh_pct, "relative humidity", PALETTE[4], "solid", "RH %{y:.1f} %"),
+        (3, True, temperature_c, "temperature", PALETTE[5], "dot", "Temperature %{y:.1f} °C"),
+        (4, False, efficiency_pct, "efficiency", colour, "solid", "Efficiency %{y:.1f} %"),
+    )
+    for row, secondary, values, name, trace_colour, dash, y_hover in panels:
+        shown = values[clean]
+        if not np.isfinite(shown).any():
+            continue
+        trace_mode = "lines" if name == "ceiling" else mode
+        figure.add_trace(_scatter(
+            points, x=x_clean, y=shown, mode=trace_mode, name=name,
+            line={"color": trace_colour, "dash": dash, "width": 1.5},
+            marker={"color": trace_colour, "size": 4},
+            hovertemplate=f"{label}<br>{x_hover}<br>{y_hover}<extra>{name}</extra>",
+        ), row=row, col=1, secondary_y=secondary)
+    if show_flagged and marked.any():
+        first = True
+        for row, values, y_hover in ((1, current_ua, "Current %{y:.3g} µA"),
+                                     (2, speed_rpm, "Speed %{y:.0f} rpm"),
+                                     (4, efficiency_pct, "Efficiency %{y:.1f} %")):
+            if not np.isfinite(values[marked]).any():
+                continue
+            figure.add_trace(_flagged_trace(
+                frame[marked], x_marked, values[marked], {}, x_hover, y_hover,
+                showlegend=first, label=label), row=row, col=1)
+            first = False
+    figure.update_layout(title=title, template="plotly_white", height=820, hovermode="closest")
+    figure.update_yaxes(title_text=CURRENT_AXIS, row=1, col=1)
+    figure.update_yaxes(title_text=SPEED_AXIS, row=2, col=1)
+    figure.update_yaxes(title_text="RH [%]", row=3, col=1, secondary_y=False)
+    figure.update_yaxes(title_text=TEMPERATURE_AXIS, row=3, col=1, secondary_y=True)
+    figure.update_yaxes(title_text=EFFICIENCY_AXIS, row=4, col=1)
+    figure.update_xaxes(title_text=x_title, row=4, col=1)
+    missing = int((~has_x).sum())
+    if missing:
+        _add_notes(figure, [f"{missing} readings have no time and are not shown"])
+    return figure
+
+
+def _circle(radius: float, start: float = 0.0, stop: float = 2 * math.pi,
+            points: int = 121) -> tuple[np.ndarray, np.ndarray]:
+    angle = np.linspace(start, stop, points)
+    return radius * np.cos(angle), radius * np.sin(angle)
+
+
+def _rectangle(x0: float, x1: float, y0: float, y1: float) -> tuple[list[float], list[float]]:
+    return [x0, x1, x1, x0, x0], [y0, y0, y1, y1, y0]
+
+
+def _cm(length_m: float) -> float:
+    return float(to_display(length_m, "length", "cm"))
+
+
+def carrier_drawing(machine: Machine) -> go.Figure:
+    """A small to-scale drawing of one carrier with its charged zone shaded.
+
+    Parameters
+    ----------
+    machine : Machine
+        The machine whose carrier is drawn.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Axes in cm with equal aspect. Disc: the annulus between the inner and outer radius,
+        or sectors covering the sector fill of it (drawn as 12 equal sectors; the real number
+        and shape are not in the description). Belt: a front view of the belt over two
+        rollers, its width to scale. Cylinder: a side view with the active length shaded.
+        Custom: a square of the charged area per revolution.
+    """
+    carrier = machine.carrier
+    label = _escape(machine.label or machine.id)
+    colour, zone = "#333333", "rgba(0, 114, 178, 0.45)"
+    figure = go.Figure()
+    notes: list[str] = []
+    outline = {"color": colour, "width": 1.5}
+
+    def shade(x, y, name, hover):
+        figure.add_trace(go.Scatter(x=x, y=y, mode="lines", fill="toself", fillcolor=zone,
+                                    line={"width": 0.5, "color": zone}, name=name,
+                                    hoverinfo="text", text=hover, hoveron="fills"))
+
+    def draw(x, y, name, hover, dash="solid"):
+        figure.add_trace(go.Scatter(x=x, y=y, mode="lines", line={**outline, "dash": dash},
+                                    name=name, hoverinfo="text", text=hover))
+
+    if isinstance(carrier, Disc):
+        outer, inner = _cm(carrier.outer_radius_m), _cm(carrier.inner_radius_m)
+        fill = carrier.sector_fill
+        sizes = (f"{label}<br>charged zone: radius {inner:.3g} to {outer:.3g} cm, "
+                 f"sector fill {fill:.2g}")
+        if fill >= 1:
+            outer_x, outer_y = _circle(outer)
+            inner_x, inner_y = _circle(inner, 2 * math.pi, 0.0)  # opposite winding: a hole
+            shade(np.r_[outer_x, inner_x], np.r_[outer_y, inner_y], "charged zone", sizes)
+        else:
+            pitch = 2 * math.pi / _DISC_SECTORS_DRAWN
+            xs, ys = [], []
+            for number in range(_DISC_SECTORS_DRAWN):
+                start = number * pitch
+                arc_x, arc_y = _circle(outer, start, start + fill * pitch, 15)
+                back_x, back_y = _circle(inner, start + fill * pitch, start, 15)
+                xs += [*arc_x, *back_x, arc_x[0], None]
+                ys += [*arc_y, *back_y, arc_y[0], None]
+            shade(xs, ys, "charged sectors", sizes)
+            notes.append(f"Sectors drawn as {_DISC_SECTORS_DRAWN} equal pieces covering "
+                         f"{fill:.0%} of the annulus")
+        draw(*_circle(outer), "outer radius", f"outer radius {outer:.3g} cm")
+        if inner > 0:
+            draw(*_circle(inner), "inner radius", f"inner radius {inner:.3g} cm")
+        x_title, y_title = "Across the disc [cm]", "Across the disc [cm]"
+    elif isinstance(carrier, Belt):
+        width = _cm(carrier.width_m)
+        diameter = (_cm(carrier.roller_diameter_m) if carrier.roller_diameter_m is not None
+                    else None)
+        loop = _cm(carrier.loop_length_m) if carrier.loop_length_m is not None else None
+        if diameter is None:
+            diameter = loop / 8 if loop is not None else width
+            notes.append("Roller size not given: rollers drawn for illustration")
+        if loop is not None and loop > math.pi * diameter:
+            span = (loop - math.pi * diameter) / 2
+        else:
+            span = max(4 * diameter, 3 * width)
+            notes.append("Distance between the rollers not given: drawn for illustration")
+        shade(*_rectangle(-width / 2, width / 2, 0.0, span), "charged belt",
+              f"{label}<br>belt width {width:.3g} cm")
+        roller = 0.6 * width  # half the roller length: rollers a little longer than the belt
+        for centre, name in ((0.0, "lower roller"), (span, "upper roller")):
+            draw(*_rectangle(-roller, roller, centre - diameter / 2, centre + diameter / 2),
+                 name, f"{name}: diameter {diameter:.3g} cm")
+        notes.append("Front view: the belt between two rollers")
+        x_title, y_title = "Across the belt [cm]", "Along the belt [cm]"
+    elif isinstance(carrier, Cylinder):
+        radius, length = _cm(carrier.radius_m), _cm(carrier.active_length_m)
+        body = 0.6 * length
+        shade(*_rectangle(-length / 2, length / 2, -radius, radius), "active length",
+              f"{label}<br>active length {length:.3g} cm, radius {radius:.3g} cm")
+        draw(*_rectangle(-body, body, -radius, radius), "cylinder", f"radius {radius:.3g} cm")
+        draw([-body - 0.15 * length, body + 0.15 * length], [0.0, 0.0], "axis", "axis",
+             dash="dashdot")
+        notes.append("Side view; the cylinder's full length is not in the description")
+        x_title, y_title = "Along the axis [cm]", "Across the cylinder [cm]"
+    else:
+        side = math.sqrt(float(to_display(carrier.area_per_rev_m2, "area", "cm^2")))
+        shade(*_rectangle(-side / 2, side / 2, -side / 2, side / 2), "charged area",
+              f"{label}<br>square of side {side:.3g} cm")
+        notes.append("Shown as a square of the charged area per revolution")
+        x_title, y_title = "Size [cm]", "Size [cm]"
+    area = carrier.area_per_rev_m2
+    if area is not None:
+        notes.insert(0, f"Charged area per revolution of one carrier: "
+                        f"{float(to_display(area, 'area', 'cm^2')):.4g} cm²"
+                        + (f"; {machine.carriers} carriers" if machine.carriers > 1 else ""))
+    figure.update_layout(title=f"{label}: {machine.kind}, to scale", template="plotly_white",
+                         showlegend=False, hovermode="closest")
+    figure.update_xaxes(title_text=x_title, zeroline=False)
+    figure.update_yaxes(title_text=y_title, zeroline=False, scaleanchor="x", scaleratio=1)
+    _add_notes(figure, notes)
+    return figure
+
+
+def planner_curve(machine: Machine, speeds_rev_s,
+                  densities: Iterable[float] | float = (1.0,)) -> go.Figure:
+    """Ceiling current against speed for one machine at one or more relative air densities.
+
+    Parameters
+    ----------
+    machine : Machine
+        The machine.
+    speeds_rev_s : array_like
+        Speeds [rev/s].
+    densities : float or iterable of float
+        Relative air densities delta [-] (1 at 101.3 kPa and 20 degC); values that are not
+        positive numbers are left out.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Ceiling [uA] against speed [rpm], one line per density.
+    """
+    label = _escape(machine.label or machine.id)
+    title = f"Ceiling of {label} against speed"
+    speeds = np.asarray(speeds_rev_s, dtype=float).ravel()
+    speeds = np.sort(speeds[np.isfinite(speeds) & (speeds >= 0)])
+    values = densities if np.isscalar(densities) else list(densities)
+    chosen = [float(value) for value in np.atleast_1d(np.asarray(values, dtype=float))]
+    chosen = [value for value in chosen if math.isfinite(value) and value > 0]
+    if speeds.size == 0 or not chosen:
+        return _empty_figure(title)
+    figure = go.Figure()
+    for number, density in enumerate(chosen):
+        ceiling = _ceiling_at_density(machine, speeds, density)
+        if ceiling is None:
+            return _empty_figure(title, "This belt's speed is a linear speed (m/s): give "
+                                        "roller_diameter or loop_length for a curve in rpm")
+        figure.add_trace(_scatter(
+            speeds.size, x=_rpm(speeds), y=_micro_amp(ceiling), mode="lines",
+            name=f"relative air density {density:.3g}",
+            line={"color": PALETTE[number % len(PALETTE)]},
+            hovertemplate=(f"{label}<br>relative air density {density:.3g}"
+                           "<br>Speed %{x:.0f} rpm<br>Ceiling %{y:.3g} µA<extra></extra>"),
+        ))
+    _style(figure, title, SPEED_AXIS, "Ceiling current [µA]")
+    figure.update_layout(legend={"title": {"text": "Air"}})
+    return figure

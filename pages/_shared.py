@@ -1,0 +1,208 @@
+"""What the pages share: the store, cached loaders, the machine form, safety text, formatting.
+
+Pages call these and the engine; nothing here computes physics.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+import streamlit as st
+
+from engine import analysis
+from engine.carriers import CARRIER_KINDS, SPEC_KEYS
+from engine.errors import InputError
+from engine.figures import machine_colours
+from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
+from engine.store import Store, default_store_path, open_store
+
+SAFETY_SHORT = (
+    "**High voltage.** Electrostatic generators make tens to hundreds of kilovolts, and charged "
+    "capacitors can give a dangerous shock. Follow your institution's electrical safety rules "
+    "and local codes: this tool computes, it does not make a set-up safe."
+)
+
+SAFETY_MARKDOWN = """
+Electrostatic generators make tens to hundreds of kilovolts.
+
+- **Capacitors store a dangerous charge.** With jars or other capacitors connected the stored
+  energy can give a dangerous shock. Discharge every capacitor and terminal with an insulated
+  grounding rod before touching the machine, and again after any pause.
+- **Implanted medical devices.** Keep people with pacemakers or other implanted devices away from
+  running machines and sparks.
+- **Fire.** Sparks ignite flammable vapours and dust: no solvents, fuel or aerosols nearby.
+- **Ozone.** Sparks and corona make ozone: ventilate closed rooms and limit long runs.
+- **Instruments.** Protect meters, loggers and phones with a series resistor and a spark gap or
+  gas-discharge protector; a direct spark destroys them.
+- **X-rays.** Vacuum tubes driven at high voltage can emit X-rays: do not run them from these
+  machines without shielding and the institution's approval.
+
+Follow your institution's electrical safety rules, local codes and licensed practice. Ceiling Lab
+computes; it does not make a set-up safe.
+"""
+
+#: Example values that the machine form starts with, one per geometry key.
+FIELD_EXAMPLES = {
+    "outer_diameter": "46 cm", "outer_radius": "", "inner_diameter": "30 cm",
+    "inner_radius": "", "sector_fill": "1", "width": "5 cm", "roller_diameter": "5 cm",
+    "loop_length": "", "radius": "", "diameter": "20 cm", "active_length": "40 cm",
+    "area_per_rev": "0.12 m^2",
+}
+FIELD_HELP = {
+    "outer_diameter": "of the charged zone; any unit: '46 cm', '18 in'",
+    "inner_diameter": "of the charged zone; leave empty for a full disc",
+    "sector_fill": "fraction of the annulus covered by sectors, 1 for none (0.55 or '55 %')",
+    "width": "charged width of the belt",
+    "roller_diameter": "of the roller the speed is read on; leave empty for a belt speed in m/s",
+    "loop_length": "length of the belt loop, when the speed counts belt circulations",
+    "diameter": "of the cylinder",
+    "active_length": "charged length of the cylinder",
+    "area_per_rev": "charged area per revolution, e.g. '0.12 m^2'",
+}
+CARRIER_LABELS = {"disc": "disc (twin-disc, multi-disc stack, single disc)",
+                  "belt": "belt", "cylinder": "cylinder", "custom": "custom (area given)"}
+
+@st.cache_resource(show_spinner=False)
+def _open_store(path: str) -> Store:
+    return open_store(path)
+
+
+def store() -> Store:
+    """The lab's store (one shared, thread-safe connection per database file)."""
+    return _open_store(str(default_store_path()))
+
+
+def form_fields(kind: str) -> list[str]:
+    """Geometry keys the machine form shows for a carrier kind, diameters preferred."""
+    hidden = {"outer_radius", "inner_radius", "radius"}
+    return [key for key in SPEC_KEYS[kind] if key not in hidden]
+
+
+def machine_form_table(kind: str, prefix: str, values: dict | None = None) -> dict:
+    """Draw text inputs for a carrier kind's geometry; return the table they describe.
+
+    Radii stored in an existing machine are shown as diameters' alternatives: the form keeps
+    whatever key the machine used.
+    """
+    values = values or {}
+    table: dict[str, object] = {"carrier": kind}
+    keys = form_fields(kind)
+    for stored in values:
+        if stored in SPEC_KEYS[kind] and stored not in keys:
+            keys[keys.index(stored.replace("radius", "diameter"))] = stored
+    columns = st.columns(min(3, len(keys)))
+    for index, key in enumerate(keys):
+        default = str(values.get(key, FIELD_EXAMPLES.get(key, "") if not values else ""))
+        with columns[index % len(columns)]:
+            text = st.text_input(key.replace("_", " "), default, key=f"{prefix}-{kind}-{key}",
+                                 help=FIELD_HELP.get(key.replace("radius", "diameter")))
+        if text.strip():
+            table[key] = text.strip()
+    return table
+
+
+def sketch_machine(table: dict, machine_id: str = "sketch") -> Machine:
+    """A machine from form values; raises InputError with the field named."""
+    return machine_from_table({"id": machine_id, **table})
+
+
+def colours_for(machine_file: MachineFile) -> dict[str, str]:
+    """One colour per machine id, the same on every chart."""
+    return machine_colours(sorted(machine.id for machine in machine_file.machines))
+
+
+def store_signature() -> tuple:
+    """Changes whenever the store's content changes; keys the cached loaders."""
+    current = store()
+    imports = current.imports()
+    return (tuple(sorted(current.counts().items())), tuple(imports["id"].tolist()),
+            dump_machines(current.machines()))
+
+
+@st.cache_data(show_spinner="Computing ceilings and efficiencies...", max_entries=4)
+def derived_readings(path: str, signature: tuple) -> pd.DataFrame:  # noqa: ARG001 - cache key
+    """All stored readings with their derived columns (cached until the store changes)."""
+    current = store()
+    machine_file = current.machines()
+    return analysis.derive(current.readings(), machine_file.by_id(), machine_file.site)
+
+
+def load_derived() -> pd.DataFrame:
+    """Derived readings of the whole store, from the cache when nothing changed."""
+    return derived_readings(str(default_store_path()), store_signature())
+
+
+def show_error(error: Exception) -> None:
+    """Show an engine error as the message it carries."""
+    st.error(str(error) if isinstance(error, InputError) else f"Something went wrong: {error}")
+
+
+def carrier_choices() -> tuple[str, ...]:
+    """Carrier kinds in the order the forms offer them."""
+    return CARRIER_KINDS
+
+
+def flash(message: str) -> None:
+    """Keep a success message for the next run (a save is followed by st.rerun)."""
+    st.session_state["_flash"] = message
+
+
+def show_flash() -> None:
+    """Show and forget the message kept by :func:`flash`."""
+    message = st.session_state.pop("_flash", None)
+    if message:
+        st.success(message)
+
+
+@st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=16)
+def _findings(path: str, signature: tuple, by_session: bool,  # noqa: ARG001 - cache keys
+              reference_rh: float) -> pd.DataFrame:
+    machine_file = store().machines()
+    return analysis.findings(derived_readings(path, signature), machine_file.by_id(),
+                             by_session=by_session, reference_rh=reference_rh)
+
+
+def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.DataFrame:
+    """Findings of the whole store (cached until the store changes)."""
+    return _findings(str(default_store_path()), store_signature(), by_session, reference_rh)
+
+
+def _interval_text(interval, scale: float = 1.0, pattern: str = ".3g") -> str:
+    if interval is None or (isinstance(interval, float) and pd.isna(interval)):
+        return ""
+    low, high = interval
+    return f"{low * scale:{pattern}} to {high * scale:{pattern}}"
+
+
+def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
+                   reference_rh: float = 0.45) -> pd.DataFrame:
+    """Findings in display units with plain column names (formatting only)."""
+    labels = labels or {}
+    rh_text = f"{reference_rh * 100:g} % RH"
+    table = pd.DataFrame({
+        "machine": [labels.get(machine, machine) for machine in findings["machine"]],
+        "session": findings["session"].fillna("all"),
+        "carrier": findings["carrier"],
+        "used": findings["readings_used"],
+        "flagged": findings["readings_flagged"],
+        "efficiency median [%]": findings["efficiency_median"] * 100,
+        "charge per rev [nC]": findings["charge_per_rev_nC"],
+        "95 % CI [nC]": [_interval_text(value) for value in findings["charge_per_rev_ci_nC"]],
+        "observed k": findings["observed_collection_factor"],
+        "humidity slope [% points per +10 % RH]": findings["humidity_slope_per_10pct"] * 100,
+        f"efficiency at {rh_text} [%]": findings["efficiency_at_reference_rh"] * 100,
+        "notes": findings["notes"].fillna(""),
+    })
+    return table
+
+
+FINDINGS_FORMATS = {
+    "efficiency median [%]": st.column_config.NumberColumn(format="%.1f"),
+    "charge per rev [nC]": st.column_config.NumberColumn(format="%.4g"),
+    "observed k": st.column_config.NumberColumn(format="%.3f"),
+    "humidity slope [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
+}
+
+
+def machine_labels() -> dict[str, str]:
+    """Machine id -> label."""
+    return {machine.id: machine.label for machine in store().machines().machines}

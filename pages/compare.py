@@ -1,0 +1,85 @@
+"""Compare: every machine against its ceiling on one screen, with filters and the findings."""
+
+import streamlit as st
+
+from engine import analysis, figures, report
+from engine import columns as col
+from pages import _shared as shared
+
+st.title("Compare")
+derived = shared.load_derived()
+machine_file = shared.store().machines()
+machines = machine_file.by_id()
+labels = {machine_id: machine.label for machine_id, machine in machines.items()}
+
+if derived.empty:
+    st.info("No readings yet. Import readings on the Readings page, or keep the demonstration "
+            "lab, to compare machines here.")
+    st.page_link("pages/readings.py", label="Import readings", icon=":material/upload_file:")
+    st.stop()
+
+with st.container(border=True):
+    first, second, third = st.columns([2, 2, 1])
+    machine_ids = sorted(derived[col.MACHINE].unique())
+    chosen = first.multiselect("Machines", machine_ids, default=machine_ids,
+                               format_func=lambda key: labels.get(key, f"{key} (not described)"),
+                               key="compare-machines")
+    sessions = sorted(derived.loc[derived[col.MACHINE].isin(chosen), col.SESSION].unique())
+    chosen_sessions = second.multiselect("Sessions", sessions, default=sessions,
+                                         format_func=lambda name: name or "(no session)",
+                                         key="compare-sessions")
+    show_flagged = third.toggle("Show flagged readings", False, key="compare-flagged")
+    reference_rh = third.number_input("Reference RH [%]", 0, 100, 45, key="compare-ref-rh") / 100
+    rh_known = derived[col.RH].dropna()
+    rh_range = (0, 100)
+    if not rh_known.empty:
+        low = int(rh_known.min() * 100)
+        high = int(rh_known.max() * 100) + 1
+        rh_range = first.slider("Relative humidity [%]", 0, 100, (low, high),
+                                key="compare-rh")
+    times = derived[col.TIME].dropna()
+    date_range = None
+    if not times.empty:
+        first_day, last_day = times.min().date(), times.max().date()
+        if first_day < last_day:
+            date_range = second.slider("Dates", first_day, last_day, (first_day, last_day),
+                                       key="compare-dates")
+
+mask = derived[col.MACHINE].isin(chosen) & derived[col.SESSION].isin(chosen_sessions)
+rh_percent = derived[col.RH] * 100
+mask &= rh_percent.isna() | rh_percent.between(*rh_range)
+if date_range is not None:
+    days = derived[col.TIME].dt.date
+    mask &= days.isna() | ((days >= date_range[0]) & (days <= date_range[1]))
+shown = derived[mask]
+if shown.empty:
+    st.warning("No readings match these filters: widen the humidity range or pick more "
+               "machines or sessions.")
+    st.stop()
+
+findings = analysis.findings(shown, machines, reference_rh=reference_rh)
+colours = shared.colours_for(machine_file)
+arguments = {"findings": findings, "machines": machines, "colours": colours,
+             "show_flagged": show_flagged}
+top_left, top_right = st.columns(2)
+top_left.plotly_chart(figures.current_vs_speed(shown, **arguments), key="compare-current")
+top_right.plotly_chart(figures.efficiency_vs_speed(shown, **arguments), key="compare-efficiency")
+bottom_left, bottom_right = st.columns(2)
+bottom_left.plotly_chart(figures.charge_per_rev(shown, **arguments), key="compare-charge")
+bottom_right.plotly_chart(figures.efficiency_vs_humidity(shown, **arguments,
+                                                        reference_rh_pct=reference_rh * 100),
+                          key="compare-humidity")
+
+flagged = int((shown[col.FLAGS] != "").sum())
+st.subheader("Findings")
+st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "
+           "Intervals are 95 % confidence intervals.")
+st.dataframe(shared.findings_table(findings, labels, reference_rh), hide_index=True,
+             column_config=shared.FINDINGS_FORMATS, key="compare-findings")
+unknown = sorted(set(shown[col.MACHINE]) - set(machines))
+if unknown:
+    st.warning("Readings name machines that are not described: " + ", ".join(unknown)
+               + ". Add them on the Machines page to get their ceiling.")
+st.download_button("Download these findings (CSV)",
+                   report.to_csv_bytes(shared.findings_table(findings, labels, reference_rh)),
+                   file_name="findings.csv", mime="text/csv", key="compare-download")

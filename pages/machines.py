@@ -1,0 +1,155 @@
+"""Machines: the lab's machines with their ceilings, a form to add or edit one, the TOML file."""
+
+import pandas as pd
+import streamlit as st
+
+from engine.carriers import SPEC_KEYS
+from engine.ceiling import ceiling_figures
+from engine.errors import InputError
+from engine.figures import carrier_drawing
+from engine.machines import dump_machines, machine_from_table, parse_machines_text
+from engine.units import parse_speed
+from pages import _shared as shared
+
+st.title("Machines")
+shared.show_flash()
+store = shared.store()
+machine_file = store.machines()
+site = machine_file.site
+
+speed_text = st.text_input("Ceiling at the speed", "300 rpm", key="machines-speed",
+                           help="A rotation rate ('300 rpm', '5 rev/s') or a belt speed ('6 m/s')")
+try:
+    speed, speed_kind = parse_speed(speed_text, "ceiling speed")
+except InputError as error:
+    shared.show_error(error)
+    speed, speed_kind = None, None
+
+if machine_file.machines:
+    rows = []
+    for machine in machine_file.machines:
+        area = machine.carrier.area_per_rev_m2
+        row = {
+            "id": machine.id,
+            "label": machine.label,
+            "carrier": machine.kind,
+            "geometry": ", ".join(f"{key.replace('_', ' ')} {value}"
+                                  for key, value in machine.spec.items()),
+            "N": machine.carriers,
+            "k": machine.collection_factor,
+            "area per rev [cm²]": None if area is None else area * 1e4,
+            "ceiling [uA]": None,
+        }
+        if speed is not None and speed_kind in machine.carrier.speed_kinds:
+            row["ceiling [uA]"] = ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
+                                                  site.temperature_k)["ceiling_current_uA"]
+        rows.append(row)
+    st.dataframe(pd.DataFrame(rows), hide_index=True, key="machines-table",
+                 column_config={"area per rev [cm²]": st.column_config.NumberColumn(format="%.1f"),
+                                "ceiling [uA]": st.column_config.NumberColumn(format="%.3g")})
+    st.caption(f"Air for these ceilings: {site.pressure_pa / 1e3:.4g} kPa, "
+               f"{site.temperature_k - 273.15:.1f} °C (the lab's site). A blank ceiling means "
+               "the machine needs the other kind of speed (rpm or m/s).")
+else:
+    st.info("No machines yet. Add one below, or import a machines file (TOML).")
+
+edit_tab, file_tab = st.tabs(["Add or edit a machine", "Machines file (TOML)"])
+
+with edit_tab:
+    existing = {machine.id: machine for machine in machine_file.machines}
+    chosen = st.selectbox("Machine", ["(a new machine)"] + list(existing), key="machines-edit")
+    current = existing.get(chosen)
+    kinds = list(SPEC_KEYS)
+    kind = st.selectbox("Carrier", kinds, key=f"machines-kind-{chosen}",
+                        index=kinds.index(current.kind) if current else 0,
+                        format_func=shared.CARRIER_LABELS.get)
+    left, right = st.columns(2)
+    machine_id = left.text_input("Id (letters, digits, '-' and '_')",
+                                 current.id if current else "", key=f"machines-id-{chosen}",
+                                 disabled=current is not None)
+    label = right.text_input("Label", current.label if current else "",
+                             key=f"machines-label-{chosen}")
+    table = shared.machine_form_table(kind, f"machines-{chosen}",
+                                      dict(current.spec) if current and current.kind == kind
+                                      else None)
+    count_column, factor_column, material_column = st.columns(3)
+    table["carriers"] = int(count_column.number_input(
+        "Carriers N", 1, 1000, current.carriers if current else 1, key=f"machines-n-{chosen}",
+        help="discs in a stack, belts: carriers that deliver charge"))
+    table["collection_factor"] = float(factor_column.number_input(
+        "Collection factor k", 0.1, 10.0, current.collection_factor if current else 1.0,
+        step=0.1, key=f"machines-k-{chosen}",
+        help="charge loads per revolution per carrier; 1 unless you know better"))
+    material = material_column.text_input("Material", current.material if current else "",
+                                          key=f"machines-material-{chosen}",
+                                          placeholder="acrylic, glass, polyester film")
+    with st.expander("Tolerances (optional, one standard uncertainty)"):
+        tolerance = {}
+        tolerance_columns = st.columns(3)
+        tolerance_keys = [key for key in table if key in SPEC_KEYS[kind]] + ["speed", "current"]
+        for index, key in enumerate(tolerance_keys):
+            stored_text = (current.tolerance_spec.get(key, "") if current else "")
+            text = tolerance_columns[index % 3].text_input(
+                key.replace("_", " "), stored_text, key=f"machines-tol-{chosen}-{kind}-{key}",
+                placeholder="'1 mm' or '2 %'")
+            if text.strip():
+                tolerance[key] = text.strip()
+    if label.strip():
+        table["label"] = label.strip()
+    if material.strip():
+        table["material"] = material.strip()
+    if tolerance:
+        table["tolerance"] = tolerance
+    try:
+        machine = machine_from_table({"id": machine_id.strip() or "new-machine", **table})
+        drawing_column, figures_column = st.columns([3, 2])
+        drawing_column.plotly_chart(carrier_drawing(machine), key=f"machines-drawing-{chosen}")
+        area = machine.carrier.area_per_rev_m2
+        figures_column.metric("Charged area per revolution",
+                              "belt speed only" if area is None else f"{area * 1e4:.1f} cm²")
+        if speed is not None and speed_kind in machine.carrier.speed_kinds:
+            figures_column.metric(f"Ceiling at {speed_text}", "{:.3g} uA".format(
+                ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
+                                site.temperature_k)["ceiling_current_uA"]))
+        save_column, delete_column = st.columns(2)
+        if save_column.button("Save machine", type="primary", key=f"machines-save-{chosen}"):
+            if not machine_id.strip():
+                raise InputError("give the machine an id first, e.g. 'school-belt'")
+            store.save_machine(machine)
+            shared.flash(f"Saved machine '{machine.id}'.")
+            st.rerun()
+        if current and delete_column.button("Delete machine", key=f"machines-delete-{chosen}"):
+            store.delete_machine(current.id)
+            shared.flash(f"Deleted machine '{current.id}'.")
+            st.rerun()
+    except InputError as error:
+        shared.show_error(error)
+
+with file_tab:
+    st.download_button("Download the machines file", dump_machines(machine_file),
+                       file_name="machines.toml", mime="application/toml",
+                       key="machines-download", disabled=not machine_file.machines)
+    upload = st.file_uploader("Import a machines file", type=["toml"], key="machines-upload")
+    if upload is not None:
+        try:
+            raw = upload.getvalue()
+            try:
+                text = raw.decode("utf-8-sig")
+            except UnicodeDecodeError:
+                raise InputError(f"{upload.name}: a machines file must be UTF-8 text") from None
+            imported = parse_machines_text(text, upload.name)
+            st.write(f"{len(imported.machines)} machines in {upload.name}: "
+                     + ", ".join(machine.id for machine in imported.machines))
+            replaced = [machine.id for machine in imported.machines if machine.id in existing]
+            if replaced:
+                st.warning("These will replace the stored machines of the same id: "
+                           + ", ".join(replaced))
+            if st.button("Import these machines", key="machines-import"):
+                for machine in imported.machines:
+                    store.save_machine(machine)
+                if imported.site.spec:
+                    store.save_site(dict(imported.site.spec))
+                shared.flash(f"Imported {len(imported.machines)} machines.")
+                st.rerun()
+        except InputError as error:
+            shared.show_error(error)

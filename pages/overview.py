@@ -1,0 +1,49 @@
+"""Overview: what the lab holds, the latest findings, and the next step."""
+
+import streamlit as st
+
+from pages import _shared as shared
+
+st.title("Ceiling Lab")
+st.markdown(
+    "How close does each machine come to what its geometry and speed allow, and why does it "
+    "fall short? Ceiling Lab puts disc, belt and cylinder machines under one ceiling: the most "
+    "current the air lets an insulating carrier deliver, corrected for air density."
+)
+shared.show_flash()
+store = shared.store()
+counts = store.counts()
+columns = st.columns(4)
+columns[0].metric("Machines", counts["machines"])
+columns[1].metric("Imports", counts["imports"])
+columns[2].metric("Sessions", counts["sessions"])
+columns[3].metric("Readings", f"{counts['readings']:,}")
+
+if store.has_demo():
+    st.info("You are looking at the **demonstration lab**: an invented science centre, school, "
+            "workshop and open day. Explore it, then remove it to start your own.")
+    if st.button("Remove the demonstration data", key="overview-remove-demo"):
+        removed = store.remove_demo()
+        st.session_state["demo-declined"] = True
+        shared.flash(f"Removed the demonstration data ({removed.get('readings', 0):,} "
+                     "readings).")
+        st.rerun()
+
+st.subheader("Next steps")
+steps = st.columns(3)
+steps[0].page_link("pages/machines.py", label="Describe a machine", icon=":material/settings:")
+steps[0].caption("Its carrier kind and sizes, in any unit.")
+steps[1].page_link("pages/readings.py", label="Import readings", icon=":material/upload_file:")
+steps[1].caption("Meter and tachometer log, with a humidity log if you have one.")
+steps[2].page_link("pages/compare.py", label="Compare machines", icon=":material/monitoring:")
+steps[2].caption("Efficiency, charge per revolution and humidity on one screen.")
+
+st.subheader("Latest findings")
+if counts["readings"] == 0:
+    st.write("No readings yet. Import a readings file to see each machine against its ceiling.")
+else:
+    findings = shared.load_findings()
+    st.dataframe(shared.findings_table(findings, shared.machine_labels()), hide_index=True,
+                 column_config=shared.FINDINGS_FORMATS, key="overview-findings")
+    st.caption("Efficiency is the measured current over the ceiling. Flagged readings are kept "
+               "but left out of the fits; the Readings and Sessions pages show them.")

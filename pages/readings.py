@@ -1,0 +1,139 @@
+"""Readings: upload a meter/tachometer file and a humidity log, check them, save a session."""
+
+import pandas as pd
+import streamlit as st
+
+from engine import analysis, report
+from engine import columns as col
+from engine.errors import InputError
+from engine.readings import ALIASES, ReadOptions, merge_environment, read_environment, read_readings
+from engine.units import parse_quantity
+from pages import _shared as shared
+
+st.title("Readings")
+shared.show_flash()
+store = shared.store()
+machine_file = store.machines()
+machine_ids = [machine.id for machine in machine_file.machines]
+
+st.markdown("Upload the readings of one or more machines (CSV or XLSX). Columns: `machine`, "
+            "`time`, `speed`, `current`, and any of `rh`, `temperature`, `pressure`, `session`, "
+            "`voltage`, `note`. A unit in brackets in a header is used: `speed [rpm]`, "
+            "`current [uA]`.")
+upload = st.file_uploader("Readings file", type=["csv", "txt", "tsv", "xlsx"],
+                          key="readings-upload")
+log_upload = st.file_uploader("Humidity log (optional, its own clock)",
+                              type=["csv", "txt", "tsv", "xlsx"], key="readings-log")
+
+with st.expander("How the file is read", expanded=False):
+    first, second, third = st.columns(3)
+    separator = first.selectbox("Separator", ["detect", ",", ";", "tab"], key="readings-sep")
+    decimal = second.selectbox("Decimal mark", ["detect", ".", ","], key="readings-decimal")
+    encoding = third.selectbox("Encoding", ["detect", "utf-8", "latin-1"], key="readings-enc")
+    dates = first.selectbox("Dates such as 03/04/2026", ["detect", "day first", "month first"],
+                            key="readings-dates")
+    default_machine = second.selectbox("Machine, for a file without a machine column",
+                                       ["(none)"] + machine_ids, key="readings-machine")
+    tolerance_text = third.text_input("Log match within", "5 min", key="readings-tolerance")
+    st.caption("Columns of the file for each field (leave empty to detect); units for columns "
+               "whose header has none.")
+    mapping_columns = st.columns(4)
+    mapping, units = {}, {}
+    for index, field in enumerate(("machine", "time", "speed", "current", "rh", "temperature",
+                                   "pressure", "session")):
+        header = mapping_columns[index % 4].text_input(f"column for {field}", "",
+                                                       key=f"readings-map-{field}")
+        if header.strip():
+            mapping[header.strip()] = field
+    for index, field in enumerate(("speed", "current", "rh", "temperature")):
+        unit = mapping_columns[index].text_input(f"unit of {field}", "",
+                                                 key=f"readings-unit-{field}",
+                                                 placeholder="rpm, uA, %, degC"
+                                                 .split(", ")[index])
+        if unit.strip():
+            units[field] = unit.strip()
+
+if upload is None:
+    st.info("Choose a readings file to see how it is read. Accepted spellings of the columns: "
+            + "; ".join(f"{field}: {', '.join(names[:3])}" for field, names in ALIASES.items()
+                        if field in ("speed", "current", "rh", "temperature")))
+    st.stop()
+
+options = ReadOptions(
+    separator=None if separator == "detect" else ("\t" if separator == "tab" else separator),
+    decimal=None if decimal == "detect" else decimal,
+    encoding=None if encoding == "detect" else encoding,
+    day_first=None if dates == "detect" else dates == "day first",
+    machine=None if default_machine == "(none)" else default_machine,
+    mapping=mapping or None, units=units or None,
+)
+try:
+    with st.status("Reading the file...", expanded=False) as status:
+        result = read_readings(upload, options, name=upload.name)
+        frame = result.frame
+        environment = None
+        log_messages: list[str] = []
+        if log_upload is not None:
+            status.update(label="Matching the humidity log by time...")
+            log = read_environment(log_upload, ReadOptions(day_first=options.day_first),
+                                   name=log_upload.name)
+            environment = log.frame
+            log_messages = log.messages
+            tolerance_s = parse_quantity(tolerance_text, "duration", "log match within")
+            frame = merge_environment(frame, environment, tolerance_s)
+        status.update(label="Computing ceilings for the preview...")
+        derived = analysis.derive(frame, machine_file.by_id(), machine_file.site)
+        status.update(label=f"Read {len(frame):,} readings from {upload.name}", state="complete")
+except InputError as error:
+    shared.show_error(error)
+    st.stop()
+
+left, right = st.columns(2)
+with left:
+    st.subheader("Detected")
+    shown_format = {key: ("tab" if value == "\t" else value)
+                    for key, value in result.format.items() if value not in (None, "")}
+    st.dataframe(pd.DataFrame({"setting": list(shown_format),
+                               "value": [str(value) for value in shown_format.values()]}),
+                 hide_index=True, key="readings-format")
+with right:
+    st.subheader("Columns used")
+    st.dataframe(pd.DataFrame({"field": list(result.mapping),
+                               "column in the file": list(result.mapping.values()),
+                               "unit": [result.units.get(field, "") for field in result.mapping]}),
+                 hide_index=True, key="readings-mapping")
+for message in result.messages + log_messages:
+    st.caption(message)
+
+st.subheader("Check")
+flags = derived[col.FLAGS]
+counts = flags[flags != ""].str.split(";").explode().value_counts()
+clean = int((flags == "").sum())
+metrics = st.columns(3)
+metrics[0].metric("Readings", f"{len(derived):,}")
+metrics[1].metric("Clean", f"{clean:,}")
+metrics[2].metric("Flagged (kept, left out of fits)", f"{len(derived) - clean:,}")
+if not counts.empty:
+    st.dataframe(pd.DataFrame({"flag": counts.index, "readings": counts.to_numpy(),
+                               "meaning": [col.FLAG_CODES.get(code, "") for code in counts.index]}),
+                 hide_index=True, key="readings-flag-counts")
+    if "above_ceiling" in counts.index:
+        st.warning("Some readings are above 100 % of the ceiling: almost always a unit mistake "
+                   "(rev/s written as rpm, mA as uA) or a wrong size. Check those rows.")
+preview = report.output_frame(derived)
+show_only_flagged = st.toggle("Show only flagged readings", not counts.empty,
+                              key="readings-only-flagged")
+table = preview[preview["flags"] != ""] if show_only_flagged else preview
+st.dataframe(table.head(500), hide_index=True, key="readings-preview")
+st.caption(f"Showing {min(len(table), 500):,} of {len(table):,} rows.")
+
+st.subheader("Save")
+name = st.text_input("Name of this import", upload.name.rsplit(".", 1)[0],
+                     key="readings-name", max_chars=120)
+if st.button("Save the readings", type="primary", key="readings-save"):
+    with st.spinner(f"Saving {len(frame):,} readings..."):
+        import_id = store.import_readings(frame, name or upload.name, source=upload.name,
+                                          environment=environment)
+    shared.flash(f"Saved {len(frame):,} readings as '{name}' (import {import_id}). Open the "
+                 "Compare page to see them against their ceilings.")
+    st.rerun()

@@ -1,0 +1,88 @@
+"""Report: results to file (CSV, XLSX), a self-contained HTML report, and the lab bundle."""
+
+import streamlit as st
+
+from engine import analysis, report
+from engine import columns as col
+from engine.errors import InputError
+from pages import _shared as shared
+
+st.title("Report")
+shared.show_flash()
+store = shared.store()
+machine_file = store.machines()
+machines = machine_file.by_id()
+derived = shared.load_derived()
+imports = store.imports()
+
+if derived.empty:
+    st.info("No readings to report yet. Import readings first, or restore a lab bundle below.")
+else:
+    labels = {machine.id: machine.label for machine in machine_file.machines}
+    machine_ids = sorted(derived[col.MACHINE].unique())
+    chosen = st.multiselect("Machines", machine_ids, default=machine_ids, key="report-machines",
+                            format_func=lambda key: labels.get(key, key))
+    sessions = sorted(derived.loc[derived[col.MACHINE].isin(chosen), col.SESSION].unique())
+    chosen_sessions = st.multiselect("Sessions", sessions, default=sessions,
+                                     key="report-sessions",
+                                     format_func=lambda name: name or "(no session)")
+    title = st.text_input("Report title", "Ceiling Lab report", key="report-title",
+                          max_chars=120)
+    selected = derived[derived[col.MACHINE].isin(chosen)
+                       & derived[col.SESSION].isin(chosen_sessions)]
+    if selected.empty:
+        st.warning("Pick at least one machine and one session.")
+    else:
+        findings = analysis.findings(selected, machines, by_session=True)
+        table = report.output_frame(selected)
+        st.write(f"{len(selected):,} readings of {len(chosen)} machines in "
+                 f"{len(chosen_sessions)} sessions.")
+        columns = st.columns(3)
+        columns[0].download_button("Results (CSV)", report.to_csv_bytes(table),
+                                   file_name="ceiling-lab-results.csv", mime="text/csv",
+                                   key="report-csv")
+        columns[1].download_button(
+            "Results and findings (XLSX)", report.to_xlsx_bytes(table, findings=findings),
+            file_name="ceiling-lab-results.xlsx", key="report-xlsx",
+            mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet")
+        if columns[2].button("Prepare the HTML report", key="report-html-make"):
+            with st.spinner("Drawing the charts..."):
+                st.session_state["report-html-text"] = report.html_report(
+                    selected, findings, {key: machines[key] for key in chosen if key in machines},
+                    title)
+        if "report-html-text" in st.session_state:
+            columns[2].download_button("Download the HTML report",
+                                       st.session_state["report-html-text"].encode("utf-8"),
+                                       file_name="ceiling-lab-report.html", mime="text/html",
+                                       key="report-html")
+
+st.subheader("Lab bundle")
+st.caption("A zip of the machines file and every reading and humidity log, to move the lab to "
+           "another copy of Ceiling Lab without loss.")
+if not imports.empty:
+    st.download_button("Download the lab bundle", store.export_bundle(),
+                       file_name="ceiling-lab-bundle.zip", mime="application/zip",
+                       key="report-bundle")
+bundle = st.file_uploader("Restore a lab bundle", type=["zip"], key="report-bundle-upload")
+if bundle is not None and st.button("Import the bundle", key="report-bundle-import"):
+    try:
+        new_ids = store.import_bundle(bundle.getvalue())
+        shared.flash(f"Imported {len(new_ids)} imports from {bundle.name}.")
+        st.rerun()
+    except InputError as error:
+        shared.show_error(error)
+
+st.subheader("Stored imports")
+if imports.empty:
+    st.write("Nothing stored yet.")
+else:
+    st.dataframe(imports[["id", "name", "source", "created_at", "rows", "machines", "sessions",
+                          "is_demo"]], hide_index=True, key="report-imports")
+    remove = st.selectbox("Remove an import", [None] + imports["id"].tolist(),
+                          format_func=lambda key: "(none)" if key is None else
+                          f"{key}: {imports.set_index('id').loc[key, 'name']}",
+                          key="report-remove")
+    if remove is not None and st.button("Remove it with its readings", key="report-remove-do"):
+        store.delete_import(int(remove))
+        shared.flash(f"Removed import {remove}.")
+        st.rerun()

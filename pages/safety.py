@@ -1,0 +1,86 @@
+"""Safety and method: the cautions, how to measure, the model, its references and its limits."""
+
+import streamlit as st
+
+from pages import _shared as shared
+
+st.title("Safety and method")
+
+st.header("High voltage can hurt people")
+st.markdown(shared.SAFETY_MARKDOWN)
+
+st.header("Measuring safely and well")
+st.markdown(
+    """
+- **Current.** Put a microammeter in series with the discharge path (terminal to terminal, or
+  terminal to ground), protected by a series resistor and a spark gap or gas-discharge
+  protector across the meter. The short-circuit current comes closest to the ceiling; at high
+  terminal voltage, leakage and corona take their share.
+- **Speed.** Use an optical tachometer on a reflective mark on the carrier or its shaft; never
+  reach towards a running machine. For a belt, read the roller or the belt's surface speed and
+  say which in the unit (`rpm` on a roller, `m/s` for the belt).
+- **Humidity and temperature.** Place a logger next to the machine at carrier height, its clock
+  set to the same time as the meter's log, so the two can be matched by time.
+"""
+)
+
+st.header("The model")
+st.markdown(
+    r"""
+An insulating carrier can hold at most the surface charge density at which the field next to it
+reaches the breakdown field of air. With the field on one side of the surface (Gauss's law):
+
+$$\sigma_{limit} = \varepsilon_0 \, E_{breakdown}, \qquad
+E_{breakdown} = E_{ref}\,\delta, \qquad
+\delta = \frac{p}{101.3\ \mathrm{kPa}} \cdot \frac{293.15\ \mathrm{K}}{T}$$
+
+The ceiling current is that density times the charged area swept past the collectors per second:
+
+$$I_{ceiling} = \sigma_{limit} \cdot A_{rev} \cdot f \cdot N \cdot k$$
+
+| symbol | meaning |
+| --- | --- |
+| $A_{rev}$ | charged area per revolution of one carrier: disc annulus $\pi(r_o^2 - r_i^2)$ times the sector fill; belt width times $\pi d_{roller}$ or the loop length ($\sigma w v$ for a belt speed); cylinder $2\pi r L$; or given |
+| $f$ | revolutions per second (revolutions, never radians) |
+| $N$ | carriers that deliver charge (discs in a stack, belts) |
+| $k$ | charge loads delivered per revolution per carrier (default 1; observed from readings) |
+| $E_{ref}$ | breakdown field at the reference atmosphere, 3.0 MV/m by default |
+
+**Efficiency** is the measured current over the ceiling. **Charge per revolution** is the
+current over the speed; the **observed collection factor** is the fitted charge per revolution
+over $\sigma_{limit} A_{rev} N$. Humidity does not enter the ceiling; its effect on output is
+measured from the readings (efficiency against relative humidity). Vapour pressure, dew point and
+absolute humidity use the Magnus form $e_s = 6.1094\ \mathrm{hPa}\,
+\exp\!\left(\frac{17.625\,t}{t + 243.04}\right)$.
+"""
+)
+
+st.header("References")
+st.markdown(
+    """
+- CODATA 2018 recommended values: vacuum permittivity 8.8541878128e-12 F/m.
+- IEC 60060-1:2010, High-voltage test techniques, Part 1: standard reference atmosphere
+  (20 degC, 101.3 kPa) and the air density correction.
+- ICAO Doc 7488/3, Manual of the ICAO Standard Atmosphere (pressure from altitude).
+- O. A. Alduchov and R. E. Eskridge, Improved Magnus form approximation of saturation vapor
+  pressure, J. Appl. Meteor. 35 (1996) 601-609.
+- Breakdown field of air, about 3 MV/m in uniform fields over centimetre gaps: handbook value.
+"""
+)
+
+st.header("Limits of the model")
+st.markdown(
+    """
+- The limit density assumes the field on one side of a charged sheet facing a conductor; a
+  carrier with charge on both faces or collected twice per turn shows up as a collection factor
+  above 1.
+- The breakdown field depends on the gap and the electrode shape; 3 MV/m holds for uniform fields
+  over centimetre gaps. Sharp edges break down earlier, so real carriers stay below the ceiling.
+- Scaling with air density is linear (Paschen similarity at fixed gap), good at ground-level
+  pressures; it is not meant for vacuum or pressurised machines.
+- Humidity's effect is measured, not modelled: a steep drop above roughly 60-70 % RH is common
+  practice, with no published source.
+- Tolerances in the machines file are taken as one standard uncertainty; efficiency uncertainty
+  is first-order propagation of geometry, speed, meter and breakdown-field uncertainty.
+"""
+)

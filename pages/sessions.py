@@ -1,0 +1,62 @@
+"""Sessions: one humidity-logged session over time, and two sessions of a machine compared."""
+
+import streamlit as st
+
+from engine import analysis, figures
+from engine import columns as col
+from engine.errors import InputError
+from pages import _shared as shared
+
+st.title("Sessions")
+derived = shared.load_derived()
+machine_file = shared.store().machines()
+labels = {machine.id: machine.label for machine in machine_file.machines}
+if derived.empty:
+    st.info("No readings yet: import a session on the Readings page.")
+    st.stop()
+
+machine_ids = sorted(derived[col.MACHINE].unique())
+machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
+                          format_func=lambda key: labels.get(key, key))
+of_machine = derived[derived[col.MACHINE] == machine_id]
+sessions = sorted(of_machine[col.SESSION].unique())
+session = st.selectbox("Session", sessions, key="sessions-session",
+                       format_func=lambda name: name or "(no session)")
+one_session = of_machine[of_machine[col.SESSION] == session]
+flagged = one_session[one_session[col.FLAGS] != ""]
+st.plotly_chart(figures.session_timeline(one_session, machine_id, shared.colours_for(machine_file),
+                                         label=labels.get(machine_id), session=session),
+                key="sessions-timeline")
+st.caption(f"{len(one_session):,} readings, {len(flagged):,} flagged (marked with x).")
+if not flagged.empty:
+    with st.expander(f"The {len(flagged)} flagged readings"):
+        st.dataframe(flagged[[col.ROW, col.TIME, col.FLAGS, col.NOTE]], hide_index=True,
+                     key="sessions-flagged")
+
+st.subheader("Two sessions compared")
+if len(sessions) < 2:
+    st.write("This machine has one session. Import another (for example after restoration) to "
+             "compare them at the same speed and humidity.")
+else:
+    left, right = st.columns(2)
+    first = left.selectbox("Before", sessions, index=0, key="sessions-a",
+                           format_func=lambda name: name or "(no session)")
+    second = right.selectbox("After", sessions, index=len(sessions) - 1, key="sessions-b",
+                             format_func=lambda name: name or "(no session)")
+    try:
+        comparison = analysis.compare_sessions(derived, machine_id, first, second)
+        st.success(comparison["verdict"])
+        metrics = st.columns(3)
+        metrics[0].metric(f"Mean efficiency, {first}", f"{comparison['mean_a'] * 100:.1f} %")
+        metrics[1].metric(f"Mean efficiency, {second}", f"{comparison['mean_b'] * 100:.1f} %",
+                          delta=f"{comparison['raw_difference'] * 100:+.1f} % points")
+        adjusted = comparison.get("adjusted_difference")
+        if adjusted is not None and adjusted == adjusted:
+            low, high = comparison["adjusted_difference_ci"]
+            metrics[2].metric("At the same speed and humidity", f"{adjusted * 100:+.1f} % points",
+                              help=f"95 % CI {low * 100:+.1f} to {high * 100:+.1f} % points; "
+                              f"adjusted for {', '.join(comparison['adjusted_for']) or 'nothing'}")
+        for note in comparison.get("notes", []):
+            st.caption(note)
+    except InputError as error:
+        shared.show_error(error)

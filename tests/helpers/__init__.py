@@ -1,0 +1,1 @@
+"""Scripts that tests run in their own processes."""

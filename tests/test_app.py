@@ -1,0 +1,240 @@
+"""Every page, driven as a user would through Streamlit's AppTest, on the demo and on nothing."""
+
+import re
+import shutil
+from pathlib import Path
+
+import pytest
+import streamlit as st
+from streamlit.testing.v1 import AppTest
+
+from engine.demo import load_demo
+from engine.store import open_store
+
+ROOT = Path(__file__).resolve().parents[1]
+SAMPLE = ROOT / "sample_data"
+PAGES = ["pages/overview.py", "pages/machines.py", "pages/readings.py", "pages/compare.py",
+         "pages/sessions.py", "pages/planner.py", "pages/report.py", "pages/safety.py"]
+
+
+@pytest.fixture(scope="session")
+def demo_store_file(tmp_path_factory):
+    path = tmp_path_factory.mktemp("demo") / "demo.sqlite3"
+    with open_store(path) as store:
+        load_demo(store)
+    return path
+
+
+def _fresh_caches():
+    st.cache_data.clear()
+    st.cache_resource.clear()
+
+
+@pytest.fixture
+def demo_lab(tmp_path, monkeypatch, demo_store_file):
+    path = tmp_path / "lab.sqlite3"
+    shutil.copy(demo_store_file, path)
+    monkeypatch.setenv("CEILING_LAB_DB", str(path))
+    _fresh_caches()
+    yield path
+    _fresh_caches()
+
+
+@pytest.fixture
+def empty_lab(tmp_path, monkeypatch):
+    path = tmp_path / "empty.sqlite3"
+    monkeypatch.setenv("CEILING_LAB_DB", str(path))
+    _fresh_caches()
+    yield path
+    _fresh_caches()
+
+
+def open_page(page=None, empty=False):
+    app = AppTest.from_file(str(ROOT / "app.py"), default_timeout=120)
+    if empty:
+        app.session_state["demo-declined"] = True
+    app.run()
+    if page and page != PAGES[0]:
+        app.switch_page(page)
+        app.run()
+    assert not app.exception, [item.value for item in app.exception]
+    return app
+
+
+def texts(app):
+    """Everything the page writes as text, one string."""
+    parts = []
+    for kind in ("title", "header", "subheader", "markdown", "caption", "info", "warning",
+                 "success", "error"):
+        parts += [str(element.value) for element in getattr(app, kind)]
+    return "\n".join(parts)
+
+
+def charts(app):
+    return app.get("plotly_chart")
+
+
+def table_with(app, column):
+    """The first table on the page that has ``column`` (what the user reads under a heading)."""
+    for element in app.dataframe:
+        if column in element.value.columns:
+            return element.value
+    raise AssertionError(f"no table with a column {column!r}")
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_every_page_renders_on_the_demo(demo_lab, page):
+    app = open_page(page)
+    assert not app.error, [item.value for item in app.error]
+    assert app.title, "every page has a title"
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_every_page_renders_on_an_empty_store(empty_lab, page):
+    app = open_page(page, empty=True)
+    assert not app.error, [item.value for item in app.error]
+    with open_store(empty_lab) as store:
+        assert store.is_empty()
+
+
+def test_first_start_loads_the_demo_and_it_can_be_removed(empty_lab):
+    app = open_page()
+    assert "demonstration lab" in texts(app)
+    with open_store(empty_lab) as store:
+        assert store.has_demo() and store.counts()["machines"] == 4
+    app.button(key="overview-remove-demo").click().run()
+    assert not app.exception
+    assert "Removed the demonstration data" in texts(app)
+    with open_store(empty_lab) as store:
+        assert store.is_empty()
+
+
+def test_overview_shows_the_findings_of_every_machine(demo_lab):
+    app = open_page()
+    table = table_with(app, "efficiency median [%]")
+    assert len(table) == 5  # four machines and the stack's mistyped id
+    assert table["efficiency median [%]"].between(1, 60).sum() == 4
+
+
+def test_compare_draws_four_charts_and_filters(demo_lab):
+    app = open_page("pages/compare.py")
+    assert len(charts(app)) == 4
+    findings = table_with(app, "efficiency median [%]")
+    assert len(findings) >= 4
+    app.multiselect(key="compare-machines").set_value(["school-belt"]).run()
+    assert not app.exception
+    findings = table_with(app, "efficiency median [%]")
+    assert list(findings["carrier"]) == ["belt"]
+    assert len(charts(app)) == 4
+
+
+def test_compare_says_what_to_do_when_nothing_matches(demo_lab):
+    app = open_page("pages/compare.py")
+    app.multiselect(key="compare-machines").set_value([]).run()
+    assert "No readings match these filters" in texts(app)
+
+
+def test_add_a_machine_of_each_kind(demo_lab):
+    app = open_page("pages/machines.py")
+    entries = {
+        "disc": {"outer_diameter": "18 in", "inner_diameter": "10 in", "sector_fill": "0.5"},
+        "belt": {"width": "4 cm", "roller_diameter": "6 cm"},
+        "cylinder": {"diameter": "15 cm", "active_length": "25 cm"},
+        "custom": {"area_per_rev": "0.05 m^2"},
+    }
+    for kind, fields in entries.items():
+        app.selectbox(key="machines-kind-(a new machine)").set_value(kind).run()
+        app.text_input(key="machines-id-(a new machine)").input(f"new-{kind}").run()
+        for field, value in fields.items():
+            app.text_input(key=f"machines-(a new machine)-{kind}-{field}").input(value).run()
+        app.button(key="machines-save-(a new machine)").click().run()
+        assert not app.exception
+        assert f"Saved machine 'new-{kind}'" in texts(app)
+    table = table_with(app, "area per rev [cm²]")
+    assert {f"new-{kind}" for kind in entries} <= set(table["id"])
+    with open_store(demo_lab) as store:
+        disc = store.machines().by_id()["new-disc"]
+    assert disc.spec["outer_diameter"] == "18 in"  # the user's unit is kept
+    assert disc.carrier.outer_radius_m == pytest.approx(9 * 0.0254)  # exact inch (1959)
+
+
+def test_machine_form_names_the_bad_field(demo_lab):
+    app = open_page("pages/machines.py")
+    app.selectbox(key="machines-kind-(a new machine)").set_value("disc").run()
+    app.text_input(key="machines-(a new machine)-disc-outer_diameter").input("20 kg").run()
+    errors = [item.value for item in app.error]
+    assert any("outer_diameter needs a length" in text and "20 kg" in text for text in errors)
+
+
+def test_import_readings_with_a_humidity_log(empty_lab):
+    app = open_page("pages/readings.py", empty=True)
+    with open_store(empty_lab) as store:
+        for machine in open_store_demo_machines():
+            store.save_machine(machine)
+    app.run()
+    readings = (SAMPLE / "readings_cylinder.csv").read_bytes()
+    log = (SAMPLE / "environment_cylinder.csv").read_bytes()
+    app.file_uploader(key="readings-upload").set_value(("day.csv", readings, "text/csv"))
+    app.file_uploader(key="readings-log").set_value(("log.csv", log, "text/csv"))
+    app.run()
+    assert not app.exception and not app.error, [item.value for item in app.error]
+    mapping = table_with(app, "column in the file")
+    assert {"machine", "time", "speed", "current"} <= set(mapping["field"])
+    flag_counts = table_with(app, "meaning")
+    assert set(flag_counts["flag"]) >= {"missing_value", "negative", "duplicate_time"}
+    app.text_input(key="readings-name").input("damp day").run()
+    app.button(key="readings-save").click().run()
+    assert "Saved 1,152 readings as 'damp day'" in texts(app)
+    with open_store(empty_lab) as store:
+        stored = store.readings()
+    assert len(stored) == 1152
+    # The log was merged: the readings file has no humidity of its own.
+    assert stored["rh"].notna().mean() > 0.95
+
+
+def open_store_demo_machines():
+    from engine.machines import load_machines
+
+    return load_machines(SAMPLE / "machines.toml").machines
+
+
+def test_unreadable_upload_is_a_message_not_a_traceback(empty_lab):
+    app = open_page("pages/readings.py", empty=True)
+    app.file_uploader(key="readings-upload").set_value(("junk.csv", b"\x00\x01\x02garbage",
+                                                        "text/csv"))
+    app.run()
+    assert not app.exception
+    assert any("junk.csv" in item.value for item in app.error)
+
+
+def test_sessions_compares_before_and_after_restoration(demo_lab):
+    app = open_page("pages/sessions.py")
+    app.selectbox(key="sessions-machine").set_value("centre-twin-disc").run()
+    app.selectbox(key="sessions-a").set_value("before restoration").run()
+    app.selectbox(key="sessions-b").set_value("after restoration").run()
+    verdicts = [item.value for item in app.success]
+    assert any("after restoration" in text and "more" in text for text in verdicts)
+    assert len(charts(app)) == 1
+
+
+def test_planner_answers_the_inverse_questions(demo_lab):
+    app = open_page("pages/planner.py")
+    app.radio(key="planner-source").set_value("a sketch").run()
+    app.selectbox(key="planner-kind").set_value("disc").run()
+    app.text_input(key="planner-target").input("5 uA").run()
+    answers = " ".join(item.value for item in app.success)
+    assert "rpm" in answers and "Outer radius needed" in answers
+    assert len(charts(app)) == 1
+
+
+def test_report_offers_every_download(demo_lab):
+    app = open_page("pages/report.py")
+    keys = {button.key for button in app.get("download_button")}
+    assert {"report-csv", "report-xlsx", "report-bundle"} <= keys
+    app.button(key="report-html-make").click().run()
+    assert not app.exception
+    assert "report-html" in {button.key for button in app.get("download_button")}
+    html = app.session_state["report-html-text"]
+    assert "<html" in html.lower() and "Plotly.newPlot" in html
+    # plotly's JavaScript is embedded: no script is loaded from the network.
+    assert re.search(r"<script[^>]*\bsrc=", html) is None
