@@ -38,7 +38,7 @@ def load_demo(store: Store, folder: Path = DEMO_FOLDER) -> list[int]:
     for machine in machine_file.machines:
         store.save_machine(machine, demo=True)
     if machine_file.site.spec:
-        store.save_site(dict(machine_file.site.spec))
+        store.save_site(dict(machine_file.site.spec), demo=True)
     import_ids = []
     for readings_name, title, log_name in DEMO_IMPORTS:
         frame = read_readings(folder / readings_name).frame

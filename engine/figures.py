@@ -38,7 +38,8 @@ from engine.units import to_display
 
 # colour-blind-safe qualitative palette
 PALETTE: tuple[str, ...] = (
-    "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7", "#000000",
+    # Yellow last: it is hard to see on a light background.
+    "#0072B2", "#E69F00", "#009E73", "#D55E00", "#CC79A7", "#56B4E9", "#000000", "#F0E442",
 )
 #: Colour of flagged readings.
 FLAGGED_COLOUR = "#8C8C8C"
@@ -192,10 +193,41 @@ def _add_notes(figure: go.Figure, notes: Sequence[str]) -> None:
 
 
 def _style(figure: go.Figure, title: str, x_title: str, y_title: str) -> None:
+    # The legend goes under the plot so that the plot keeps the width of its column, and
+    # it names machines only: line styles are explained once, by two grey key entries.
+    line_kinds: dict[str, tuple[str, str]] = {}
+    for trace in figure.data:
+        name = str(trace.name or "")
+        for suffix, kind in ((": ceiling", "ceiling"), (": fit", "fitted line")):
+            if name.endswith(suffix):
+                trace.showlegend = False
+                line = getattr(trace, "line", None)
+                marker = getattr(trace, "mode", "") or ""
+                line_kinds.setdefault(kind, ((line.dash if line else None) or "solid", marker))
+    for kind, (dash, mode) in line_kinds.items():
+        figure.add_trace(go.Scatter(x=[None], y=[None], name=kind, hoverinfo="skip",
+                                    mode="markers" if mode == "markers" else "lines",
+                                    line={"color": "#555555", "dash": dash},
+                                    marker={"color": "#555555", "symbol": "diamond"},
+                                    legendgroup=f"key-{kind}"))
     figure.update_layout(title=title, template="plotly_white", hovermode="closest",
-                         legend={"title": {"text": "Machine"}})
+                         height=500, margin={"l": 60, "r": 20, "t": 60, "b": 40},
+                         legend={"title": {"text": ""}, "orientation": "h", "x": 0,
+                                 "xanchor": "left", "y": -0.22, "yanchor": "top"})
     figure.update_xaxes(title_text=x_title)
     figure.update_yaxes(title_text=y_title)
+
+
+def _wrap(text: str, width: int = 14) -> str:
+    """Break a tick label into lines of about ``width`` characters (plotly's <br>)."""
+    lines, current = [], ""
+    for word in text.split(" "):
+        if current and len(current) + 1 + len(word) > width:
+            lines.append(current)
+            current = word
+        else:
+            current = f"{current} {word}".strip()
+    return "<br>".join(lines + [current])
 
 
 def _finite_range(values: np.ndarray) -> tuple[float, float] | None:
@@ -609,8 +641,8 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     if not figure.data:
         return _nothing_drawn(title, 0 if show_flagged else int(flagged.sum()))
     _style(figure, title, "Machine", CHARGE_AXIS)
-    figure.update_xaxes(tickmode="array", tickvals=list(range(len(tick_text))), ticktext=tick_text,
-                        title_text="Machine [-]")
+    figure.update_xaxes(tickmode="array", tickvals=list(range(len(tick_text))),
+                        ticktext=[_wrap(text) for text in tick_text], title_text="", tickangle=0)
     _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
     return figure
 

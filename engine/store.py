@@ -130,6 +130,7 @@ _ENVIRONMENT_FLOATS = (ELAPSED_S, RH, TEMPERATURE_K, PRESSURE_PA)
 _TEXTS = (MACHINE, SESSION, NOTE, FLAGS)
 _NAT_NS = np.iinfo(np.int64).min  # pandas' NaT as int64
 _MAX_LISTED_VALUES = 500  # longer filter lists go to SQLite as one JSON array
+_FETCH_ROWS = 10_000  # rows converted at a time when reading
 
 #: Version 1: machines, site, imports, readings and environment logs.
 SCHEMA_V1: tuple[str, ...] = (
@@ -556,24 +557,32 @@ class Store:
         if conditions:
             statement += " WHERE " + " AND ".join(conditions)
         statement += " ORDER BY rowid"
+        kinds = ["id"] + ["int" if column in (ROW, TIME) else "float" if column in floats
+                          else "text" for column in columns]
+        pieces: list[list[np.ndarray]] = []
         with self._snapshot():
-            rows = self._query(statement, parameters)
+            cursor = _retry(lambda: self._connection.execute(statement, parameters), self._path)
+            # Block by block: a 2-D object array (built in C), then one conversion per column,
+            # so that only one block of Python objects is alive at a time.
+            while batch := cursor.fetchmany(_FETCH_ROWS):
+                block = np.array(batch, dtype=object)
+                pieces.append([block[:, number].copy() if kind == "text" else
+                               block[:, number].astype(np.float64 if kind == "float"
+                                                       else np.int64)
+                               for number, kind in enumerate(kinds)])
             dtypes = dict(self._query(f"SELECT id, {dtype_column} FROM imports"))
-        # One 2-D object array (built in C), then one conversion per column.
-        table_values = (np.array(rows, dtype=object) if rows
-                        else np.empty((0, len(columns) + 1), dtype=object))
-        import_ids = table_values[:, 0].astype(np.int64)
+        empty = {"id": np.int64, "int": np.int64, "float": np.float64, "text": object}
+        gathered = [np.concatenate([piece[number] for piece in pieces]) if pieces
+                    else np.empty(0, dtype=empty[kind]) for number, kind in enumerate(kinds)]
+        import_ids = gathered[0]
         data: dict[str, object] = {}
-        for number, column in enumerate(columns, 1):
-            values = table_values[:, number]
-            if column == ROW:
-                data[column] = values.astype(np.int64)
-            elif column in floats:
-                data[column] = values.astype(np.float64)  # None (NULL) becomes NaN
-            elif column == TIME:
+        for column, values in zip(columns, gathered[1:], strict=True):
+            if column == TIME:
                 present = {dtypes.get(import_id, "datetime64[ns]")
                            for import_id in np.unique(import_ids).tolist()}
-                data[column] = _restore_time(values.astype(np.int64), present)
+                data[column] = _restore_time(values, present)
+            elif column in floats or column == ROW:
+                data[column] = values  # NULL (None) became NaN in the float conversion
             else:
                 data[column] = pd.Series(values, dtype=object).astype(_TEXT_DTYPE)
         data[IMPORT_ID] = import_ids

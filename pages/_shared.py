@@ -15,6 +15,18 @@ from engine.figures import machine_colours
 from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
 from engine.store import Store, default_store_path, open_store
 
+# A page opened by a direct link as the first request after the server starts is run by
+# Streamlit's older folder-based navigation (it sees the pages/ folder before app.py has called
+# st.navigation), without the frame. Switch that off and run again through app.py.
+try:
+    from streamlit.runtime.pages_manager import PagesManager
+
+    if PagesManager.uses_pages_directory:
+        PagesManager.uses_pages_directory = False
+        st.rerun()
+except ImportError:  # a Streamlit without this internal: nothing to correct
+    pass
+
 SAFETY_SHORT = (
     "**High voltage.** Electrostatic generators make tens to hundreds of kilovolts, and charged "
     "capacitors can give a dangerous shock. Follow your institution's electrical safety rules "

@@ -33,12 +33,12 @@ if machine_file.machines:
             "id": machine.id,
             "label": machine.label,
             "carrier": machine.kind,
-            "geometry": ", ".join(f"{key.replace('_', ' ')} {value}"
-                                  for key, value in machine.spec.items()),
+            "ceiling [uA]": None,
+            "area per rev [cm²]": None if area is None else area * 1e4,
             "N": machine.carriers,
             "k": machine.collection_factor,
-            "area per rev [cm²]": None if area is None else area * 1e4,
-            "ceiling [uA]": None,
+            "geometry": ", ".join(f"{key.replace('_', ' ')} {value}"
+                                  for key, value in machine.spec.items()),
         }
         if speed is not None and speed_kind in machine.carrier.speed_kinds:
             row["ceiling [uA]"] = ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
