@@ -193,7 +193,7 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
     table = pd.DataFrame({
         "machine": [labels.get(machine, machine) for machine in findings["machine"]],
         "session": findings["session"].fillna("all"),
-        "carrier": findings["carrier"],
+        "carrier": findings["carrier"].fillna("(not described)"),
         "used": findings["readings_used"],
         "flagged": findings["readings_flagged"],
         "efficiency median [%]": findings["efficiency_median"] * 100,

@@ -5,10 +5,13 @@ import streamlit as st
 
 from engine import analysis, report
 from engine import columns as col
+from engine.demo import DEMO_FOLDER
 from engine.errors import InputError
 from engine.readings import ALIASES, ReadOptions, merge_environment, read_environment, read_readings
 from engine.units import parse_quantity
 from pages import _shared as shared
+
+EXAMPLE = DEMO_FOLDER / "readings_belt.csv"
 
 st.title("Readings")
 shared.show_flash()
@@ -54,6 +57,9 @@ with st.expander("How the file is read", expanded=False):
             units[field] = unit.strip()
 
 if upload is None:
+    st.download_button("Download an example readings file", EXAMPLE.read_bytes(),
+                       file_name="example-readings.csv", mime="text/csv",
+                       key="readings-example")
     st.info("Choose a readings file to see how it is read. Accepted spellings of the columns: "
             + "; ".join(f"{field}: {', '.join(names[:3])}" for field, names in ALIASES.items()
                         if field in ("speed", "current", "rh", "temperature")))

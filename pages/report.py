@@ -37,30 +37,28 @@ else:
         table = report.output_frame(selected)
         st.write(f"{len(selected):,} readings of {len(chosen)} machines in "
                  f"{len(chosen_sessions)} sessions.")
+        chosen_machines = {key: machines[key] for key in chosen if key in machines}
+        st.caption("Each file is made when you click its button.")
         columns = st.columns(3)
-        columns[0].download_button("Results (CSV)", report.to_csv_bytes(table),
+        # Callables: each file is built on the click, not on every run of the page.
+        columns[0].download_button("Results (CSV)", lambda: report.to_csv_bytes(table),
                                    file_name="ceiling-lab-results.csv", mime="text/csv",
                                    key="report-csv")
         columns[1].download_button(
-            "Results and findings (XLSX)", report.to_xlsx_bytes(table, findings=findings),
+            "Results and findings (XLSX)",
+            lambda: report.to_xlsx_bytes(table, findings=findings),
             file_name="ceiling-lab-results.xlsx", key="report-xlsx",
             mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet")
-        if columns[2].button("Prepare the HTML report", key="report-html-make"):
-            with st.spinner("Drawing the charts..."):
-                st.session_state["report-html-text"] = report.html_report(
-                    selected, findings, {key: machines[key] for key in chosen if key in machines},
-                    title)
-        if "report-html-text" in st.session_state:
-            columns[2].download_button("Download the HTML report",
-                                       st.session_state["report-html-text"].encode("utf-8"),
-                                       file_name="ceiling-lab-report.html", mime="text/html",
-                                       key="report-html")
+        columns[2].download_button(
+            "HTML report", lambda: report.html_report(selected, findings, chosen_machines,
+                                                      title).encode("utf-8"),
+            file_name="ceiling-lab-report.html", mime="text/html", key="report-html")
 
 st.subheader("Lab bundle")
 st.caption("A zip of the machines file and every reading and humidity log, to move the lab to "
            "another copy of Ceiling Lab without loss.")
 if not imports.empty:
-    st.download_button("Download the lab bundle", store.export_bundle(),
+    st.download_button("Download the lab bundle", store.export_bundle,
                        file_name="ceiling-lab-bundle.zip", mime="application/zip",
                        key="report-bundle")
 bundle = st.file_uploader("Restore a lab bundle", type=["zip"], key="report-bundle-upload")

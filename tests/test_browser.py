@@ -111,3 +111,20 @@ def test_every_page_opens_without_error(server, browser, path):
             assert page.locator("[data-testid='stPlotlyChart']").count() == 4
     finally:
         page.close()
+
+
+def test_the_html_report_downloads_self_contained(server, browser, tmp_path):
+    page = browser.new_page(viewport={"width": 1400, "height": 2000}, accept_downloads=True)
+    try:
+        page.goto(f"{server}/report", wait_until="domcontentloaded", timeout=90_000)
+        wait_until_drawn(page)
+        with page.expect_download(timeout=120_000) as download_info:
+            page.get_by_role("button", name="HTML report").click()
+        target = tmp_path / "report.html"
+        download_info.value.save_as(target)
+        html = target.read_text(encoding="utf-8")
+        assert "Plotly.newPlot" in html and "Science centre twin-disc machine" in html
+        assert "<script src=" not in html.replace(" ", "")  # plotly's JavaScript is embedded
+        assert "does not make a set-up safe" in html
+    finally:
+        page.close()

@@ -159,3 +159,119 @@ def test_module_runs_as_a_program_without_traceback():
         timeout=60)
     assert done.returncode == 0
     assert json.loads(done.stdout)["ceiling_current_uA"] > 0
+
+
+# --- evaluate and summary on the demonstration files ----------------------------------------
+
+SAMPLE = ROOT / "sample_data"
+MACHINES = str(SAMPLE / "machines.toml")
+CYLINDER = str(SAMPLE / "readings_cylinder.csv")
+CYLINDER_LOG = str(SAMPLE / "environment_cylinder.csv")
+TWIN = str(SAMPLE / "readings_twin_disc.csv")
+OUTPUT_HEADER = ["machine", "time", "speed_rev_s", "current_uA", "ceiling_uA", "efficiency",
+                 "efficiency_u", "charge_per_rev_nC", "rh_pct", "abs_humidity_g_m3",
+                 "dew_point_C", "relative_air_density", "flags"]
+
+
+def test_evaluate_writes_every_reading_in_input_order(capsys):
+    import csv
+    import io
+
+    status, out, err = run(capsys, "evaluate", MACHINES, CYLINDER, "--environment",
+                           CYLINDER_LOG)
+    assert status == 0, err
+    rows = list(csv.DictReader(io.StringIO(out)))
+    assert list(rows[0])[:13] == OUTPUT_HEADER
+    assert {"session", "note"} <= set(rows[0])
+    source = list(csv.DictReader(open(CYLINDER, encoding="utf-8")))
+    assert len(rows) == len(source)  # nothing lost
+    assert [row["time"] for row in rows] == [row["time"] for row in source]  # order kept
+    # The cylinder file has no humidity of its own: the log supplies it.
+    assert sum(1 for row in rows if row["rh_pct"]) > 0.95 * len(rows)
+    flagged = [row for row in rows if row["flags"]]
+    assert 0 < len(flagged) < 20
+    assert any("negative" in row["flags"] for row in flagged)
+    clean = [row for row in rows if not row["flags"]]
+    efficiency = [float(row["efficiency"]) for row in clean]
+    assert all(0 < value < 1 for value in efficiency)
+    # current / ceiling is the efficiency (definition in the design notes)
+    first = clean[0]
+    assert float(first["current_uA"]) / float(first["ceiling_uA"]) == pytest.approx(
+        float(first["efficiency"]), rel=1e-6)
+
+
+def test_a_log_out_of_reach_is_a_flag_not_a_guess(capsys):
+    rows = run_json(capsys, "evaluate", MACHINES, CYLINDER)
+    assert all(row["rh_pct"] is None for row in rows)  # no log given: humidity unknown
+    # The logger writes once a minute, its clock 37 s ahead: within 1 s few readings match.
+    rows = run_json(capsys, "evaluate", MACHINES, CYLINDER, "--environment", CYLINDER_LOG,
+                    "--tolerance", "1 s")
+    unmatched = [row for row in rows if "no_environment" in row["flags"]]
+    assert len(unmatched) > 0.9 * len(rows)
+    assert all(row["rh_pct"] is None for row in unmatched)
+
+
+def test_evaluate_json_and_files(capsys, tmp_path):
+    rows = run_json(capsys, "evaluate", MACHINES, TWIN)
+    assert set(OUTPUT_HEADER) <= set(rows[0])
+    assert isinstance(rows[0]["efficiency"], float)
+    for suffix in (".csv", ".xlsx"):
+        target = tmp_path / f"out{suffix}"
+        status, out, err = run(capsys, "evaluate", MACHINES, TWIN, "--output", str(target))
+        assert status == 0, err
+        assert target.stat().st_size > 1000
+        assert f"to {target}" in out
+    import openpyxl
+
+    sheet = openpyxl.load_workbook(tmp_path / "out.xlsx", read_only=True).active
+    header = [cell.value for cell in next(sheet.iter_rows(max_row=1))]
+    assert header[:13] == OUTPUT_HEADER
+
+
+def test_evaluate_takes_the_machine_from_the_caller(capsys, tmp_path):
+    machines = tmp_path / "one.toml"
+    machines.write_text('[[machine]]\nid = "bench-disc"\ncarrier = "disc"\n'
+                        'outer_radius = "20 cm"\n', encoding="utf-8")
+    data = str(ROOT / "tests" / "data" / "readings" / "no_machine.csv")
+    rows = run_json(capsys, "evaluate", str(machines), data, "--machine", "bench-disc")
+    assert {row["machine"] for row in rows} == {"bench-disc"}
+    # 12 500 nA at 5 rev/s on a 0.2 m disc: ceiling = 26.5626e-6 * pi * 0.04 * 5 = 16.690 uA
+    assert rows[0]["ceiling_uA"] == pytest.approx(16.690, rel=1e-4)
+    assert rows[0]["current_uA"] == pytest.approx(12.5)
+
+
+def test_summary_json_has_the_agreed_keys(capsys):
+    records = run_json(capsys, "summary", MACHINES, TWIN, "--by-session")
+    keys = {"machine", "readings_used", "readings_flagged", "efficiency_median",
+            "charge_per_rev_nC", "charge_per_rev_ci_nC", "offset_current_uA", "fit_r2",
+            "observed_collection_factor", "humidity_slope_per_10pct",
+            "efficiency_at_reference_rh"}
+    assert all(keys <= set(record) for record in records)
+    by_session = {record["session"]: record for record in records}
+    before, after = by_session["before restoration"], by_session["after restoration"]
+    assert after["efficiency_median"] > before["efficiency_median"]
+    low, high = before["charge_per_rev_ci_nC"]
+    assert low < before["charge_per_rev_nC"] < high
+    status, out, _ = run(capsys, "summary", MACHINES, TWIN)
+    assert status == 0 and "charge per revolution" in out and "nC" in out
+
+
+@pytest.mark.parametrize(
+    ("argv", "message"),
+    [
+        (["evaluate", MACHINES, "/nonexistent.csv"], "nonexistent.csv"),
+        (["evaluate", MACHINES, TWIN, "--output", "out.txt"], ".csv or .xlsx"),
+        (["evaluate", MACHINES, TWIN, "--environment", CYLINDER_LOG, "--tolerance", "5 kg"],
+         "duration"),
+        (["evaluate", MACHINES, TWIN, "--unit", "speed"], "FIELD=VALUE"),
+        (["evaluate", MACHINES, TWIN, "--output", "/nonexistent-dir/out.csv"],
+         "cannot be written"),
+        (["summary", MACHINES, TWIN, "--reference-rh", "150"], "0 to 100"),
+        (["summary", str(ROOT / "README.md"), TWIN], "TOML"),
+    ],
+)
+def test_evaluate_and_summary_bad_input(capsys, argv, message):
+    status, out, err = run(capsys, *argv)
+    assert status == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("error:") and message in lines[0]
