@@ -9,7 +9,9 @@ from pages import _shared as shared
 st.set_page_config(page_title="Ceiling Lab", page_icon=":material/bolt:", layout="wide")
 
 store = shared.store()
-if store.is_empty() and not st.session_state.get("demo-declined"):
+# The demo comes on first start only: not again once the user has removed it.
+if (store.is_empty() and store.setting("demo") != "removed"
+        and not st.session_state.get("demo-declined")):
     with st.spinner("First start: loading the demonstration lab..."):
         load_demo(store)
 

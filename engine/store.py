@@ -188,8 +188,13 @@ SCHEMA_V2: tuple[str, ...] = (
     "CREATE INDEX environment_by_import ON environment(import_id)",
 )
 
+#: Version 3: settings that outlive a restart (e.g. that the user removed the demo).
+SCHEMA_V3: tuple[str, ...] = (
+    "CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
+)
+
 #: Statements that bring a store from version ``n`` to ``n + 1`` are ``MIGRATIONS[n]``.
-MIGRATIONS: tuple[tuple[str, ...], ...] = (SCHEMA_V1, SCHEMA_V2)
+MIGRATIONS: tuple[tuple[str, ...], ...] = (SCHEMA_V1, SCHEMA_V2, SCHEMA_V3)
 #: Version of a store written by this module.
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -634,6 +639,17 @@ class Store:
             return {"machines": machines, "imports": imports, "readings": readings}
 
         return self._write(work)
+
+    def setting(self, key: str, default: str | None = None) -> str | None:
+        """A stored setting, or ``default`` when it was never saved."""
+        rows = self._query("SELECT value FROM settings WHERE key = ?", (key,))
+        return rows[0][0] if rows else default
+
+    def save_setting(self, key: str, value: str) -> None:
+        """Store a setting (text), replacing any earlier value of the same key."""
+        self._write(lambda connection: connection.execute(
+            "INSERT INTO settings (key, value) VALUES (?, ?) "
+            "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, value)))
 
     def has_demo(self) -> bool:
         """Whether any demonstration machine or import is stored (a demo site alone is not)."""

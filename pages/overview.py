@@ -24,7 +24,7 @@ if store.has_demo():
             "workshop and open day. Explore it, then remove it to start your own.")
     if st.button("Remove the demonstration data", key="overview-remove-demo"):
         removed = store.remove_demo()
-        st.session_state["demo-declined"] = True
+        store.save_setting("demo", "removed")
         shared.flash(f"Removed the demonstration data ({removed.get('readings', 0):,} "
                      "readings).")
         st.rerun()

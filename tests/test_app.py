@@ -106,6 +106,12 @@ def test_first_start_loads_the_demo_and_it_can_be_removed(empty_lab):
     assert "Removed the demonstration data" in texts(app)
     with open_store(empty_lab) as store:
         assert store.is_empty()
+    # A restart (a new session) does not bring the demo back.
+    _fresh_caches()
+    again = open_page()
+    assert "demonstration lab" not in texts(again)
+    with open_store(empty_lab) as store:
+        assert store.is_empty()
 
 
 def test_overview_shows_the_findings_of_every_machine(demo_lab):

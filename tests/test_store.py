@@ -157,7 +157,7 @@ def test_open_sets_the_connection_pragmas(store):
     assert connection.execute("PRAGMA foreign_keys").fetchone()[0] == 1
     assert connection.execute("PRAGMA busy_timeout").fetchone()[0] == 30_000
     assert connection.execute("PRAGMA synchronous").fetchone()[0] == 1  # 1 is NORMAL
-    assert store.schema_version == SCHEMA_VERSION == 2
+    assert store.schema_version == SCHEMA_VERSION == 3
 
 
 def test_a_file_that_is_not_a_store_is_an_input_error(tmp_path):
@@ -717,3 +717,24 @@ def test_two_programs_importing_at_once_both_complete(tmp_path):
         ids = store.imports().set_index("name")["id"]
         pd.testing.assert_frame_equal(stored_readings(store, import_ids=[ids["right"]]),
                                       make_readings(80_000, 32), check_exact=True)
+
+
+def test_a_version_2_store_gains_settings_and_keeps_its_data(tmp_path, machine_file):
+    from engine.store import SCHEMA_V2
+
+    path = tmp_path / "v2.sqlite3"
+    build_version_1_store(path, machine_file)
+    connection = sqlite3.connect(path)
+    for statement in SCHEMA_V2:
+        connection.execute(statement)
+    connection.execute("PRAGMA user_version = 2")
+    connection.commit()
+    connection.close()
+    with open_store(path) as store:
+        assert store.schema_version == SCHEMA_VERSION
+        assert store.machines().machines == machine_file.machines
+        assert store.setting("demo") is None
+        store.save_setting("demo", "removed")
+        store.save_setting("demo", "removed again")
+    with open_store(path) as store:
+        assert store.setting("demo") == "removed again"

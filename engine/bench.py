@@ -1,0 +1,945 @@
+"""Benchmark of the evaluation on synthetic data: ``python -m engine.bench``.
+
+::
+
+    python -m engine.bench [--rows N] [--machines M] [--json] [--no-scaling] [--keep DIR]
+
+generates N synthetic readings of M machines of every carrier kind (disc, belt with a roller,
+belt known only by its width and read in m/s, cylinder, custom) with an environment log, then
+measures on the same data, in one run:
+
+``derive_s``
+    :func:`engine.analysis.derive` on the in-memory frame (after the log merge): every derived
+    column of the evaluation and the flags.
+``numpy_floor_s``
+    :func:`numpy_floor`: the same quantities as bare numpy expressions on plain arrays, with no
+    validation or bookkeeping; the floor this machine allows.
+``per_row_s``
+    :func:`per_row_evaluate`: what a straightforward script does, one pint calculation per
+    reading from its text cells ("300.12 rpm"); timed on :data:`PER_ROW_SAMPLE` readings and
+    scaled to N.
+``evaluate_s``
+    ``python -m engine evaluate MACHINES READINGS --environment LOG --output OUT.csv`` as a
+    separate process, from its start to its exit (interpreter start and imports included).
+``peak_rss_mb``
+    Peak resident memory of that process [MiB], from the resource usage that ``os.wait4``
+    returns for it (``ru_maxrss``, exact on Linux, where it is in KiB). Only that child counts.
+``summary_s``
+    :func:`engine.analysis.findings` for all machines.
+``import_s``
+    :meth:`engine.store.Store.import_readings` of all readings and the log into a new SQLite
+    store.
+
+with ``derive_vs_floor`` = derive_s / numpy_floor_s, ``speedup_vs_per_row`` =
+per_row_s / derive_s, and ``derive_s`` again at 10^4, 10^5 and 10^6 readings with the growth
+exponent b of cost ~ N^b (least squares of log time on log N). Each in-process time is the
+best of a few runs (the machine is shared, the minimum is the least disturbed run).
+
+The synthetic readings file has the canonical layout (``machine,session,time,speed [rpm],
+current [uA],rh [%],temperature [degC],pressure [hPa],note``), one reading per machine and
+second, machines interleaved; every other machine has no air columns of its own, so the merge
+with the log (one entry a minute over the whole span) fills them. The file has one speed
+column in rpm, so it cannot carry the linear-only belt's speed in m/s: those readings are
+written with their m/s number under ``speed [rpm]`` and the command line flags them
+``speed_kind``, as it should. The in-memory frame holds them as linear speeds.
+
+Progress goes to stderr, results to stdout: a table, or with ``--json`` one object with the
+keys of :data:`RESULT_KEYS`. The targets (:data:`TARGETS`) are meant for N = 10^6 and M = 20 on
+the project's two-core machine; they are measured here, never asserted by timed tests.
+"""
+
+from __future__ import annotations
+
+import argparse
+import gc
+import json
+import math
+import os
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import TypeVar
+
+import numpy as np
+import pandas as pd
+from scipy import special
+
+from engine import analysis
+from engine import columns as col
+from engine.carriers import LINEAR, ROTATION, Belt
+from engine.ceiling import machine_ceiling
+from engine.machines import MachineFile, dump_machines, machine_from_table, site_from_table
+from engine.readings import merge_environment
+from engine.store import open_store
+from engine.units import speed_unit_conversion, unit_conversion, ureg
+
+DEFAULT_ROWS = 1_000_000
+DEFAULT_MACHINES = 20
+#: Sizes at which derive is timed again for the growth exponent.
+SCALING_ROWS = (10_000, 100_000, 1_000_000)
+#: Readings timed for the per-row (pint) evaluation; its time is scaled to N.
+PER_ROW_SAMPLE = 2_000
+#: Keys of the result, in order.
+RESULT_KEYS = (
+    "rows", "machines", "derive_s", "numpy_floor_s", "per_row_s", "evaluate_s", "summary_s",
+    "import_s", "peak_rss_mb", "derive_vs_floor", "speedup_vs_per_row", "scaling",
+    "growth_exponent", "targets", "met",
+)
+#: Targets at N = 10^6, M = 20: key -> {"at_most": value} or {"at_least": value}.
+TARGETS: dict[str, dict[str, float]] = {
+    "derive_vs_floor": {"at_most": 3.0},
+    "speedup_vs_per_row": {"at_least": 300.0},
+    "evaluate_s": {"at_most": 6.0},
+    "peak_rss_mb": {"at_most": 1500.0},
+    "summary_s": {"at_most": 1.0},
+    "import_s": {"at_most": 10.0},
+    "growth_exponent": {"at_most": 1.1},
+}
+
+#: Start of the synthetic readings (local time with its UTC offset).
+START_TIME = "2026-03-02T08:00:00"
+UTC_OFFSET = "+01:00"
+#: Interval of the environment log [s].
+LOG_INTERVAL_S = 60
+#: Reading columns of the canonical layout and their units.
+READINGS_HEADER = ("machine", "session", "time", "speed [rpm]", "current [uA]", "rh [%]",
+                   "temperature [degC]", "pressure [hPa]", "note")
+LOG_HEADER = ("time", "rh [%]", "temperature [degC]", "pressure [hPa]")
+
+# Carrier kinds in the order machines are made; the second belt has no roller (m/s only).
+_KIND_CYCLE = ("disc", "belt-roller", "belt-linear", "cylinder", "custom")
+# Typical speed of each kind: rpm, or m/s for the linear belt.
+_BASE_SPEED = {"disc": 90.0, "belt-roller": 600.0, "belt-linear": 2.0, "cylinder": 180.0,
+               "custom": 100.0}
+# Decimals written to the files (what a meter or logger shows).
+_DECIMALS = {"rpm": 2, "m/s": 3, "uA": 4, "rh": 1, "degC": 2, "hPa": 1}
+
+_T = TypeVar("_T")
+
+
+def _progress(message: str) -> None:
+    print(message, file=sys.stderr, flush=True)
+
+
+# --- Synthetic machines and readings ---------------------------------------------------------
+
+def synthetic_machines(count: int) -> MachineFile:
+    """Machines of every carrier kind, cycling disc, roller belt, linear belt, cylinder, custom.
+
+    Parameters
+    ----------
+    count : int
+        Number of machines, at least 1.
+
+    Returns
+    -------
+    MachineFile
+        Site at 240 m; each machine with geometry, speed, current and breakdown-field
+        tolerances (the linear belt's current tolerance is absolute, the others relative).
+    """
+    if count < 1:
+        raise ValueError("at least one machine is needed")
+    machines = []
+    for index in range(count):
+        kind = _KIND_CYCLE[index % len(_KIND_CYCLE)]
+        size = index // len(_KIND_CYCLE)  # later machines of a kind are a little larger
+        table: dict[str, object] = {"id": f"bench-{index + 1:02d}-{kind}",
+                                    "label": f"Benchmark {kind} machine {index + 1}"}
+        tolerance: dict[str, object] = {"speed": "1 %", "current": "2 %",
+                                        "breakdown_field": "10 %"}
+        if kind == "disc":
+            table.update(carrier="disc", outer_diameter=f"{40 + 2 * size} cm",
+                         inner_diameter="24 cm", sector_fill=0.5, carriers=2)
+            tolerance.update(outer_diameter="1 mm", inner_diameter="1 mm", sector_fill=0.02)
+        elif kind == "belt-roller":
+            table.update(carrier="belt", width=f"{5 + size} cm", roller_diameter="5 cm")
+            tolerance.update(width="0.5 mm", roller_diameter="0.2 mm")
+        elif kind == "belt-linear":
+            table.update(carrier="belt", width=f"{30 + 5 * size} mm")
+            tolerance.update(width="0.5 mm", current="0.01 uA")
+        elif kind == "cylinder":
+            table.update(carrier="cylinder", diameter=f"{12 + size} cm", active_length="30 cm")
+            tolerance.update(diameter="0.5 mm", active_length="2 mm")
+        else:
+            table.update(carrier="custom", area_per_rev=f"{410 + 20 * size} cm^2", carriers=6)
+            tolerance.update(area_per_rev="4 %")
+        table["tolerance"] = tolerance
+        machines.append(machine_from_table(table, f"benchmark machine {index + 1}"))
+    return MachineFile(site_from_table({"altitude": "240 m"}), tuple(machines))
+
+
+@dataclass(frozen=True)
+class SyntheticData:
+    """Synthetic readings and their environment log, in memory.
+
+    Attributes
+    ----------
+    machine_file : MachineFile
+        The machines.
+    readings : pandas.DataFrame
+        Columns :data:`engine.columns.READING_COLUMNS` (SI units) as the readings import gives
+        them, before the log merge: air columns empty for every other machine.
+    environment : pandas.DataFrame
+        Columns :data:`engine.columns.ENVIRONMENT_COLUMNS` (SI units), one entry a minute.
+    machine_codes : numpy.ndarray
+        Index of each reading's machine in ``machine_file.machines``.
+    readings_text : dict of str to numpy.ndarray
+        The readings file's columns (header -> values), numbers as shown (NaN for blank).
+    log_text : dict of str to numpy.ndarray
+        The log file's columns.
+    """
+
+    machine_file: MachineFile
+    readings: pd.DataFrame
+    environment: pd.DataFrame
+    machine_codes: np.ndarray
+    readings_text: dict[str, np.ndarray]
+    log_text: dict[str, np.ndarray]
+
+
+def _air_at(seconds: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Invented room air over a day: RH [%], temperature [degC], pressure [hPa]."""
+    rh_pct = 55.0 + 20.0 * np.sin(2 * np.pi * seconds / 18_000.0)
+    temperature_c = 20.0 + 2.0 * np.sin(2 * np.pi * seconds / 86_400.0 + 1.0)
+    pressure_hpa = 985.0 + 3.0 * np.sin(2 * np.pi * seconds / 108_000.0)
+    return rh_pct, temperature_c, pressure_hpa
+
+
+def _local_times(seconds: np.ndarray) -> tuple[pd.Series, np.ndarray]:
+    """Times at whole seconds from the start: zone-aware values and their ISO texts."""
+    local = np.datetime64(START_TIME, "s") + seconds.astype("timedelta64[s]")
+    text = np.char.add(np.datetime_as_string(local, unit="s"), UTC_OFFSET).astype(object)
+    zone = pd.Timestamp(START_TIME + UTC_OFFSET).tz
+    stamps = pd.Series(pd.DatetimeIndex(local.astype("datetime64[us]")).tz_localize(zone))
+    return stamps, text
+
+
+def synthetic_data(machine_file: MachineFile, rows: int, seed: int = 0) -> SyntheticData:
+    """Readings of all machines, one per machine and second, and a log of the room air.
+
+    Parameters
+    ----------
+    machine_file : MachineFile
+        The machines (e.g. :func:`synthetic_machines`).
+    rows : int
+        Number of readings, at least 1.
+    seed : int, optional
+        Seed of the random generator.
+
+    Returns
+    -------
+    SyntheticData
+
+    Notes
+    -----
+    Row i is of machine i mod M at second i div M. Speeds swing by +-25 % around a typical
+    value of the kind; the efficiency follows a logistic decline with humidity (dry value 0.25
+    to 0.6, half at about 62 % RH) with 3 % scatter; sessions change every hour. Machines of
+    even index carry their own air readings (the log's air plus a little scatter); the others
+    leave the air columns empty for the merge. Numbers are rounded as a meter would show them,
+    and the SI frame is made from the rounded numbers with the engine's own unit factors.
+    """
+    if rows < 1:
+        raise ValueError("at least one reading is needed")
+    rng = np.random.default_rng(seed)
+    machines = machine_file.machines
+    count = len(machines)
+    codes = np.arange(rows, dtype=np.intp) % count
+    second = np.arange(rows, dtype=np.int64) // count
+    kinds = np.array([_KIND_CYCLE[index % len(_KIND_CYCLE)] for index in range(count)])
+    linear = kinds[codes] == "belt-linear"
+
+    rh_pct, temperature_c, pressure_hpa = _air_at(second.astype(float))
+    base = np.array([_BASE_SPEED[kind] for kind in kinds])
+    phase = np.arange(count) * 0.7
+    swing = 1.0 + 0.25 * np.sin(2 * np.pi * second / 1_020.0 + phase[codes])
+    speed_shown = base[codes] * swing * (1.0 + 0.005 * rng.standard_normal(rows))
+    speed_shown = np.where(linear, np.round(speed_shown, _DECIMALS["m/s"]),
+                           np.round(speed_shown, _DECIMALS["rpm"]))
+
+    rpm_scale, _kind = speed_unit_conversion("rpm")
+    metre_scale, _kind = speed_unit_conversion("m/s")
+    pressure_pa = pressure_hpa * 100.0
+    temperature_k = temperature_c + 273.15
+    ceiling = np.empty(rows)
+    for index, machine in enumerate(machines):  # one vectorised call per machine
+        mine = codes == index
+        kind = LINEAR if kinds[index] == "belt-linear" else ROTATION
+        scale = metre_scale if kind == LINEAR else rpm_scale
+        ceiling[mine] = machine_ceiling(machine, speed_shown[mine] * scale, kind,
+                                        pressure_pa[mine], temperature_k[mine]).ceiling_current_a
+    dry = 0.25 + 0.35 * ((np.arange(count) * 0.37) % 1.0)
+    efficiency = dry[codes] * special.expit(-(rh_pct / 100.0 - 0.62) / 0.05)
+    efficiency *= 1.0 + 0.03 * rng.standard_normal(rows)
+    current_shown = np.round(efficiency * ceiling * 1e6, _DECIMALS["uA"])
+
+    own_air = codes % 2 == 0
+    blank = np.full(rows, np.nan)
+    rh_shown = np.where(own_air, np.round(rh_pct + 0.5 * rng.standard_normal(rows),
+                                          _DECIMALS["rh"]), blank)
+    temperature_shown = np.where(own_air, np.round(temperature_c, _DECIMALS["degC"]), blank)
+    pressure_shown = np.where(own_air, np.round(pressure_hpa, _DECIMALS["hPa"]), blank)
+
+    seconds_used = int(second[-1]) + 1
+    stamps, stamp_text = _local_times(np.arange(seconds_used, dtype=np.int64))
+    session_names = np.array([f"run {hour + 1}" for hour in range(seconds_used // 3600 + 1)],
+                             dtype=object)
+    machine_ids = np.array([machine.id for machine in machines], dtype=object)
+    notes = np.full(rows, "", dtype=object)
+    notes[:count] = "benchmark start"
+
+    current_scale, _offset = unit_conversion("uA", "current")
+    rh_scale, _offset = unit_conversion("%", "fraction")
+    kelvin_scale, kelvin_offset = unit_conversion("degC", "temperature")
+    pascal_scale, _offset = unit_conversion("hPa", "pressure")
+    readings = pd.DataFrame({
+        col.ROW: np.arange(1, rows + 1, dtype=np.int64),
+        col.MACHINE: pd.array(machine_ids[codes], dtype="str"),
+        col.SESSION: pd.array(session_names[second // 3600], dtype="str"),
+        col.TIME: stamps.take(second).reset_index(drop=True),
+        col.ELAPSED_S: second.astype(float),
+        col.SPEED_REV_S: np.where(linear, np.nan, speed_shown * rpm_scale),
+        col.BELT_SPEED_M_S: np.where(linear, speed_shown * metre_scale, np.nan),
+        col.CURRENT_A: current_shown * current_scale,
+        col.RH: rh_shown * rh_scale,
+        col.TEMPERATURE_K: temperature_shown * kelvin_scale + kelvin_offset,
+        col.PRESSURE_PA: pressure_shown * pascal_scale,
+        col.VOLTAGE_V: np.full(rows, np.nan),
+        col.NOTE: pd.array(notes, dtype="str"),
+        col.FLAGS: pd.array(np.full(rows, "", dtype=object), dtype="str"),
+    }, columns=list(col.READING_COLUMNS))
+
+    # The log starts a minute early and ends a minute late, so every reading has an entry near.
+    log_seconds = np.arange(-LOG_INTERVAL_S, seconds_used + 2 * LOG_INTERVAL_S, LOG_INTERVAL_S,
+                            dtype=np.int64)
+    log_rh, log_temperature, log_pressure = _air_at(log_seconds.astype(float))
+    log_rh = np.round(log_rh + 0.3 * rng.standard_normal(log_seconds.size), _DECIMALS["rh"])
+    log_temperature = np.round(log_temperature, _DECIMALS["degC"])
+    log_pressure = np.round(log_pressure, _DECIMALS["hPa"])
+    log_stamps, log_stamp_text = _local_times(log_seconds)
+    environment = pd.DataFrame({
+        col.ROW: np.arange(1, log_seconds.size + 1, dtype=np.int64),
+        col.TIME: log_stamps,
+        col.ELAPSED_S: (log_seconds - log_seconds[0]).astype(float),
+        col.RH: log_rh * rh_scale,
+        col.TEMPERATURE_K: log_temperature * kelvin_scale + kelvin_offset,
+        col.PRESSURE_PA: log_pressure * pascal_scale,
+    }, columns=list(col.ENVIRONMENT_COLUMNS))
+
+    readings_text = dict(zip(READINGS_HEADER, (
+        machine_ids[codes], session_names[second // 3600], stamp_text[second], speed_shown,
+        current_shown, rh_shown, temperature_shown, pressure_shown, notes), strict=True))
+    log_text = dict(zip(LOG_HEADER, (log_stamp_text, log_rh, log_temperature, log_pressure),
+                        strict=True))
+    return SyntheticData(machine_file, readings, environment, codes, readings_text, log_text)
+
+
+@dataclass(frozen=True)
+class BenchFiles:
+    """Paths of the files written for the command line."""
+
+    machines: Path
+    readings: Path
+    environment: Path
+
+
+def write_files(data: SyntheticData, folder: Path) -> BenchFiles:
+    """Write the machines file, the readings CSV and the log CSV into ``folder``.
+
+    Parameters
+    ----------
+    data : SyntheticData
+    folder : Path
+        Created if missing.
+
+    Returns
+    -------
+    BenchFiles
+        ``machines.toml``, ``readings.csv`` and ``environment.csv`` in the canonical layouts.
+    """
+    folder.mkdir(parents=True, exist_ok=True)
+    files = BenchFiles(folder / "machines.toml", folder / "readings.csv",
+                       folder / "environment.csv")
+    files.machines.write_text(dump_machines(data.machine_file), encoding="utf-8")
+    # Rounded floats print in their shortest form ("123.45"); NaN prints as an empty cell.
+    pd.DataFrame(data.readings_text).to_csv(files.readings, index=False, na_rep="",
+                                            lineterminator="\n")
+    pd.DataFrame(data.log_text).to_csv(files.environment, index=False, na_rep="",
+                                       lineterminator="\n")
+    return files
+
+
+# --- The numpy floor ----------------------------------------------------------------------------
+
+def floor_constants(machine_file: MachineFile) -> dict[str, np.ndarray]:
+    """Per-machine constants of :func:`numpy_floor`, one entry per machine in file order.
+
+    Parameters
+    ----------
+    machine_file : MachineFile
+        Machines whose speed tolerances, if any, are relative (percentages).
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        ``area_per_rev_m2``, ``width_m``, ``length_per_rev_m`` (NaN where not defined),
+        ``accepts_rotation``, ``accepts_linear`` (bool), ``carriers``, ``collection_factor``,
+        ``reference_field_v_m``, ``current_relative``, ``current_absolute_a``,
+        ``speed_relative``, ``field_relative``, ``area_relative_rotation``,
+        ``area_relative_linear``.
+
+    Raises
+    ------
+    ValueError
+        For an absolute speed tolerance, which the floor does not handle.
+    """
+    rows: dict[str, list[float]] = {name: [] for name in (
+        "area_per_rev_m2", "width_m", "length_per_rev_m", "accepts_rotation", "accepts_linear",
+        "carriers", "collection_factor", "reference_field_v_m", "current_relative",
+        "current_absolute_a", "speed_relative", "field_relative", "area_relative_rotation",
+        "area_relative_linear")}
+    for machine in machine_file.machines:
+        carrier = machine.carrier
+        tolerances = machine.tolerances
+        belt = isinstance(carrier, Belt)
+        area = carrier.area_per_rev_m2
+        length = carrier.length_per_rev_m if belt else None
+        speed = tolerances.get("speed")
+        if speed is not None and not speed.relative:
+            raise ValueError(f"{machine.id}: the floor handles relative speed tolerances only")
+        current = tolerances.get("current")
+        field = tolerances.get("breakdown_field")
+        values = {
+            "area_per_rev_m2": math.nan if area is None else area,
+            "width_m": carrier.width_m if belt else math.nan,
+            "length_per_rev_m": math.nan if length is None else length,
+            "accepts_rotation": ROTATION in carrier.speed_kinds,
+            "accepts_linear": LINEAR in carrier.speed_kinds,
+            "carriers": machine.carriers,
+            "collection_factor": machine.collection_factor,
+            "reference_field_v_m": machine.reference_field_v_m,
+            "current_relative": current.value if current and current.relative else 0.0,
+            "current_absolute_a": current.value if current and not current.relative else 0.0,
+            "speed_relative": speed.value if speed else 0.0,
+            "field_relative": (field.absolute_for(machine.reference_field_v_m)
+                               / machine.reference_field_v_m if field else 0.0),
+            "area_relative_rotation": carrier.area_relative_uncertainty(tolerances, ROTATION),
+            "area_relative_linear": (carrier.area_relative_uncertainty(tolerances, LINEAR)
+                                     if belt else math.nan),
+        }
+        for name, value in values.items():
+            rows[name].append(value)
+    constants = {name: np.array(values, dtype=float) for name, values in rows.items()}
+    for name in ("accepts_rotation", "accepts_linear"):
+        constants[name] = constants[name].astype(bool)
+    return constants
+
+
+def floor_inputs(frame: pd.DataFrame, machine_codes: np.ndarray) -> dict[str, np.ndarray]:
+    """Plain arrays of a (merged) readings frame for :func:`numpy_floor`.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Readings in SI units (:data:`engine.columns.READING_COLUMNS`).
+    machine_codes : numpy.ndarray
+        Index of each reading's machine in the machines file.
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        ``codes``, ``speed_rev_s``, ``belt_speed_m_s``, ``current_a``, ``rh``,
+        ``temperature_k``, ``pressure_pa``.
+    """
+    arrays = {name: frame[name].to_numpy(dtype=float) for name in (
+        col.SPEED_REV_S, col.BELT_SPEED_M_S, col.CURRENT_A, col.RH, col.TEMPERATURE_K,
+        col.PRESSURE_PA)}
+    arrays["codes"] = np.asarray(machine_codes, dtype=np.intp)
+    return arrays
+
+
+def numpy_floor(inputs: Mapping[str, np.ndarray], constants: Mapping[str, np.ndarray],
+                site_pressure_pa: float, site_temperature_k: float) -> dict[str, np.ndarray]:
+    """The derived quantities of :func:`engine.analysis.derive` as bare numpy expressions.
+
+    No validation, no frame, no flags text: the floor of what the evaluation can cost.
+
+    Parameters
+    ----------
+    inputs : mapping
+        :func:`floor_inputs`: machine codes, speed [rev/s], belt speed [m/s], current [A],
+        RH [-], temperature [K], pressure [Pa]; NaN where empty.
+    constants : mapping
+        :func:`floor_constants`.
+    site_pressure_pa, site_temperature_k : float
+        Air used where a reading has none [Pa], [K].
+
+    Returns
+    -------
+    dict of str to numpy.ndarray
+        ``ceiling_a`` [A], ``efficiency`` [-], ``efficiency_u`` [-], ``charge_per_rev_c`` [C],
+        ``surface_density_c_m2`` [C/m^2], ``relative_air_density`` [-],
+        ``abs_humidity_kg_m3`` [kg/m^3], ``dew_point_k`` [K], ``speed_rev_s`` [rev/s] (filled
+        for a belt read in m/s with a known length per revolution), and the boolean masks
+        ``missing_value``, ``speed_kind``, ``above_ceiling``.
+
+    Notes
+    -----
+    delta = p / 101.3 kPa * 293.15 K / T (IEC 60060-1); I_c = eps0 E_ref delta A_s N k with
+    eps0 = 8.8541878128e-12 F/m (CODATA 2018); u(eta)^2 = (u(I) / I_c)^2
+    + eta^2 (u_rel(A)^2 + u_rel(f)^2 + u_rel(E)^2) (JCGM 100:2008, 5.1); e = RH * 610.94 Pa
+    * exp(17.625 t / (t + 243.04)), t_d = 243.04 g / (17.625 - g) with
+    g = ln(RH) + 17.625 t / (t + 243.04) (Alduchov and Eskridge, 1996); rho_v = e / (461.5 T).
+    A zero speed or ceiling gives inf here where derive gives NaN.
+    """
+    codes = inputs["codes"]
+    speed = inputs["speed_rev_s"]
+    belt_speed = inputs["belt_speed_m_s"]
+    current = inputs["current_a"]
+    rh = inputs["rh"]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rotation = np.isfinite(speed)
+        linear = ~rotation & np.isfinite(belt_speed)
+        speed_kind = ((rotation & ~constants["accepts_rotation"][codes])
+                      | (linear & ~constants["accepts_linear"][codes]))
+        filled_speed = np.where(linear, belt_speed / constants["length_per_rev_m"][codes], speed)
+        swept = np.where(linear, constants["width_m"][codes] * belt_speed,
+                         constants["area_per_rev_m2"][codes] * speed)
+        swept[speed_kind] = np.nan
+        pressure = np.where(np.isnan(inputs["pressure_pa"]), site_pressure_pa,
+                            inputs["pressure_pa"])
+        temperature = np.where(np.isnan(inputs["temperature_k"]), site_temperature_k,
+                               inputs["temperature_k"])
+        delta = pressure / 101_300.0 * (293.15 / temperature)
+        carriers = constants["carriers"][codes]
+        ceiling = (8.8541878128e-12 * constants["reference_field_v_m"][codes] * delta * swept
+                   * carriers * constants["collection_factor"][codes])
+        efficiency = current / ceiling
+        current_u = (constants["current_relative"][codes] * np.abs(current)
+                     + constants["current_absolute_a"][codes])
+        area_u = np.where(linear, constants["area_relative_linear"][codes],
+                          constants["area_relative_rotation"][codes])
+        relative_sum = (area_u**2 + constants["speed_relative"][codes] ** 2
+                        + constants["field_relative"][codes] ** 2)
+        efficiency_u = np.sqrt((current_u / ceiling) ** 2 + efficiency**2 * relative_sum)
+        celsius = temperature - 273.15
+        magnus = 17.625 * celsius / (celsius + 243.04)
+        vapour_pa = rh * 610.94 * np.exp(magnus)
+        gamma = np.log(rh) + magnus
+        return {
+            "ceiling_a": ceiling,
+            "efficiency": efficiency,
+            "efficiency_u": efficiency_u,
+            "charge_per_rev_c": current / filled_speed,
+            "surface_density_c_m2": current / (swept * carriers),
+            "relative_air_density": delta,
+            "abs_humidity_kg_m3": vapour_pa / (461.5 * temperature),
+            "dew_point_k": 243.04 * gamma / (17.625 - gamma) + 273.15,
+            "speed_rev_s": filled_speed,
+            "missing_value": ~np.isfinite(current) | ~(rotation | linear),
+            "speed_kind": speed_kind,
+            "above_ceiling": efficiency > 1.0,
+        }
+
+
+# --- The per-row script ---------------------------------------------------------------------
+
+def per_row_cells(frame: pd.DataFrame, positions: np.ndarray) -> list[tuple[str, ...]]:
+    """Text cells of some readings as a script reading a file would see them.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Merged readings (SI units).
+    positions : numpy.ndarray
+        Positions of the readings wanted.
+
+    Returns
+    -------
+    list of tuple of str
+        Per reading: machine id, speed ("90.12 rpm" or "2.013 m/s"), current ("1.234 uA"),
+        pressure ("985.2 hPa"; "" when none), temperature ("20.5 degC"; "" when none).
+    """
+    part = frame.iloc[positions]
+    machine = part[col.MACHINE].to_numpy(dtype=object)
+    speed = part[col.SPEED_REV_S].to_numpy(dtype=float) * 60.0
+    belt_speed = part[col.BELT_SPEED_M_S].to_numpy(dtype=float)
+    current = part[col.CURRENT_A].to_numpy(dtype=float) * 1e6
+    pressure = part[col.PRESSURE_PA].to_numpy(dtype=float) / 100.0
+    temperature = part[col.TEMPERATURE_K].to_numpy(dtype=float) - 273.15
+    cells = []
+    for index in range(len(part)):  # a benchmark of the per-row way: the loop is the point
+        speed_text = (f"{belt_speed[index]:.10g} m/s" if np.isnan(speed[index])
+                      else f"{speed[index]:.10g} rpm")
+        cells.append((
+            str(machine[index]), speed_text, f"{current[index]:.10g} uA",
+            "" if np.isnan(pressure[index]) else f"{pressure[index]:.10g} hPa",
+            "" if np.isnan(temperature[index]) else f"{temperature[index]:.10g} degC",
+        ))
+    return cells
+
+
+def per_row_evaluate(cells: Sequence[tuple[str, ...]], machine_file: MachineFile
+                     ) -> tuple[np.ndarray, np.ndarray]:
+    """Ceiling and efficiency of each reading, one pint calculation per reading.
+
+    This is the straightforward script the engine is measured against, not engine code.
+
+    Parameters
+    ----------
+    cells : sequence of tuple of str
+        :func:`per_row_cells`.
+    machine_file : MachineFile
+
+    Returns
+    -------
+    tuple of numpy.ndarray
+        Ceiling current [A] and efficiency [-] per reading.
+    """
+    quantity = ureg.Quantity
+    geometry = {}
+    for machine in machine_file.machines:
+        area = machine.carrier.area_per_rev_m2
+        width = machine.carrier.width_m if isinstance(machine.carrier, Belt) else None
+        geometry[machine.id] = (
+            None if area is None else quantity(area, "m**2"),
+            None if width is None else quantity(width, "m"),
+            machine.carriers * machine.collection_factor,
+            quantity(machine.reference_field_v_m, "V/m"),
+        )
+    vacuum_permittivity = quantity(8.8541878128e-12, "F/m")
+    reference_pressure = quantity(101.3, "kPa")
+    reference_temperature = quantity(293.15, "K")
+    site_pressure = quantity(machine_file.site.pressure_pa, "Pa")
+    site_temperature = quantity(machine_file.site.temperature_k, "K")
+    ceilings = np.empty(len(cells))
+    efficiencies = np.empty(len(cells))
+    for index, (machine_id, speed_text, current_text, pressure_text,
+                temperature_text) in enumerate(cells):
+        area, width, count, field = geometry[machine_id]
+        speed = quantity(speed_text)
+        if speed.check("[length] / [time]"):
+            swept = width * speed
+        else:
+            # pint's revolution is 2 pi radians: count turns, not radians
+            swept = area * quantity(speed.to("turn / second").magnitude, "1/s")
+        pressure = quantity(pressure_text) if pressure_text else site_pressure
+        temperature = quantity(temperature_text).to("K") if temperature_text else site_temperature
+        delta = (pressure / reference_pressure) * (reference_temperature / temperature)
+        ceiling = (vacuum_permittivity * field * delta * swept * count).to("A")
+        ceilings[index] = ceiling.magnitude
+        efficiencies[index] = (quantity(current_text) / ceiling).to("dimensionless").magnitude
+    return ceilings, efficiencies
+
+
+# --- Timing -----------------------------------------------------------------------------------
+
+def _best_time(work: Callable[[], _T], least_runs: int = 3, most_runs: int = 7,
+               budget_s: float = 3.0) -> tuple[float, _T]:
+    """Shortest wall time of a few runs of ``work`` [s] and the result of the last run.
+
+    Runs at least ``least_runs`` times, then more while the total stays within ``budget_s``.
+    """
+    best = math.inf
+    total = 0.0
+    runs = 0
+    result = None
+    while runs < least_runs or (runs < most_runs and total + best <= budget_s):
+        result = None  # free the previous result before the next run
+        gc.collect()
+        start = time.perf_counter()
+        result = work()
+        elapsed = time.perf_counter() - start
+        best = min(best, elapsed)
+        total += elapsed
+        runs += 1
+    return best, result  # type: ignore[return-value]
+
+
+def growth_exponent(rows: Sequence[float], seconds: Sequence[float]) -> float:
+    """Exponent b of cost ~ N^b: least-squares slope of log(time) on log(N).
+
+    Parameters
+    ----------
+    rows : sequence of float
+        Sizes N, at least two distinct ones.
+    seconds : sequence of float
+        Times [s], positive.
+
+    Returns
+    -------
+    float
+        b [-].
+    """
+    log_rows = np.log(np.asarray(rows, dtype=float))
+    log_seconds = np.log(np.asarray(seconds, dtype=float))
+    centred = log_rows - log_rows.mean()
+    return float(np.dot(centred, log_seconds - log_seconds.mean()) / np.dot(centred, centred))
+
+
+def _merged(data: SyntheticData) -> pd.DataFrame:
+    return merge_environment(data.readings, data.environment)
+
+
+def _time_derive(frame: pd.DataFrame, machine_file: MachineFile) -> tuple[float, pd.DataFrame]:
+    return _best_time(lambda: analysis.derive(frame, machine_file))
+
+
+def _time_floor(inputs: Mapping[str, np.ndarray], machine_file: MachineFile) -> float:
+    constants = floor_constants(machine_file)
+    site = machine_file.site
+    seconds, _result = _best_time(
+        lambda: numpy_floor(inputs, constants, site.pressure_pa, site.temperature_k),
+        least_runs=5)
+    return seconds
+
+
+def _time_per_row(merged: pd.DataFrame, machine_file: MachineFile, sample: int) -> float:
+    """Time of the per-row script on ``sample`` readings drawn at random, scaled to all."""
+    rows = len(merged)
+    positions = np.sort(np.random.default_rng(1).choice(rows, size=sample, replace=False))
+    cells = per_row_cells(merged, positions)
+    gc.collect()
+    start = time.perf_counter()
+    per_row_evaluate(cells, machine_file)
+    return (time.perf_counter() - start) / sample * rows
+
+
+def _time_summary(derived: pd.DataFrame, machine_file: MachineFile) -> float:
+    seconds, _result = _best_time(lambda: analysis.findings(derived, machine_file),
+                                  least_runs=1, most_runs=3)
+    return seconds
+
+
+def _run_evaluate(files: BenchFiles, folder: Path, rows: int) -> tuple[float, float]:
+    """Wall time [s] and peak resident memory [MiB] of the command-line evaluate."""
+    output = folder / "evaluated.csv"
+    command = [sys.executable, "-m", "engine", "evaluate", str(files.machines),
+               str(files.readings), "--environment", str(files.environment),
+               "--output", str(output)]
+    root = Path(__file__).resolve().parents[1]
+    environment = dict(os.environ)
+    environment["PYTHONPATH"] = os.pathsep.join(
+        [str(root)] + ([environment["PYTHONPATH"]] if environment.get("PYTHONPATH") else []))
+    with open(folder / "evaluate.out", "wb") as out, open(folder / "evaluate.err", "wb") as err:
+        start = time.perf_counter()
+        process = subprocess.Popen(command, cwd=root, env=environment, stdout=out, stderr=err)
+        # wait4 gives this child's own resource usage; ru_maxrss is in KiB on Linux
+        _pid, status, usage = os.wait4(process.pid, 0)
+        elapsed = time.perf_counter() - start
+    process.returncode = os.waitstatus_to_exitcode(status)
+    if process.returncode != 0:
+        message = (folder / "evaluate.err").read_text(encoding="utf-8", errors="replace")
+        raise RuntimeError(f"evaluate failed with status {process.returncode}: {message}")
+    with open(output, "rb") as written:
+        lines = sum(block.count(b"\n") for block in iter(lambda: written.read(1 << 20), b""))
+    if lines != rows + 1:
+        raise RuntimeError(f"evaluate wrote {lines - 1} readings, expected {rows}")
+    return elapsed, usage.ru_maxrss / 1024.0
+
+
+def _time_import(merged: pd.DataFrame, data: SyntheticData, folder: Path) -> float:
+    with open_store(folder / "bench.sqlite3") as store:
+        for machine in data.machine_file.machines:
+            store.save_machine(machine)
+        gc.collect()
+        start = time.perf_counter()
+        store.import_readings(merged, "benchmark", source="readings.csv",
+                              environment=data.environment)
+        return time.perf_counter() - start
+
+
+def _ratio(numerator: float, denominator: float) -> float:
+    return numerator / denominator if denominator > 0 else math.inf
+
+
+def _met(result: Mapping[str, object]) -> dict[str, bool | None]:
+    met: dict[str, bool | None] = {}
+    for key, target in TARGETS.items():
+        value = result.get(key)
+        if value is None or not math.isfinite(float(value)):  # type: ignore[arg-type]
+            met[key] = None
+        elif "at_most" in target:
+            met[key] = float(value) <= target["at_most"]  # type: ignore[arg-type]
+        else:
+            met[key] = float(value) >= target["at_least"]  # type: ignore[arg-type]
+    return met
+
+
+def run_benchmark(rows: int = DEFAULT_ROWS, machines: int = DEFAULT_MACHINES,
+                  scaling_rows: Sequence[int] = SCALING_ROWS, keep: Path | None = None,
+                  per_row_sample: int = PER_ROW_SAMPLE) -> dict[str, object]:
+    """Generate the synthetic data and measure everything on it.
+
+    Parameters
+    ----------
+    rows : int
+        Readings N.
+    machines : int
+        Machines M.
+    scaling_rows : sequence of int
+        Sizes for the growth exponent (empty: no scaling); at least two for an exponent.
+    keep : Path, optional
+        Folder for the generated files, kept; default a temporary folder, removed afterwards.
+    per_row_sample : int
+        Readings timed with the per-row script.
+
+    Returns
+    -------
+    dict
+        Keys :data:`RESULT_KEYS`. ``scaling`` is a list of ``{"rows", "derive_s"}``;
+        ``growth_exponent`` is None without scaling; ``met`` maps each key of
+        :data:`TARGETS` to whether it was met (None where not measured).
+    """
+    if rows < 1 or machines < 1:
+        raise ValueError("rows and machines must be at least 1")
+    folder = Path(keep) if keep is not None else Path(tempfile.mkdtemp(prefix="ceiling-bench-"))
+    try:
+        _progress(f"generating {rows} readings of {machines} machines...")
+        machine_file = synthetic_machines(machines)
+        data = synthetic_data(machine_file, rows)
+        files = write_files(data, folder)
+        merged = _merged(data)
+
+        _progress("derive...")
+        derive_s, derived = _time_derive(merged, machine_file)
+        _progress("numpy floor...")
+        floor_s = _time_floor(floor_inputs(merged, data.machine_codes), machine_file)
+        sample = min(per_row_sample, rows)
+        _progress(f"per-row (pint) on {sample} readings...")
+        per_row_s = _time_per_row(merged, machine_file, sample)
+        _progress("summary...")
+        summary_s = _time_summary(derived, machine_file)
+        derived = None
+        _progress("import into the store...")
+        import_s = _time_import(merged, data, folder)
+        merged = data = None
+        gc.collect()
+        _progress("evaluate (separate process)...")
+        evaluate_s, peak_rss_mb = _run_evaluate(files, folder, rows)
+
+        scaling = []
+        for size in scaling_rows:
+            if size == rows:
+                scaling.append({"rows": int(size), "derive_s": derive_s})
+                continue
+            _progress(f"scaling: derive at {size} readings...")
+            frame = _merged(synthetic_data(machine_file, int(size)))
+            seconds, _derived = _time_derive(frame, machine_file)
+            del frame, _derived
+            scaling.append({"rows": int(size), "derive_s": seconds})
+        exponent = (growth_exponent([item["rows"] for item in scaling],
+                                    [item["derive_s"] for item in scaling])
+                    if len({item["rows"] for item in scaling}) >= 2 else None)
+    finally:
+        if keep is None:
+            shutil.rmtree(folder, ignore_errors=True)
+
+    result: dict[str, object] = {
+        "rows": rows,
+        "machines": machines,
+        "derive_s": derive_s,
+        "numpy_floor_s": floor_s,
+        "per_row_s": per_row_s,
+        "evaluate_s": evaluate_s,
+        "summary_s": summary_s,
+        "import_s": import_s,
+        "peak_rss_mb": peak_rss_mb,
+        "derive_vs_floor": _ratio(derive_s, floor_s),
+        "speedup_vs_per_row": _ratio(per_row_s, derive_s),
+        "scaling": scaling,
+        "growth_exponent": exponent,
+        "targets": TARGETS,
+    }
+    result["met"] = _met(result)
+    return {key: result[key] for key in RESULT_KEYS}
+
+
+# --- Output ---------------------------------------------------------------------------------
+
+_UNITS = {"derive_s": "s", "numpy_floor_s": "s", "per_row_s": "s", "evaluate_s": "s",
+          "summary_s": "s", "import_s": "s", "peak_rss_mb": "MiB", "derive_vs_floor": "x",
+          "speedup_vs_per_row": "x", "growth_exponent": ""}
+
+
+def format_table(result: Mapping[str, object]) -> str:
+    """The result as a plain-text table: figure, value, target and whether it is met."""
+    met = result["met"]
+    lines = [f"benchmark: {result['rows']} readings, {result['machines']} machines",
+             f"{'figure':<20} {'value':>12}  {'target':<10} met"]
+    for key in _UNITS:
+        value = result[key]
+        shown = "-" if value is None else f"{value:.4g} {_UNITS[key]}".rstrip()
+        target = TARGETS.get(key)
+        target_text = ""
+        if target:
+            (bound, limit), = target.items()
+            target_text = ("<= " if bound == "at_most" else ">= ") + f"{limit:g}"
+        verdict = "" if key not in met else {True: "yes", False: "NO", None: "-"}[met[key]]
+        lines.append(f"{key:<20} {shown:>12}  {target_text:<10} {verdict}")
+    if result["scaling"]:
+        lines.append("scaling of derive:")
+        lines += [f"  {item['rows']:>10} readings  {item['derive_s']:.4g} s"
+                  for item in result["scaling"]]
+    return "\n".join(lines)
+
+
+def _rows_list(text: str) -> list[int]:
+    try:
+        sizes = [int(part) for part in text.split(",") if part.strip()]
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a list of whole numbers") from None
+    if not sizes or min(sizes) < 1:
+        raise argparse.ArgumentTypeError("sizes must be whole numbers of at least 1")
+    return sizes
+
+
+def _positive(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError("must be at least 1")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of ``python -m engine.bench``."""
+    parser = argparse.ArgumentParser(
+        prog="python -m engine.bench",
+        description="Benchmark of the evaluation on synthetic readings of every carrier kind.")
+    parser.add_argument("--rows", type=_positive, default=DEFAULT_ROWS,
+                        help=f"readings N (default {DEFAULT_ROWS})")
+    parser.add_argument("--machines", type=_positive, default=DEFAULT_MACHINES,
+                        help=f"machines M (default {DEFAULT_MACHINES})")
+    parser.add_argument("--json", action="store_true", help="print one JSON object")
+    parser.add_argument("--scaling", action=argparse.BooleanOptionalAction, default=True,
+                        help="also time derive at 10^4, 10^5 and 10^6 readings (default on)")
+    parser.add_argument("--scaling-rows", type=_rows_list, default=None, help=argparse.SUPPRESS)
+    parser.add_argument("--per-row-sample", type=_positive, default=PER_ROW_SAMPLE,
+                        help=argparse.SUPPRESS)
+    parser.add_argument("--keep", type=Path, help="keep the generated files in this folder")
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the benchmark; print the table or the JSON object; return 0."""
+    args = build_parser().parse_args(argv)
+    scaling_rows = (args.scaling_rows or list(SCALING_ROWS)) if args.scaling else []
+    result = run_benchmark(args.rows, args.machines, scaling_rows, args.keep,
+                           args.per_row_sample)
+    if args.json:
+        print(json.dumps(result))
+    else:
+        print(format_table(result))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
