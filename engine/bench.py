@@ -758,7 +758,18 @@ def _ratio(numerator: float, denominator: float) -> float:
     return numerator / denominator if denominator > 0 else math.inf
 
 
-def _met(result: Mapping[str, object]) -> dict[str, bool | None]:
+def targets_met(result: Mapping[str, object]) -> dict[str, bool | None]:
+    """Whether each figure of :data:`TARGETS` is within its bound (None where not measured).
+
+    Parameters
+    ----------
+    result : mapping
+        Figures by key, as in :func:`run_benchmark`.
+
+    Returns
+    -------
+    dict of str to bool or None
+    """
     met: dict[str, bool | None] = {}
     for key, target in TARGETS.items():
         value = result.get(key)
@@ -856,7 +867,7 @@ def run_benchmark(rows: int = DEFAULT_ROWS, machines: int = DEFAULT_MACHINES,
         "growth_exponent": exponent,
         "targets": TARGETS,
     }
-    result["met"] = _met(result)
+    result["met"] = targets_met(result)
     return {key: result[key] for key in RESULT_KEYS}
 
 

@@ -45,6 +45,8 @@ PALETTE: tuple[str, ...] = (
 FLAGGED_COLOUR = "#8C8C8C"
 #: Traces with more points than this are drawn with WebGL.
 WEBGL_THRESHOLD = 20_000
+#: Most readings one trace draws; more are thinned to evenly spaced ones.
+MAX_DRAWN_POINTS = 25_000
 #: What an empty chart says.
 NO_READINGS = "No readings to show"
 #: Reference relative humidity of the humidity fit [%], unless told otherwise.
@@ -127,23 +129,36 @@ def _floats(frame: pd.DataFrame, column: str) -> np.ndarray:
     return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
+def _coded_text(series: pd.Series) -> tuple[np.ndarray, list[str]]:
+    """Codes and their texts for a text column (missing as ""), without a per-row loop.
+
+    Factorising first keeps this fast for hundreds of thousands of rows of few distinct texts.
+    """
+    codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    texts = ["" if pd.isna(value) else str(value) for value in uniques] + [""]
+    return np.where(codes < 0, len(texts) - 1, codes), texts
+
+
 def _flagged(frame: pd.DataFrame) -> np.ndarray:
     """True where a reading carries at least one flag."""
     if col.FLAGS not in frame:
         return np.zeros(len(frame), dtype=bool)
-    flags = frame[col.FLAGS].astype(object).where(frame[col.FLAGS].notna(), "").astype(str)
-    return (flags.str.strip() != "").to_numpy(dtype=bool)
+    codes, texts = _coded_text(frame[col.FLAGS])
+    return np.array([bool(text.strip()) for text in texts], dtype=bool)[codes]
 
 
 def _machine_column(frame: pd.DataFrame) -> np.ndarray:
     if col.MACHINE not in frame:
         return np.full(len(frame), "", dtype=object)
-    machines = frame[col.MACHINE]
-    return machines.astype(object).where(machines.notna(), "").astype(str).to_numpy(dtype=object)
+    codes, texts = _coded_text(frame[col.MACHINE])
+    return np.array(texts, dtype=object)[codes]
 
 
 def _machine_ids(frame: pd.DataFrame) -> list[str]:
-    return sorted({machine_id for machine_id in _machine_column(frame) if machine_id})
+    if col.MACHINE not in frame:
+        return []
+    _codes, texts = _coded_text(frame[col.MACHINE])
+    return sorted({text for text in texts if text})
 
 
 def _label(machines: Mapping[str, Machine], machine_id: str) -> str:
@@ -158,8 +173,24 @@ def _colours_for(colours: Mapping[str, str] | None, machine_ids: Sequence[str]) 
     return chosen
 
 
+def _thinned(points: int, value: object, keep: np.ndarray) -> object:
+    if isinstance(value, dict):
+        return {key: _thinned(points, item, keep) for key, item in value.items()}
+    if isinstance(value, (np.ndarray, pd.Series, list, tuple)) and len(value) == points:
+        return np.asarray(value)[keep]
+    return value
+
+
 def _scatter(points: int, **trace: object) -> go.Scatter | go.Scattergl:
-    """A scatter trace, WebGL when it holds more than :data:`WEBGL_THRESHOLD` points."""
+    """A scatter trace, WebGL when it holds more than :data:`WEBGL_THRESHOLD` points.
+
+    Above :data:`MAX_DRAWN_POINTS` the trace keeps evenly spaced readings only (in their order,
+    so a day's course keeps its shape): the browser stays smooth, and the fits, computed
+    elsewhere, still use every reading.
+    """
+    if points > MAX_DRAWN_POINTS:
+        keep = np.linspace(0, points - 1, MAX_DRAWN_POINTS).round().astype(np.int64)
+        trace = {key: _thinned(points, value, keep) for key, value in trace.items()}
     if points > WEBGL_THRESHOLD:
         return go.Scattergl(**trace)
     return go.Scatter(**trace)

@@ -70,6 +70,10 @@ bottom_right.plotly_chart(figures.efficiency_vs_humidity(shown, **arguments,
                                                         reference_rh_pct=reference_rh * 100),
                           key="compare-humidity")
 
+if len(shown) > figures.MAX_DRAWN_POINTS:
+    st.caption(f"The charts draw at most {figures.MAX_DRAWN_POINTS:,} evenly spaced readings per "
+               "machine so that the browser stays quick; the fits and the table use all "
+               f"{len(shown):,}.")
 flagged = int((shown[col.FLAGS] != "").sum())
 st.subheader("Findings")
 st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "

@@ -536,3 +536,18 @@ def test_planner_curve_doubles_with_speed_and_scales_with_density(machines):
     reference = machine_ceiling(machines["cyl-c"], 2.0, pressure_pa=REFERENCE_PRESSURE_PA,
                                 temperature_k=REFERENCE_TEMPERATURE_K).ceiling_current_a
     assert sea.y[0] == pytest.approx(float(reference) * 1e6)
+
+
+def test_a_very_large_trace_is_thinned_evenly_but_keeps_its_ends():
+    from engine.figures import MAX_DRAWN_POINTS, _scatter
+
+    points = 100_000
+    x = np.arange(points, dtype=float)
+    trace = _scatter(points, x=x, y=2 * x, mode="markers",
+                     error_y={"type": "data", "array": x / 10})
+    assert isinstance(trace, go.Scattergl)
+    assert len(trace.x) == len(trace.y) == len(trace.error_y.array) == MAX_DRAWN_POINTS
+    assert trace.x[0] == 0 and trace.x[-1] == points - 1
+    np.testing.assert_allclose(trace.y, 2 * np.asarray(trace.x))  # x and y stay paired
+    small = _scatter(100, x=x[:100], y=x[:100])
+    assert len(small.x) == 100
