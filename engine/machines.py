@@ -37,7 +37,13 @@ from pathlib import Path
 from engine.air import REFERENCE_BREAKDOWN_FIELD_V_M, REFERENCE_TEMPERATURE_K, site_pressure
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS, Carrier, carrier_from_spec
 from engine.errors import InputError
-from engine.units import Tolerance, parse_quantity, parse_tolerance
+from engine.units import (
+    Tolerance,
+    parse_quantity,
+    parse_tolerance,
+    speed_unit_conversion,
+    split_quantity,
+)
 
 MACHINE_ID_PATTERN = re.compile(r"^[A-Za-z0-9_-]{1,64}$")
 #: Largest machines file read [bytes].
@@ -244,6 +250,8 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
                 tolerances[key] = Tolerance(abs(float(text)), relative=False)
                 continue
         tolerances[key] = parse_tolerance(text, kind_of_key, f"{where}: tolerance {key}")
+        if key == "speed" and not tolerances[key].relative:
+            _check_speed_tolerance_kind(carrier, str(text), where)
     return Machine(
         id=machine_id,
         label=_text_field(table, "label", where) or machine_id,
@@ -258,6 +266,17 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         tolerance_spec={key: tolerance_table[key] for key in tolerance_table},
         breakdown_field_text=field_text if isinstance(field_text, str) else "",
     )
+
+
+def _check_speed_tolerance_kind(carrier: Carrier, text: str, where: str) -> None:
+    """An absolute speed tolerance must be in the kind of speed the machine is read in."""
+    _number, unit_text = split_quantity(text, f"{where}: tolerance speed")
+    _scale, speed_kind = speed_unit_conversion(unit_text, f"{where}: tolerance speed")
+    if speed_kind not in carrier.speed_kinds:
+        wanted = "a rotation rate such as '3 rpm'" if speed_kind == "linear" else \
+            "a belt speed such as '0.05 m/s'"
+        raise InputError(f"{where}: tolerance speed '{text}' must be {wanted}, or a "
+                         "percentage such as '2 %'")
 
 
 def site_from_table(table: Mapping[str, object], where: str = "site") -> Site:

@@ -289,11 +289,10 @@ def test_efficiency_uncertainty_matches_uncertainties_package(machine_id, change
     assert derived[col.EFFICIENCY_U][0] == pytest.approx(expected.std_dev, rel=1e-9)
 
 
-def test_speed_tolerance_in_metres_per_second_for_a_disc_gives_unknown_uncertainty():
-    machines = {"twin": make_machine("twin", tolerance={"speed": "0.05 m/s"})}
-    derived = derive(frame("twin", 7e-6, speed_rev_s=5.0), machines)
-    assert math.isfinite(derived[col.EFFICIENCY][0])
-    assert math.isnan(derived[col.EFFICIENCY_U][0])
+def test_speed_tolerance_in_metres_per_second_for_a_disc_is_refused_at_the_file():
+    # The machines file refuses it, so no reading ever gets an uncertainty it cannot have.
+    with pytest.raises(InputError, match="must be a rotation rate"):
+        make_machine("twin", tolerance={"speed": "0.05 m/s"})
 
 
 def test_zero_current_with_absolute_tolerance_keeps_a_finite_uncertainty():

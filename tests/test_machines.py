@@ -95,6 +95,7 @@ def test_text_with_quotes_and_newlines_round_trips():
          "breakdown_field needs an electric field"),
         (('speed = "2 %"', 'spede = "2 %"'), "tolerance 'spede' is not known"),
         (('speed = "2 %"', 'speed = "2 kg"'), "tolerance speed"),
+        (('speed = "2 %"', 'speed = "0.05 m/s"'), "must be a rotation rate"),
         (('id = "school-belt"', 'id = "gallery-twin"'), "machine id 'gallery-twin' is used twice"),
         (('id = "school-belt"', 'id = "school belt!"'), "must be 1 to 64 letters"),
         (('id = "sketch"\n', ''), "machine 4: the key 'id' is missing"),
