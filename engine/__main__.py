@@ -241,10 +241,11 @@ def _command_evaluate(args: argparse.Namespace) -> int:
         suffix = target.suffix.lower()
         if suffix not in {".csv", ".xlsx"}:
             raise InputError(f"--output must end in .csv or .xlsx, got '{target.name}'")
-        data = (report.to_xlsx_bytes(table) if suffix == ".xlsx"
-                else report.to_csv_bytes(table))
         try:
-            target.write_bytes(data)
+            if suffix == ".xlsx":
+                target.write_bytes(report.to_xlsx_bytes(table))
+            else:
+                report.write_csv(table, target)
         except OSError as error:
             raise InputError(f"{target}: cannot be written ({error.strerror or error})") from None
         if not args.json:
@@ -252,7 +253,8 @@ def _command_evaluate(args: argparse.Namespace) -> int:
     if args.json:
         print(table.to_json(orient="records", date_format="iso"))
     elif not args.output:
-        sys.stdout.write(report.to_csv_bytes(table).decode("utf-8"))
+        sys.stdout.flush()
+        report.write_csv(table, sys.stdout.buffer)
     return 0
 
 

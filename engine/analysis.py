@@ -21,7 +21,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import optimize, special, stats
 
 from engine import columns as col
 from engine.air import (
@@ -85,6 +84,8 @@ def t_critical(degrees_of_freedom, confidence: float = CONFIDENCE):
     float or numpy.ndarray
         t such that P(|T| <= t) = confidence.
     """
+    from scipy import stats  # imported when first needed: evaluate never fits
+
     return stats.t.ppf(0.5 + confidence / 2.0, degrees_of_freedom)
 
 
@@ -385,10 +386,14 @@ def logistic_efficiency(relative_humidity, dry_efficiency, rh_half, width):
     sets in above 60 to 70 % relative humidity.
     """
     relative_humidity = np.asarray(relative_humidity, dtype=float)
+    from scipy import special
+
     return dry_efficiency * special.expit(-(relative_humidity - rh_half) / width)
 
 
 def _logistic_jacobian(relative_humidity, dry_efficiency, rh_half, width):
+    from scipy import special
+
     share = special.expit(-(relative_humidity - rh_half) / width)
     slope = dry_efficiency * share * (1.0 - share) / width
     return np.column_stack([share, slope, slope * (relative_humidity - rh_half) / width])
@@ -973,6 +978,7 @@ def _humidity_findings(row: dict, notes: list[str], used: np.ndarray,
 
 def _logistic_findings(row: dict, notes: list[str], rh: np.ndarray, efficiency: np.ndarray,
                        span: float) -> None:
+    from scipy import optimize
     if rh.size < LOGISTIC_MIN_READINGS:
         notes.append(f"logistic decline not fitted: fewer than {LOGISTIC_MIN_READINGS} "
                      "usable readings with humidity")

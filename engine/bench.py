@@ -33,7 +33,10 @@ measures on the same data, in one run:
 with ``derive_vs_floor`` = derive_s / numpy_floor_s, ``speedup_vs_per_row`` =
 per_row_s / derive_s, and ``derive_s`` again at 10^4, 10^5 and 10^6 readings with the growth
 exponent b of cost ~ N^b (least squares of log time on log N). Each in-process time is the
-best of a few runs (the machine is shared, the minimum is the least disturbed run).
+best of a few runs with the garbage collector off (the machine is shared: the minimum is the
+least disturbed run); derive and the floor take turns, so that load from other programs falls
+on both alike. The evaluate process's CPU time and the load average go to stderr beside its
+wall time.
 
 The synthetic readings file has the canonical layout (``machine,session,time,speed [rpm],
 current [uA],rh [%],temperature [degC],pressure [hPa],note``), one reading per machine and
@@ -63,7 +66,6 @@ import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TypeVar
 
 import numpy as np
 import pandas as pd
@@ -118,9 +120,6 @@ _BASE_SPEED = {"disc": 90.0, "belt-roller": 600.0, "belt-linear": 2.0, "cylinder
                "custom": 100.0}
 # Decimals written to the files (what a meter or logger shows).
 _DECIMALS = {"rpm": 2, "m/s": 3, "uA": 4, "rh": 1, "degC": 2, "hPa": 1}
-
-_T = TypeVar("_T")
-
 
 def _progress(message: str) -> None:
     print(message, file=sys.stderr, flush=True)
@@ -639,26 +638,35 @@ def per_row_evaluate(cells: Sequence[tuple[str, ...]], machine_file: MachineFile
 
 # --- Timing -----------------------------------------------------------------------------------
 
-def _best_time(work: Callable[[], _T], least_runs: int = 3, most_runs: int = 7,
-               budget_s: float = 3.0) -> tuple[float, _T]:
-    """Shortest wall time of a few runs of ``work`` [s] and the result of the last run.
+def _best_times(works: Mapping[str, Callable[[], object]], least_runs: int = 3,
+                most_runs: int = 9, budget_s: float = 5.0
+                ) -> tuple[dict[str, float], dict[str, object]]:
+    """Shortest wall time of each of a few works [s] and the result of each one's last run.
 
-    Runs at least ``least_runs`` times, then more while the total stays within ``budget_s``.
+    The works take turns, so that a spell of load from other programs on the shared machine
+    falls on all of them alike. Each runs at least ``least_runs`` times, then more while the
+    total stays within ``budget_s``. The garbage collector is off while a work runs, as in
+    :mod:`timeit`.
     """
-    best = math.inf
+    best = dict.fromkeys(works, math.inf)
+    results: dict[str, object] = dict.fromkeys(works)
     total = 0.0
     runs = 0
-    result = None
-    while runs < least_runs or (runs < most_runs and total + best <= budget_s):
-        result = None  # free the previous result before the next run
-        gc.collect()
-        start = time.perf_counter()
-        result = work()
-        elapsed = time.perf_counter() - start
-        best = min(best, elapsed)
-        total += elapsed
+    while runs < least_runs or (runs < most_runs and total + sum(best.values()) <= budget_s):
+        for name, work in works.items():
+            results[name] = None  # free the previous result before the next run
+            gc.collect()
+            gc.disable()
+            try:
+                start = time.perf_counter()
+                results[name] = work()
+                elapsed = time.perf_counter() - start
+            finally:
+                gc.enable()
+            best[name] = min(best[name], elapsed)
+            total += elapsed
         runs += 1
-    return best, result  # type: ignore[return-value]
+    return best, results
 
 
 def growth_exponent(rows: Sequence[float], seconds: Sequence[float]) -> float:
@@ -686,17 +694,22 @@ def _merged(data: SyntheticData) -> pd.DataFrame:
     return merge_environment(data.readings, data.environment)
 
 
-def _time_derive(frame: pd.DataFrame, machine_file: MachineFile) -> tuple[float, pd.DataFrame]:
-    return _best_time(lambda: analysis.derive(frame, machine_file))
-
-
-def _time_floor(inputs: Mapping[str, np.ndarray], machine_file: MachineFile) -> float:
+def _time_derive_and_floor(frame: pd.DataFrame, machine_codes: np.ndarray,
+                           machine_file: MachineFile) -> tuple[float, float, pd.DataFrame]:
+    """Best times of derive and of the numpy floor on the same readings, and derive's frame."""
+    inputs = floor_inputs(frame, machine_codes)
     constants = floor_constants(machine_file)
     site = machine_file.site
-    seconds, _result = _best_time(
-        lambda: numpy_floor(inputs, constants, site.pressure_pa, site.temperature_k),
-        least_runs=5)
-    return seconds
+    times, results = _best_times({
+        "derive": lambda: analysis.derive(frame, machine_file),
+        "floor": lambda: numpy_floor(inputs, constants, site.pressure_pa, site.temperature_k),
+    }, least_runs=5)
+    return times["derive"], times["floor"], results["derive"]  # type: ignore[return-value]
+
+
+def _time_derive(frame: pd.DataFrame, machine_file: MachineFile) -> float:
+    times, _results = _best_times({"derive": lambda: analysis.derive(frame, machine_file)})
+    return times["derive"]
 
 
 def _time_per_row(merged: pd.DataFrame, machine_file: MachineFile, sample: int) -> float:
@@ -711,9 +724,9 @@ def _time_per_row(merged: pd.DataFrame, machine_file: MachineFile, sample: int) 
 
 
 def _time_summary(derived: pd.DataFrame, machine_file: MachineFile) -> float:
-    seconds, _result = _best_time(lambda: analysis.findings(derived, machine_file),
-                                  least_runs=1, most_runs=3)
-    return seconds
+    times, _results = _best_times({"summary": lambda: analysis.findings(derived, machine_file)},
+                                  least_runs=2, most_runs=3)
+    return times["summary"]
 
 
 def _run_evaluate(files: BenchFiles, folder: Path, rows: int) -> tuple[float, float]:
@@ -729,10 +742,18 @@ def _run_evaluate(files: BenchFiles, folder: Path, rows: int) -> tuple[float, fl
     with open(folder / "evaluate.out", "wb") as out, open(folder / "evaluate.err", "wb") as err:
         start = time.perf_counter()
         process = subprocess.Popen(command, cwd=root, env=environment, stdout=out, stderr=err)
-        # wait4 gives this child's own resource usage; ru_maxrss is in KiB on Linux
-        _pid, status, usage = os.wait4(process.pid, 0)
+        try:
+            # wait4 gives this child's own resource usage; ru_maxrss is in KiB on Linux
+            _pid, status, usage = os.wait4(process.pid, 0)
+        except BaseException:  # interrupted: end the child started here, then pass it on
+            process.kill()
+            process.wait()
+            raise
         elapsed = time.perf_counter() - start
     process.returncode = os.waitstatus_to_exitcode(status)
+    # CPU time beside wall time tells the process's own cost from waiting for a shared core.
+    _progress(f"evaluate: {elapsed:.3g} s wall, {usage.ru_utime + usage.ru_stime:.3g} s CPU, "
+              f"load average {os.getloadavg()[0]:.2f}")
     if process.returncode != 0:
         message = (folder / "evaluate.err").read_text(encoding="utf-8", errors="replace")
         raise RuntimeError(f"evaluate failed with status {process.returncode}: {message}")
@@ -811,16 +832,16 @@ def run_benchmark(rows: int = DEFAULT_ROWS, machines: int = DEFAULT_MACHINES,
         raise ValueError("rows and machines must be at least 1")
     folder = Path(keep) if keep is not None else Path(tempfile.mkdtemp(prefix="ceiling-bench-"))
     try:
-        _progress(f"generating {rows} readings of {machines} machines...")
+        _progress(f"generating {rows} readings of {machines} machines (load average "
+                  f"{os.getloadavg()[0]:.2f})...")
         machine_file = synthetic_machines(machines)
         data = synthetic_data(machine_file, rows)
         files = write_files(data, folder)
         merged = _merged(data)
 
-        _progress("derive...")
-        derive_s, derived = _time_derive(merged, machine_file)
-        _progress("numpy floor...")
-        floor_s = _time_floor(floor_inputs(merged, data.machine_codes), machine_file)
+        _progress("derive and the numpy floor, in turns...")
+        derive_s, floor_s, derived = _time_derive_and_floor(merged, data.machine_codes,
+                                                            machine_file)
         sample = min(per_row_sample, rows)
         _progress(f"per-row (pint) on {sample} readings...")
         per_row_s = _time_per_row(merged, machine_file, sample)
@@ -841,8 +862,8 @@ def run_benchmark(rows: int = DEFAULT_ROWS, machines: int = DEFAULT_MACHINES,
                 continue
             _progress(f"scaling: derive at {size} readings...")
             frame = _merged(synthetic_data(machine_file, int(size)))
-            seconds, _derived = _time_derive(frame, machine_file)
-            del frame, _derived
+            seconds = _time_derive(frame, machine_file)
+            frame = None
             scaling.append({"rows": int(size), "derive_s": seconds})
         exponent = (growth_exponent([item["rows"] for item in scaling],
                                     [item["derive_s"] for item in scaling])
@@ -920,6 +941,17 @@ def _positive(text: str) -> int:
     return value
 
 
+def _finite(value: object) -> object:
+    """The value with every non-finite float replaced by None, for strict JSON."""
+    if isinstance(value, dict):
+        return {key: _finite(item) for key, item in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_finite(item) for item in value]
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
     """The argument parser of ``python -m engine.bench``."""
     parser = argparse.ArgumentParser(
@@ -935,7 +967,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--scaling-rows", type=_rows_list, default=None, help=argparse.SUPPRESS)
     parser.add_argument("--per-row-sample", type=_positive, default=PER_ROW_SAMPLE,
                         help=argparse.SUPPRESS)
-    parser.add_argument("--keep", type=Path, help="keep the generated files in this folder")
+    parser.add_argument("--keep", type=Path, help="keep the generated files (and the evaluate "
+                        "output and the store) in this folder; default a temporary folder")
     return parser
 
 
@@ -946,7 +979,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     result = run_benchmark(args.rows, args.machines, scaling_rows, args.keep,
                            args.per_row_sample)
     if args.json:
-        print(json.dumps(result))
+        print(json.dumps(_finite(result)))
     else:
         print(format_table(result))
     return 0

@@ -18,10 +18,14 @@ import math
 import re
 from collections.abc import Mapping, Sequence
 from datetime import date, datetime
+from pathlib import Path
+from typing import BinaryIO
 
 import numpy as np
 import pandas as pd
 import plotly.io as pio
+import pyarrow as pa
+import pyarrow.csv as pa_csv
 from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
 
 from engine import columns as col
@@ -63,11 +67,14 @@ def _floats(frame: pd.DataFrame, column: str) -> np.ndarray:
     return pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
 
 
-def _texts(frame: pd.DataFrame, column: str) -> np.ndarray:
+def _texts(frame: pd.DataFrame, column: str) -> pd.Series:
+    """A text column with missing cells as "", kept in pandas' own text type (no object copy)."""
     if column not in frame:
-        return np.full(len(frame), "", dtype=object)
+        return pd.Series("", index=pd.RangeIndex(len(frame)), dtype="string")
     values = frame[column]
-    return values.astype(object).where(values.notna(), "").astype(str).to_numpy(dtype=object)
+    if not pd.api.types.is_string_dtype(values) or pd.api.types.is_object_dtype(values):
+        values = values.astype(object).where(values.notna(), "").astype(str)
+    return values.fillna("").astype("string").reset_index(drop=True)
 
 
 def _offset_text(minutes: int) -> str:
@@ -94,20 +101,25 @@ def iso_text(times: pd.Series) -> pd.Series:
     if not pd.api.types.is_datetime64_any_dtype(times):
         times = pd.to_datetime(times, errors="coerce", utc=True, format="mixed")
     zone = getattr(times.dt, "tz", None)
-    wall = times.dt.tz_localize(None) if zone is not None else times
-    stamps = wall.to_numpy(dtype="datetime64[us]")
-    known = ~np.isnat(stamps)
-    fractional = bool((stamps[known].astype(np.int64) % 1_000_000 != 0).any())
-    text = np.datetime_as_string(stamps, unit="us" if fractional else "s")
+    instants = (times.dt.tz_convert("UTC").dt.tz_localize(None) if zone is not None
+                else times).to_numpy(dtype="datetime64[us]")
+    known = ~np.isnat(instants)
+    # Readings repeat instants (several machines a second): format each instant once.
+    distinct, where_known = np.unique(instants[known], return_inverse=True)
+    fractional = bool((distinct.astype(np.int64) % 1_000_000 != 0).any())
+    unit = "us" if fractional else "s"
     if zone is not None:
-        utc = times.dt.tz_convert("UTC").dt.tz_localize(None).to_numpy(dtype="datetime64[us]")
-        offset_min = np.zeros(len(stamps), dtype=np.int64)
-        offset_min[known] = (stamps[known] - utc[known]).astype("timedelta64[m]").astype(np.int64)
+        wall = (pd.DatetimeIndex(distinct).tz_localize("UTC").tz_convert(zone)
+                .tz_localize(None).to_numpy(dtype="datetime64[us]"))
+        offset_min = (wall - distinct).astype("timedelta64[m]").astype(np.int64)
         # few distinct offsets (one per zone and season): format each once
-        distinct, where = np.unique(offset_min, return_inverse=True)
-        labels = np.array([_offset_text(int(value)) for value in distinct], dtype=object)
-        text = text.astype(object) + labels[where]
-    result = np.where(known, text, "").astype(object)
+        offsets, where_offset = np.unique(offset_min, return_inverse=True)
+        labels = np.array([_offset_text(int(value)) for value in offsets], dtype=object)
+        text = np.datetime_as_string(wall, unit=unit).astype(object) + labels[where_offset]
+    else:
+        text = np.datetime_as_string(distinct, unit=unit).astype(object)
+    result = np.full(len(instants), "", dtype=object)
+    result[known] = text[where_known]
     return pd.Series(result, index=times.index, dtype=object)
 
 
@@ -131,7 +143,7 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
     times = derived[col.TIME] if col.TIME in derived else pd.Series(pd.NaT, index=derived.index)
     out = {
         "machine": _texts(derived, col.MACHINE),
-        "time": iso_text(times).to_numpy(dtype=object),
+        "time": iso_text(times).to_numpy(dtype=object),  # ISO text, "" when unknown
         "speed_rev_s": _floats(derived, col.SPEED_REV_S),
         "current_uA": to_display(_floats(derived, col.CURRENT_A), "current", "uA"),
         "ceiling_uA": to_display(_floats(derived, col.CEILING_A), "current", "uA"),
@@ -239,24 +251,85 @@ def _export_ready(frame: pd.DataFrame, replace_illegal: bool = False) -> pd.Data
     return ready
 
 
-def to_csv_bytes(frame: pd.DataFrame) -> bytes:
-    """A frame as UTF-8 CSV, text cells neutralised against formula injection.
+def round_significant(values: np.ndarray, digits: int = 12) -> np.ndarray:
+    """Round to ``digits`` significant digits, vectorised, so that 12e-6 * 1e6 prints as 12.
+
+    Parameters
+    ----------
+    values : numpy.ndarray
+        Floats; NaN, infinities and zeros pass unchanged.
+    digits : int
+        Significant digits kept.
+
+    Returns
+    -------
+    numpy.ndarray
+        The rounded values. Scaling by an exact power of ten and dividing back gives the double
+        nearest to the rounded decimal, whose shortest text has at most ``digits`` digits.
+    """
+    values = np.asarray(values, dtype=float)
+    result = values.copy()
+    finite = np.isfinite(values) & (values != 0)
+    if not finite.any():
+        return result
+    exponent = digits - 1 - np.floor(np.log10(np.abs(values[finite]))).astype(np.int64)
+    # Powers of ten up to 1e22 are exact doubles; beyond that the value is left as it is.
+    usable = np.abs(exponent) <= 22
+    chosen = values[finite]
+    up = usable & (exponent >= 0)
+    down = usable & (exponent < 0)
+    power_up = 10.0 ** exponent[up]
+    power_down = 10.0 ** -exponent[down]
+    chosen[up] = np.round(chosen[up] * power_up) / power_up
+    chosen[down] = np.round(chosen[down] / power_down) * power_down
+    result[finite] = chosen
+    return result
+
+
+def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
+    """Write a frame as UTF-8 CSV, text cells neutralised against formula injection.
 
     Parameters
     ----------
     frame : pandas.DataFrame
         Typically :func:`output_frame` or the findings.
+    target : str, Path or binary file
+        Where to write; streamed, so a million readings are never held twice in memory.
 
-    Returns
-    -------
-    bytes
-        Comma-separated text, CRLF rows, a header row and no index; numbers to 12 significant
-        digits; interval columns (2-item lists) split into ``<name>_low`` and ``<name>_high``.
+    Notes
+    -----
+    Comma-separated, CRLF rows (RFC 4180), a header row and no index. Text cells are quoted;
+    numbers are rounded to 12 significant digits (:func:`round_significant`), empty where
+    unknown. Interval columns (2-item lists) are split into ``<name>_low`` and
+    ``<name>_high``. Written with Arrow's CSV writer, which formats in compiled code.
     """
     ready = _export_ready(frame)
-    # CRLF rows (RFC 4180): the csv writer then quotes any cell holding a \r or a \n
-    return ready.to_csv(index=False, float_format=_FLOAT_FORMAT, lineterminator="\r\n").encode(
-        "utf-8")
+    arrays = {}
+    for name in ready.columns:
+        series = ready[name]
+        if _is_text_column(series):
+            # pandas' text type converts any other cell with str(), missing cells stay empty
+            arrays[name] = pa.array(series.astype("string"), type=pa.string(),
+                                    from_pandas=True)
+        elif pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
+            arrays[name] = pa.array(series.to_numpy())
+        else:
+            values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
+            arrays[name] = pa.array(round_significant(values), from_pandas=True)
+    table = pa.table(arrays) if arrays else pa.table({})
+    options = pa_csv.WriteOptions(include_header=True, quoting_style="needed",
+                                  quoting_header="none", eol="\r\n")
+    if isinstance(target, (str, Path)):
+        pa_csv.write_csv(table, str(target), write_options=options)
+    else:
+        pa_csv.write_csv(table, target, write_options=options)
+
+
+def to_csv_bytes(frame: pd.DataFrame) -> bytes:
+    """A frame as UTF-8 CSV bytes (see :func:`write_csv` for the layout)."""
+    buffer = io.BytesIO()
+    write_csv(frame, buffer)
+    return buffer.getvalue()
 
 
 def _sheet_title(name: str) -> str:

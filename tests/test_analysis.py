@@ -572,7 +572,9 @@ def test_failed_logistic_fit_is_reported_not_raised(monkeypatch):
     def failing_fit(*args, **kwargs):
         raise RuntimeError("Optimal parameters not found")
 
-    monkeypatch.setattr(analysis.optimize, "curve_fit", failing_fit)
+    import scipy.optimize
+
+    monkeypatch.setattr(scipy.optimize, "curve_fit", failing_fit)
     machines = machines_of("twin")
     row = findings(derive(_humidity_frame("twin", efficiency, rh, rng), machines),
                    machines).iloc[0]
