@@ -15,6 +15,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import re
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -119,7 +120,16 @@ def _format_summary(figures: dict[str, object], label: str) -> str:
 def _command_ceiling(args: argparse.Namespace) -> int:
     spec = {key: getattr(args, key) for key in _GEOMETRY_OPTIONS
             if getattr(args, key) is not None}
-    carrier = carrier_from_spec(args.carrier, spec, f"{args.carrier} carrier")
+    try:
+        carrier = carrier_from_spec(args.carrier, spec, f"{args.carrier} carrier")
+    except InputError as error:
+        # Name the options as typed on the command line, not the machines-file keys.
+        message = str(error)
+        for key in sorted(_GEOMETRY_OPTIONS, key=len, reverse=True):
+            message = re.sub(rf"(?<![\w-]){key}(?!\w)", "--" + key.replace("_", "-"), message)
+        message = re.sub(r"is not a (\w+) key; \w+ keys are", r"is not an option for a \1; "
+                         r"its options are", message)
+        raise InputError(message) from None
     reference_field = (parse_quantity(args.breakdown_field, "electric_field",
                                       "--breakdown-field") if args.breakdown_field else None)
     if reference_field is not None and not reference_field > 0:
@@ -159,7 +169,7 @@ def _command_machines(args: argparse.Namespace) -> int:
             if speed[1] not in machine.carrier.speed_kinds:
                 wanted = "a linear speed (m/s)" if speed[1] == ROTATION else "a rotation rate"
                 row.update(ceiling_current_uA=None,
-                           note=f"this {machine.kind} needs {wanted} for its ceiling")
+                           note=f"this {machine.kind} carrier needs {wanted} for its ceiling")
             else:
                 row.update(ceiling_figures(machine, speed[0], speed[1],
                                            machine_file.site.pressure_pa,
@@ -175,8 +185,8 @@ def _command_machines(args: argparse.Namespace) -> int:
     if speed is not None:
         header += f" {'ceiling [uA]':>13}"
     print(header)
-    for row in rows:
-        area = row["area_per_rev_m2"]
+    for row, machine in zip(rows, machine_file.machines, strict=True):
+        area = machine.carrier.area_per_rev_m2  # the machine's own, whatever the speed
         line = (f"{row['id']:<24} {row['carrier']:<9} {row['carriers']:>3} "
                 f"{(f'{area:.5g}' if area is not None else 'linear only'):>15}")
         if speed is not None:
@@ -219,6 +229,10 @@ def _derived_from_files(args: argparse.Namespace):
     messages = list(result.messages)
     if args.machine and result.mapping.get("machine"):
         keep = frame[columns.MACHINE] == args.machine
+        if not keep.any():
+            found = ", ".join(sorted(frame[columns.MACHINE].dropna().astype(str).unique())[:10])
+            raise InputError(f"{args.readings}: no readings of machine '{args.machine}'; the "
+                             f"file has readings of {found or 'no machine'}")
         messages.append(f"kept the {int(keep.sum())} readings of machine '{args.machine}'")
         frame = frame[keep]
     if args.environment:

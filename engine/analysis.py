@@ -1203,10 +1203,18 @@ def _verdict(session_a: str, session_b: str, raw: float, raw_ci, adjusted: float
         condition = "on average, without adjustment for speed or humidity"
     half = (interval[1] - interval[0]) / 2
     shown, shown_half = _round_pair(abs(value) * 100, half * 100)
+    raw_half = (raw_ci[1] - raw_ci[0]) / 2 if raw_ci is not None else float("nan")
+    raw_shown, _ = _round_pair(raw * 100, raw_half * 100) if math.isfinite(raw_half) else (
+        f"{raw * 100:+.1f}", "")
+    adjusted_used = value is not raw
     if interval[0] <= 0 <= interval[1]:
         signed, _ = _round_pair(value * 100, half * 100)
-        return (f"No clear difference between '{session_b}' and '{session_a}' {condition}: "
-                f"{signed} ± {shown_half} % points (the 95 % interval includes zero).")
+        verdict = (f"No clear difference between '{session_b}' and '{session_a}' {condition}: "
+                   f"{signed} ± {shown_half} % points (95 % interval, it includes zero).")
+        if adjusted_used and not (raw_ci[0] <= 0 <= raw_ci[1]):
+            verdict += (f" The plain difference of {raw_shown} % points comes from the "
+                        "sessions' different speed or humidity, not from the machine.")
+        return verdict
     direction = "more" if value > 0 else "less"
     return (f"The '{session_b}' session delivers {shown} ± {shown_half} % points {direction} "
-            f"efficiency than '{session_a}' {condition}.")
+            f"efficiency than '{session_a}' {condition} (± is the 95 % interval).")

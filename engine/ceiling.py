@@ -187,12 +187,12 @@ def speed_for_current(machine: Machine, target_current_a: float, speed_kind: str
     return target_current_a / per_unit_speed
 
 
-#: The size the planner varies for each carrier kind, with the others held.
-SIZE_TO_VARY = {
-    "disc": "outer radius (inner radius and sector fill held)",
-    "belt": "width (rollers or loop held)",
-    "cylinder": "active length (radius held)",
-    "custom": "area per revolution",
+#: What the planner keeps as it is while it varies one size of each carrier kind.
+SIZES_HELD = {
+    "disc": "inner radius and sector fill as they are",
+    "belt": "rollers or loop as they are",
+    "cylinder": "radius as it is",
+    "custom": "nothing else to hold",
 }
 
 
@@ -204,7 +204,7 @@ def size_for_current(machine: Machine, target_current_a: float, speed: float,
     Parameters
     ----------
     machine : Machine
-        The machine whose other sizes are held (see :data:`SIZE_TO_VARY`).
+        The machine whose other sizes are held (see :data:`SIZES_HELD`).
     target_current_a : float
         Target ceiling current [A].
     speed : float

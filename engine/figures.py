@@ -217,10 +217,12 @@ def _add_notes(figure: go.Figure, notes: Sequence[str]) -> None:
     """Short notes under the chart: what is not drawn and why."""
     if not notes:
         return
-    figure.add_annotation(text="<br>".join(notes), x=0, y=-0.16, xref="paper", yref="paper",
-                          xanchor="left", yanchor="top", align="left", showarrow=False,
-                          font={"size": 11})
-    figure.update_layout(margin={"b": 90 + 16 * len(notes)})
+    # Under the title, where neither the axis title nor the legend (under the plot) can collide.
+    title = figure.layout.title.text or ""
+    lines = "<br>".join(notes)
+    figure.update_layout(
+        title_text=f"{title}<br><span style='font-size:11px;color:#555555'>{lines}</span>",
+        margin={"t": 70 + 16 * len(notes)})
 
 
 def _style(figure: go.Figure, title: str, x_title: str, y_title: str) -> None:
@@ -874,7 +876,8 @@ def session_timeline(derived: pd.DataFrame | None, machine_id: str,
     figure.update_yaxes(title_text=CURRENT_AXIS, row=1, col=1)
     figure.update_yaxes(title_text=SPEED_AXIS, row=2, col=1)
     figure.update_yaxes(title_text="RH [%]", row=3, col=1, secondary_y=False)
-    figure.update_yaxes(title_text=TEMPERATURE_AXIS, row=3, col=1, secondary_y=True)
+    figure.update_yaxes(title_text=TEMPERATURE_AXIS, row=3, col=1, secondary_y=True,
+                        tickformat=".1f")
     figure.update_yaxes(title_text=EFFICIENCY_AXIS, row=4, col=1)
     figure.update_xaxes(title_text=x_title, row=4, col=1)
     missing = int((~has_x).sum())

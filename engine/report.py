@@ -23,20 +23,10 @@ from typing import BinaryIO
 
 import numpy as np
 import pandas as pd
-import plotly.io as pio
 import pyarrow as pa
 import pyarrow.csv as pa_csv
-from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
 
 from engine import columns as col
-from engine.figures import (
-    DEFAULT_REFERENCE_RH_PCT,
-    charge_per_rev,
-    current_vs_speed,
-    efficiency_vs_humidity,
-    efficiency_vs_speed,
-    machine_colours,
-)
 from engine.machines import Machine
 from engine.units import to_display
 
@@ -240,6 +230,8 @@ def _export_ready(frame: pd.DataFrame, replace_illegal: bool = False) -> pd.Data
         parts[name] = series
     ready = neutralise_frame(pd.DataFrame(parts, index=frame.index))
     if replace_illegal:
+        from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+
         for name in ready.columns:
             if _is_text_column(ready[name]):
                 try:
@@ -626,7 +618,8 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
                 machines: Mapping[str, Machine], title: str,
                 comparisons: pd.DataFrame | Mapping[str, pd.DataFrame] | None = None,
                 notes: str | Sequence[str] | None = None, *,
-                reference_rh_pct: float = DEFAULT_REFERENCE_RH_PCT,
+                reference_rh_pct: float | None = None,
+                colours: Mapping[str, str] | None = None,
                 generated: date | datetime | None = None) -> str:
     """One self-contained HTML document reporting machines, findings and charts.
 
@@ -644,8 +637,10 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
         Comparison tables (e.g. sessions side by side), shown as tables.
     notes : str or sequence of str, optional
         The user's notes, one paragraph each (escaped).
-    reference_rh_pct : float
-        Reference relative humidity of the humidity fit [%].
+    reference_rh_pct : float, optional
+        Reference relative humidity of the humidity fit [%]; default 45.
+    colours : mapping of str to str, optional
+        Colour per machine id, as on the app's pages.
     generated : date or datetime, optional
         Date printed on the report; default today.
 
@@ -656,12 +651,28 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
         notes, the four comparison charts, method, references and safety notes. plotly's
         JavaScript is embedded once; the document loads nothing from the network.
     """
+    # Charts are drawn here only: the exports and the command line never load plotly.
+    import plotly.io as pio
+
+    from engine.figures import (
+        DEFAULT_REFERENCE_RH_PCT,
+        charge_per_rev,
+        current_vs_speed,
+        efficiency_vs_humidity,
+        efficiency_vs_speed,
+        machine_colours,
+    )
+
+    if reference_rh_pct is None:
+        reference_rh_pct = DEFAULT_REFERENCE_RH_PCT
     generated = generated or datetime.now().astimezone()
     day = generated.date() if isinstance(generated, datetime) else generated
     derived = derived if derived is not None else pd.DataFrame()
-    colours = machine_colours(list(machines) + (
+    chosen_colours = machine_colours(list(machines) + (
         list(derived[col.MACHINE].dropna().astype(str).unique())
         if col.MACHINE in derived else []))
+    # The app's own colours, when given, so that the report matches the screens.
+    colours = {**chosen_colours, **(colours or {})}
     charts = [
         builder(derived, findings, machines, colours)
         for builder in (current_vs_speed, efficiency_vs_speed, charge_per_rev)

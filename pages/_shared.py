@@ -11,7 +11,7 @@ import streamlit as st
 from engine import analysis
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.errors import InputError
-from engine.figures import machine_colours
+from engine.figures import PALETTE
 from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
 from engine.store import Store, default_store_path, open_store
 
@@ -118,8 +118,13 @@ def sketch_machine(table: dict, machine_id: str = "sketch") -> Machine:
 
 
 def colours_for(machine_file: MachineFile) -> dict[str, str]:
-    """One colour per machine id, the same on every chart."""
-    return machine_colours(sorted(machine.id for machine in machine_file.machines))
+    """One colour per machine id, the same on every chart and after adding a machine.
+
+    Colours follow the order the machines were added, so a new machine takes the next colour
+    and the others keep theirs.
+    """
+    return {machine.id: PALETTE[number % len(PALETTE)]
+            for number, machine in enumerate(machine_file.machines)}
 
 
 def store_signature() -> tuple:
@@ -178,11 +183,11 @@ def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.Da
     return _findings(str(default_store_path()), store_signature(), by_session, reference_rh)
 
 
-def _interval_text(interval, scale: float = 1.0, pattern: str = ".3g") -> str:
+def _interval_text(interval, scale: float = 1.0) -> str:
     if interval is None or (isinstance(interval, float) and pd.isna(interval)):
         return ""
     low, high = interval
-    return f"{low * scale:{pattern}} to {high * scale:{pattern}}"
+    return f"{low * scale:,.4g} to {high * scale:,.4g}".replace("e+0", "e")
 
 
 def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
@@ -193,15 +198,16 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
     table = pd.DataFrame({
         "machine": [labels.get(machine, machine) for machine in findings["machine"]],
         "session": findings["session"].fillna("all"),
-        "carrier": findings["carrier"].fillna("(not described)"),
-        "used": findings["readings_used"],
-        "flagged": findings["readings_flagged"],
         "efficiency median [%]": findings["efficiency_median"] * 100,
-        "charge per rev [nC]": findings["charge_per_rev_nC"],
-        "95 % CI [nC]": [_interval_text(value) for value in findings["charge_per_rev_ci_nC"]],
-        "observed k": findings["observed_collection_factor"],
-        "humidity slope [% points per +10 % RH]": findings["humidity_slope_per_10pct"] * 100,
         f"efficiency at {rh_text} [%]": findings["efficiency_at_reference_rh"] * 100,
+        "humidity effect [% points per +10 % RH]": findings["humidity_slope_per_10pct"] * 100,
+        "charge per revolution [nC]": findings["charge_per_rev_nC"],
+        "95 % interval [nC]": [_interval_text(value) for value in
+                               findings["charge_per_rev_ci_nC"]],
+        "collection factor (observed)": findings["observed_collection_factor"],
+        "readings used": findings["readings_used"],
+        "flagged": findings["readings_flagged"],
+        "carrier": findings["carrier"].fillna("(not described)"),
         "notes": findings["notes"].fillna(""),
     })
     return table
@@ -209,9 +215,10 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
 
 FINDINGS_FORMATS = {
     "efficiency median [%]": st.column_config.NumberColumn(format="%.1f"),
-    "charge per rev [nC]": st.column_config.NumberColumn(format="%.4g"),
-    "observed k": st.column_config.NumberColumn(format="%.3f"),
-    "humidity slope [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
+    "efficiency at 45 % RH [%]": st.column_config.NumberColumn(format="%.1f"),
+    "charge per revolution [nC]": st.column_config.NumberColumn(format="%.4g"),
+    "collection factor (observed)": st.column_config.NumberColumn(format="%.3f"),
+    "humidity effect [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
 }
 
 

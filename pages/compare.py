@@ -35,7 +35,8 @@ with st.container(border=True):
     if not rh_known.empty:
         low = int(rh_known.min() * 100)
         high = int(rh_known.max() * 100) + 1
-        rh_range = first.slider("Relative humidity [%]", 0, 100, (low, high),
+        rh_range = first.slider("Relative humidity [%]", 0, 100,
+                                (max(0, min(low, 100)), max(0, min(high, 100))),
                                 key="compare-rh")
     times = derived[col.TIME].dropna()
     date_range = None
@@ -47,7 +48,9 @@ with st.container(border=True):
 
 mask = derived[col.MACHINE].isin(chosen) & derived[col.SESSION].isin(chosen_sessions)
 rh_percent = derived[col.RH] * 100
-mask &= rh_percent.isna() | rh_percent.between(*rh_range)
+# The slider stops at 0 and 100 %: readings outside (flagged) stay with the nearest end.
+mask &= (rh_percent.isna() | rh_percent.between(*rh_range)
+         | ((rh_range[1] == 100) & (rh_percent > 100)) | ((rh_range[0] == 0) & (rh_percent < 0)))
 if date_range is not None:
     days = derived[col.TIME].dt.date
     mask &= days.isna() | ((days >= date_range[0]) & (days <= date_range[1]))
@@ -57,7 +60,7 @@ if shown.empty:
                "machines or sessions.")
     st.stop()
 
-findings = analysis.findings(shown, machines, reference_rh=reference_rh)
+findings = analysis.findings(shown, machines, by_session=True, reference_rh=reference_rh)
 colours = shared.colours_for(machine_file)
 arguments = {"findings": findings, "machines": machines, "colours": colours,
              "show_flagged": show_flagged}
@@ -77,7 +80,7 @@ if len(shown) > figures.MAX_DRAWN_POINTS:
 flagged = int((shown[col.FLAGS] != "").sum())
 st.subheader("Findings")
 st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "
-           "Intervals are 95 % confidence intervals.")
+           "One row per machine and session; intervals are 95 % confidence intervals.")
 st.dataframe(shared.findings_table(findings, labels, reference_rh), hide_index=True,
              column_config=shared.FINDINGS_FORMATS, key="compare-findings")
 unknown = sorted(set(shown[col.MACHINE]) - set(machines))

@@ -33,7 +33,7 @@ if machine_file.machines:
             "id": machine.id,
             "label": machine.label,
             "carrier": machine.kind,
-            "ceiling [uA]": None,
+            "ceiling [µA]": None,
             "area per rev [cm²]": None if area is None else area * 1e4,
             "N": machine.carriers,
             "k": machine.collection_factor,
@@ -41,12 +41,12 @@ if machine_file.machines:
                                   for key, value in machine.spec.items()),
         }
         if speed is not None and speed_kind in machine.carrier.speed_kinds:
-            row["ceiling [uA]"] = ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
+            row["ceiling [µA]"] = ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
                                                   site.temperature_k)["ceiling_current_uA"]
         rows.append(row)
     st.dataframe(pd.DataFrame(rows), hide_index=True, key="machines-table",
                  column_config={"area per rev [cm²]": st.column_config.NumberColumn(format="%.1f"),
-                                "ceiling [uA]": st.column_config.NumberColumn(format="%.3g")})
+                                "ceiling [µA]": st.column_config.NumberColumn(format="%.3g")})
     st.caption(f"Air for these ceilings: {site.pressure_pa / 1e3:.4g} kPa, "
                f"{site.temperature_k - 273.15:.1f} °C (the lab's site). A blank ceiling means "
                "the machine needs the other kind of speed (rpm or m/s).")
@@ -108,7 +108,7 @@ with edit_tab:
         figures_column.metric("Charged area per revolution",
                               "belt speed only" if area is None else f"{area * 1e4:.1f} cm²")
         if speed is not None and speed_kind in machine.carrier.speed_kinds:
-            figures_column.metric(f"Ceiling at {speed_text}", "{:.3g} uA".format(
+            figures_column.metric(f"Ceiling at {speed_text}", "{:.3g} µA".format(
                 ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
                                 site.temperature_k)["ceiling_current_uA"]))
         save_column, delete_column = st.columns(2)

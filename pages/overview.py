@@ -42,8 +42,9 @@ st.subheader("Latest findings")
 if counts["readings"] == 0:
     st.write("No readings yet. Import a readings file to see each machine against its ceiling.")
 else:
-    findings = shared.load_findings()
+    findings = shared.load_findings(by_session=True)
     st.dataframe(shared.findings_table(findings, shared.machine_labels()), hide_index=True,
                  column_config=shared.FINDINGS_FORMATS, key="overview-findings")
-    st.caption("Efficiency is the measured current over the ceiling. Flagged readings are kept "
-               "but left out of the fits; the Readings and Sessions pages show them.")
+    st.caption("One row per machine and session. Efficiency is the measured current over the "
+               "ceiling. Flagged readings are kept but left out of the fits; the Readings and "
+               "Sessions pages show them.")

@@ -4,7 +4,7 @@ import numpy as np
 import streamlit as st
 
 from engine.air import REFERENCE_PRESSURE_PA, REFERENCE_TEMPERATURE_K, pressure_from_altitude
-from engine.ceiling import SIZE_TO_VARY, ceiling_figures, size_for_current, speed_for_current
+from engine.ceiling import SIZES_HELD, ceiling_figures, size_for_current, speed_for_current
 from engine.errors import InputError
 from engine.figures import planner_curve
 from engine.units import parse_quantity, parse_speed, to_display
@@ -77,7 +77,7 @@ if machine is not None:
             st.info("The curve is drawn against rotation rate; give this belt a roller diameter "
                     "to see it. The figures below use the belt speed.")
         left, right = st.columns(2)
-        left.metric(f"Ceiling at {top_text}", f"{here['ceiling_current_uA']:.3g} uA",
+        left.metric(f"Ceiling at {top_text}", f"{here['ceiling_current_uA']:.3g} µA",
                     delta=f"{(density - 1) * 100:+.1f} % against sea-level reference air",
                     delta_color="off")
         right.metric("Charge density limit here", f"{here['charge_density_limit_uC_m2']:.3g} uC/m²",
@@ -98,6 +98,6 @@ if machine is not None:
                                       temperature_k)
         shown = f"{size:.4g} m²" if what == "area per revolution" else f"{size * 100:.4g} cm"
         speed_column.success(f"{what.capitalize()} needed at {at_text}: **{shown}** "
-                             f"({SIZE_TO_VARY[machine.kind]}).")
+                             f"({SIZES_HELD[machine.kind]}).")
     except InputError as error:
         shared.show_error(error)

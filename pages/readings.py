@@ -97,7 +97,13 @@ except InputError as error:
 left, right = st.columns(2)
 with left:
     st.subheader("Detected")
-    shown_format = {key: ("tab" if value == "\t" else value)
+    names = {"file_type": "file type", "separator": "separator", "decimal": "decimal mark",
+             "encoding": "text encoding", "units_row": "row of units under the header",
+             "header_row": "header on line", "sheet": "sheet", "time_format": "times written as",
+             "day_first": "dates day first"}
+    words = {"\t": "tab", ",": "comma (,)", ";": "semicolon (;)", ".": "point (.)",
+             True: "yes", False: "no"}
+    shown_format = {names.get(key, key): words.get(value, value)
                     for key, value in result.format.items() if value not in (None, "")}
     st.dataframe(pd.DataFrame({"setting": list(shown_format),
                                "value": [str(value) for value in shown_format.values()]}),
@@ -126,17 +132,43 @@ if not counts.empty:
     if "above_ceiling" in counts.index:
         st.warning("Some readings are above 100 % of the ceiling: almost always a unit mistake "
                    "(rev/s written as rpm, mA as uA) or a wrong size. Check those rows.")
-preview = report.output_frame(derived)
+output = report.output_frame(derived)
+# The same values in the words and units of the other pages (display only).
+preview = pd.DataFrame({
+    "row": derived[col.ROW].to_numpy(),
+    "machine": output["machine"],
+    "session": output.get("session", ""),
+    "time": output["time"],
+    "speed [rpm]": output["speed_rev_s"] * 60,
+    "current [µA]": output["current_uA"],
+    "ceiling [µA]": output["ceiling_uA"],
+    "efficiency [%]": output["efficiency"] * 100,
+    "RH [%]": output["rh_pct"],
+    "flags": output["flags"],
+    "note": output.get("note", ""),
+})
 show_only_flagged = st.toggle("Show only flagged readings", not counts.empty,
                               key="readings-only-flagged")
 table = preview[preview["flags"] != ""] if show_only_flagged else preview
-st.dataframe(table.head(500), hide_index=True, key="readings-preview")
+st.dataframe(table.head(500), hide_index=True, key="readings-preview",
+             column_config={name: st.column_config.NumberColumn(format="%.4g")
+                            for name in ("speed [rpm]", "current [µA]", "ceiling [µA]")}
+             | {"efficiency [%]": st.column_config.NumberColumn(format="%.1f"),
+                "RH [%]": st.column_config.NumberColumn(format="%.1f")})
 st.caption(f"Showing {min(len(table), 500):,} of {len(table):,} rows.")
 
 st.subheader("Save")
 name = st.text_input("Name of this import", upload.name.rsplit(".", 1)[0],
                      key="readings-name", max_chars=120)
-if st.button("Save the readings", type="primary", key="readings-save"):
+imports = store.imports()
+same = imports[(imports["source"] == upload.name) & (imports["rows"] == len(frame))]
+allowed = True
+if not same.empty:
+    st.warning(f"A file named {upload.name} with {len(frame):,} readings was saved before (as "
+               f"'{same['name'].iloc[0]}'). Saving it again counts the same readings twice in "
+               "every finding.")
+    allowed = st.checkbox("Save it again anyway", False, key="readings-save-again")
+if st.button("Save the readings", type="primary", key="readings-save", disabled=not allowed):
     with st.spinner(f"Saving {len(frame):,} readings..."):
         import_id = store.import_readings(frame, name or upload.name, source=upload.name,
                                           environment=environment)

@@ -50,8 +50,9 @@ else:
             file_name="ceiling-lab-results.xlsx", key="report-xlsx",
             mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet")
         columns[2].download_button(
-            "HTML report", lambda: report.html_report(selected, findings, chosen_machines,
-                                                      title).encode("utf-8"),
+            "HTML report", lambda: report.html_report(
+                selected, findings, chosen_machines, title,
+                colours=shared.colours_for(machine_file)).encode("utf-8"),
             file_name="ceiling-lab-report.html", mime="text/html", key="report-html")
 
 st.subheader("Lab bundle")

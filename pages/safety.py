@@ -25,35 +25,34 @@ st.markdown(
 )
 
 st.header("The model")
+st.markdown("An insulating carrier can hold at most the surface charge density at which the "
+            "field next to it reaches the breakdown field of air. With the field on one side of "
+            "the surface (Gauss's law):")
+st.latex(r"\sigma_{limit} = \varepsilon_0 \, E_{breakdown}, \qquad "
+         r"E_{breakdown} = E_{ref}\,\delta, \qquad "
+         r"\delta = \frac{p}{101.3\ \mathrm{kPa}} \cdot \frac{293.15\ \mathrm{K}}{T}")
+st.markdown("The ceiling current is that density times the charged area swept past the "
+            "collectors per second:")
+st.latex(r"I_{ceiling} = \sigma_{limit} \cdot A_{rev} \cdot f \cdot N \cdot k")
 st.markdown(
-    r"""
-An insulating carrier can hold at most the surface charge density at which the field next to it
-reaches the breakdown field of air. With the field on one side of the surface (Gauss's law):
-
-$$\sigma_{limit} = \varepsilon_0 \, E_{breakdown}, \qquad
-E_{breakdown} = E_{ref}\,\delta, \qquad
-\delta = \frac{p}{101.3\ \mathrm{kPa}} \cdot \frac{293.15\ \mathrm{K}}{T}$$
-
-The ceiling current is that density times the charged area swept past the collectors per second:
-
-$$I_{ceiling} = \sigma_{limit} \cdot A_{rev} \cdot f \cdot N \cdot k$$
-
+    """
 | symbol | meaning |
 | --- | --- |
-| $A_{rev}$ | charged area per revolution of one carrier: disc annulus $\pi(r_o^2 - r_i^2)$ times the sector fill; belt width times $\pi d_{roller}$ or the loop length ($\sigma w v$ for a belt speed); cylinder $2\pi r L$; or given |
-| $f$ | revolutions per second (revolutions, never radians) |
-| $N$ | carriers that deliver charge (discs in a stack, belts) |
-| $k$ | charge loads delivered per revolution per carrier (default 1; observed from readings) |
-| $E_{ref}$ | breakdown field at the reference atmosphere, 3.0 MV/m by default |
+| A_rev | charged area per revolution of one carrier: a disc's annulus π (r_out² − r_in²) times the sector fill; a belt's width times π d_roller or the loop length (σ w v for a belt speed); a cylinder's lateral surface 2 π r L; or an area you give |
+| f | revolutions per second (revolutions, never radians) |
+| N | carriers that deliver charge (discs in a stack, belts) |
+| k | charge loads delivered per revolution per carrier (default 1; observed from readings) |
+| E_ref | breakdown field at the reference atmosphere, 3.0 MV/m by default |
 
 **Efficiency** is the measured current over the ceiling. **Charge per revolution** is the
 current over the speed; the **observed collection factor** is the fitted charge per revolution
-over $\sigma_{limit} A_{rev} N$. Humidity does not enter the ceiling; its effect on output is
-measured from the readings (efficiency against relative humidity). Vapour pressure, dew point and
-absolute humidity use the Magnus form $e_s = 6.1094\ \mathrm{hPa}\,
-\exp\!\left(\frac{17.625\,t}{t + 243.04}\right)$.
+over σ_limit · A_rev · N. Humidity does not enter the ceiling; its effect on output is measured
+from the readings (efficiency against relative humidity). Vapour pressure, dew point and absolute
+humidity use the Magnus form:
 """
 )
+st.latex(r"e_s(t) = 6.1094\ \mathrm{hPa}\; \exp\left(\frac{17.625\,t}{t + 243.04}\right),"
+         r"\quad t \text{ in } {}^{\circ}\mathrm{C}")
 
 st.header("References")
 st.markdown(

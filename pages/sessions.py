@@ -19,7 +19,9 @@ machine_ids = sorted(derived[col.MACHINE].unique())
 machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
                           format_func=lambda key: labels.get(key, key))
 of_machine = derived[derived[col.MACHINE] == machine_id]
-sessions = sorted(of_machine[col.SESSION].unique())
+# Sessions in the order they were run (first reading first), so "before" comes before "after".
+first_times = of_machine.groupby(col.SESSION, sort=False)[col.TIME].min()
+sessions = list(first_times.sort_index().sort_values(kind="stable", na_position="last").index)
 session = st.selectbox("Session", sessions, key="sessions-session",
                        format_func=lambda name: name or "(no session)")
 one_session = of_machine[of_machine[col.SESSION] == session]
@@ -29,7 +31,7 @@ st.plotly_chart(figures.session_timeline(one_session, machine_id, shared.colours
                 key="sessions-timeline")
 st.caption(f"{len(one_session):,} readings, {len(flagged):,} flagged (marked with x).")
 if not flagged.empty:
-    with st.expander(f"The {len(flagged)} flagged readings"):
+    with st.expander(f"Flagged readings ({len(flagged)})"):
         st.dataframe(flagged[[col.ROW, col.TIME, col.FLAGS, col.NOTE]], hide_index=True,
                      key="sessions-flagged")
 
@@ -49,7 +51,8 @@ else:
         metrics = st.columns(3)
         metrics[0].metric(f"Mean efficiency, {first}", f"{comparison['mean_a'] * 100:.1f} %")
         metrics[1].metric(f"Mean efficiency, {second}", f"{comparison['mean_b'] * 100:.1f} %",
-                          delta=f"{comparison['raw_difference'] * 100:+.1f} % points")
+                          delta=f"{comparison['raw_difference'] * 100:+.1f} % points",
+                          help="Mean over the clean readings; the findings tables show medians.")
         adjusted = comparison.get("adjusted_difference")
         if adjusted is not None and adjusted == adjusted:
             low, high = comparison["adjusted_difference_ci"]

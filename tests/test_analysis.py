@@ -675,7 +675,7 @@ def test_compare_sessions_matches_statsmodels_and_scipy():
     shown, shown_half = analysis._round_pair(result["adjusted_difference"] * 100, half)
     assert result["verdict"] == (
         f"The 'after' session delivers {shown} ± {shown_half} % points more efficiency than "
-        "'before' at the same speed and humidity.")
+        "'before' at the same speed and humidity (± is the 95 % interval).")
 
 
 def test_compare_sessions_says_less_and_no_clear_difference():
@@ -701,7 +701,7 @@ def test_compare_sessions_drops_a_term_without_spread():
     result = compare_sessions(derive(readings, machines), "drum", "a", "b")
     assert result["adjusted_for"] == ["speed"]
     assert any("humidity has no spread" in note for note in result["notes"])
-    assert "at the same speed." in result["verdict"]
+    assert "at the same speed (" in result["verdict"]
     # each session at one speed of its own: speed cannot be told from session
     fixed = frame("drum", current, speed_rev_s=np.r_[[3.0] * 20, [6.0] * 20],
                   rh=rng.uniform(0.3, 0.6, 40), session=np.r_[["a"] * 20, ["b"] * 20])
@@ -753,3 +753,21 @@ def test_twenty_machines_of_every_kind_in_one_frame():
     # Every machine's logistic decline is recovered: the truth is rh_half = 0.70.
     assert table["logistic_rh_half_pct"].notna().all()
     np.testing.assert_allclose(table["logistic_rh_half_pct"], 70.0, atol=1.0)
+
+
+def test_a_difference_explained_by_humidity_is_said_so():
+    # Two sessions of one machine whose efficiency depends on humidity only (truth: no session
+    # effect), measured on a dry and a damp day.
+    rng = np.random.default_rng(7)
+    machines = {"twin": make_machine("twin")}
+    rh = np.concatenate([rng.uniform(0.35, 0.45, 60), rng.uniform(0.62, 0.75, 60)])
+    efficiency = 0.6 - 0.5 * rh + rng.normal(0, 0.01, rh.size)
+    speed = rng.uniform(2, 8, rh.size)
+    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh,
+                     session=np.repeat(["dry day", "damp day"], 60))
+    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
+    readings[col.CURRENT_A] = efficiency * ceiling
+    result = compare_sessions(derive(readings, machines), "twin", "dry day", "damp day")
+    assert result["raw_difference"] < -0.05  # the damp day looks worse
+    assert result["verdict"].startswith("No clear difference")
+    assert "comes from the sessions' different speed or humidity" in result["verdict"]

@@ -82,7 +82,8 @@ def test_plain_output_is_a_short_summary(capsys):
     [
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 kg", "--speed", "300 rpm"],
          "needs a length"),
-        (["ceiling", "--carrier", "disc", "--speed", "300 rpm"], "outer_radius or outer_diameter"),
+        (["ceiling", "--carrier", "disc", "--speed", "300 rpm"],
+         "--outer-radius or --outer-diameter is missing"),
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm"], "--speed"),
         (["ceiling", "--carrier", "wheel", "--speed", "3 Hz"], "invalid choice"),
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "6 m/s"],
@@ -102,7 +103,7 @@ def test_plain_output_is_a_short_summary(capsys):
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
           "--breakdown-field", "3 kV"], "electric field"),
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--width", "3 cm",
-          "--speed", "5 rpm"], "not a disc key"),
+          "--speed", "5 rpm"], "'--width' is not an option for a disc"),
         (["ceiling", "--carrier", "belt", "--width", "5 cm", "--speed", "300 rpm"],
          "linear speed"),
         (["ceiling", "--carrier", "disc", "--outer-radius", "10**10**10 m", "--speed", "5 rpm"],
@@ -268,6 +269,7 @@ def test_summary_json_has_the_agreed_keys(capsys):
          "cannot be written"),
         (["summary", MACHINES, TWIN, "--reference-rh", "150"], "0 to 100"),
         (["summary", str(ROOT / "README.md"), TWIN], "TOML"),
+        (["evaluate", MACHINES, TWIN, "--machine", "nope"], "no readings of machine 'nope'"),
     ],
 )
 def test_evaluate_and_summary_bad_input(capsys, argv, message):

@@ -146,7 +146,12 @@ COMPARISON_BUILDERS = (current_vs_speed, efficiency_vs_speed, charge_per_rev,
 
 
 def annotation_texts(figure):
-    return [annotation.text for annotation in figure.layout.annotations]
+    """Texts written on the chart: its annotations, then the notes under its title."""
+    texts = [annotation.text for annotation in figure.layout.annotations]
+    title = figure.layout.title.text or ""
+    if "<br><span" in title:
+        texts.append(re.sub(r"<[^>]+>", " ", title.split("<br>", 1)[1]))
+    return texts
 
 
 def axis_titles(figure):
