@@ -27,7 +27,7 @@ from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
 from engine.machines import Machine, load_machines
 from engine.readings import ReadOptions, merge_environment, read_environment, read_readings
-from engine.units import parse_quantity, parse_speed
+from engine.units import parse_quantity, parse_speed, split_quantity
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 1
@@ -284,7 +284,10 @@ def _json_ready(value: object) -> object:
 
 def _command_summary(args: argparse.Namespace) -> int:
     machine_file, derived, _messages = _derived_from_files(args)
-    reference_rh = parse_quantity(args.reference_rh, "fraction", "--reference-rh")
+    # "45" means 45 %; "45 %" is read by the unit parser as the fraction 0.45.
+    number, unit_text = split_quantity(args.reference_rh, "--reference-rh")
+    reference_rh = (number if not unit_text.strip() else
+                    parse_quantity(args.reference_rh, "fraction", "--reference-rh") * 100)
     if not 0 <= reference_rh <= 100:
         raise InputError("--reference-rh is a relative humidity in percent, 0 to 100")
     table = analysis.findings(derived, machine_file.by_id(), by_session=args.by_session,

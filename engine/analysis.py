@@ -856,7 +856,7 @@ def findings(derived: pd.DataFrame, machines: Mapping[str, Machine] | MachineFil
         if col.RH in derived else np.full(len(derived), np.nan),
         "delta": derived[col.RELATIVE_AIR_DENSITY].to_numpy(dtype=float),
     }
-    usable = clean & np.isfinite(data["efficiency"]) & np.isfinite(data["current"])
+    usable = _usable_for_fits(flags, data["efficiency"]) & np.isfinite(data["current"])
 
     rows = []
     for (machine_id, session), positions in zip(
@@ -864,6 +864,25 @@ def findings(derived: pd.DataFrame, machines: Mapping[str, Machine] | MachineFil
         rows.append(_group_findings(machine_id, session, machine_map.get(machine_id),
                                     positions, data, clean, usable, reference_rh))
     return pd.DataFrame(rows, columns=list(FINDINGS_COLUMNS))
+
+
+#: Readings flagged only ``above_ceiling`` and at most this efficiency stay in the fits: a
+#: machine may deliver more charge loads per revolution than its declared collection factor,
+#: and leaving those readings out would bias the observed factor down. Far above it is a unit
+#: or size mistake.
+ABOVE_CEILING_KEPT_UP_TO = 2.0
+
+
+def _usable_for_fits(flags: pd.Series, efficiency: np.ndarray) -> np.ndarray:
+    """Readings the fits use: clean ones, and those only a little above the ceiling."""
+    flag_text = flags.to_numpy(dtype=object) if not isinstance(flags, np.ndarray) else flags
+    codes, texts = pd.factorize(pd.Series(flag_text), use_na_sentinel=True)
+    clean_text = np.array([text == "" for text in texts] + [True])
+    above_only = np.array([text == "above_ceiling" for text in texts] + [False])
+    codes = np.where(codes < 0, len(texts), codes)
+    finite = np.isfinite(efficiency)
+    return finite & (clean_text[codes] | (above_only[codes]
+                                          & (efficiency <= ABOVE_CEILING_KEPT_UP_TO)))
 
 
 def _empty_findings(machine_id: str, session: str | None, machine: Machine | None) -> dict:
@@ -885,6 +904,12 @@ def _group_findings(machine_id: str, session: str | None, machine: Machine | Non
     row["readings_total"] = int(positions.size)
     row["readings_used"] = int(used.size)
     row["readings_flagged"] = int(positions.size - np.count_nonzero(clean[positions]))
+    kept_above = int(np.count_nonzero(~clean[used]))
+    if kept_above:
+        notes.append(f"{kept_above} readings above the ceiling (up to "
+                     f"{ABOVE_CEILING_KEPT_UP_TO:g} times it) are kept in the fits: the machine "
+                     "may deliver more charge loads per revolution than its collection factor "
+                     "says; see the observed collection factor")
     if machine is None:
         notes.append(f"machine '{machine_id}' is not in the machines list: no ceiling")
         row["notes"] = "; ".join(notes)
@@ -1099,7 +1124,7 @@ def compare_sessions(derived: pd.DataFrame, machine_id: str, session_a: str,
 
     flags = _clean_flags(derived)
     efficiency = derived[col.EFFICIENCY].to_numpy(dtype=float)
-    usable = machine_rows & (flags == "").to_numpy() & np.isfinite(efficiency)
+    usable = machine_rows & _usable_for_fits(flags, efficiency)
     in_a = usable & (sessions == session_a).to_numpy()
     in_b = usable & (sessions == session_b).to_numpy()
     n_a, n_b = int(in_a.sum()), int(in_b.sum())

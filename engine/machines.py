@@ -39,6 +39,7 @@ from engine.carriers import CARRIER_KINDS, SPEC_KEYS, Carrier, carrier_from_spec
 from engine.errors import InputError
 from engine.units import (
     Tolerance,
+    one_line,
     parse_quantity,
     parse_tolerance,
     speed_unit_conversion,
@@ -198,6 +199,9 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         )
     where = f"machine '{machine_id}'"
     kind = table.get("carrier")
+    if kind is not None and not isinstance(kind, str):
+        raise InputError(f"{where}: carrier must be text in quotes, one of "
+                         f"{', '.join(CARRIER_KINDS)}")
     if kind is None:
         raise InputError(f"{where}: the key 'carrier' is missing; use one of "
                          f"{', '.join(CARRIER_KINDS)}")
@@ -209,7 +213,7 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
     unknown = sorted(set(table) - set(_COMMON_KEYS) - set(geometry_keys))
     if unknown:
         raise InputError(
-            f"{where}: '{unknown[0]}' is not a key of a {kind} machine; its keys are "
+            f"{where}: '{one_line(unknown[0])}' is not a key of a {kind} machine; its keys are "
             f"{', '.join(list(_COMMON_KEYS) + list(geometry_keys))}"
         )
     spec = {key: table[key] for key in geometry_keys if key in table}
@@ -226,6 +230,8 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         raise InputError(f"{where}: collection_factor must be a number above 0 (default 1), "
                          f"got {factor!r}")
     field_text = table.get("breakdown_field", "")
+    if not isinstance(field_text, str):
+        raise InputError(f"{where}: breakdown_field needs a unit in quotes, e.g. \"3.0 MV/m\"")
     reference_field = REFERENCE_BREAKDOWN_FIELD_V_M
     if field_text:
         reference_field = parse_quantity(field_text, "electric_field", f"{where}: breakdown_field")
@@ -240,13 +246,15 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         kind_of_key = geometry_keys.get(key) or _TOLERANCE_EXTRA_KINDS.get(key)
         if kind_of_key is None:
             raise InputError(
-                f"{where}: tolerance '{key}' is not known; tolerances can be given for "
-                f"{', '.join(list(geometry_keys) + list(_TOLERANCE_EXTRA_KINDS))}"
+                f"{where}: tolerance '{one_line(key)}' is not known; tolerances can be given "
+                f"for {', '.join(list(geometry_keys) + list(_TOLERANCE_EXTRA_KINDS))}"
             )
         if key in geometry_keys and key not in spec:
-            raise InputError(f"{where}: tolerance '{key}' is given but {key} is not")
+            raise InputError(f"{where}: tolerance '{one_line(key)}' is given but {key} is not")
         if kind_of_key == "fraction":
             if isinstance(text, (int, float)) and not isinstance(text, bool):
+                if not math.isfinite(float(text)):
+                    raise InputError(f"{where}: tolerance {key} must be a finite number")
                 tolerances[key] = Tolerance(abs(float(text)), relative=False)
                 continue
         tolerances[key] = parse_tolerance(text, kind_of_key, f"{where}: tolerance {key}")
@@ -297,7 +305,7 @@ def site_from_table(table: Mapping[str, object], where: str = "site") -> Site:
         raise InputError(f"{where}: [site] must be a table")
     unknown = sorted(set(table) - set(_SITE_KEYS))
     if unknown:
-        raise InputError(f"{where}: '{unknown[0]}' is not a site key; use "
+        raise InputError(f"{where}: '{one_line(unknown[0])}' is not a site key; use "
                          f"{', '.join(_SITE_KEYS)}")
     altitude = (parse_quantity(table["altitude"], "length", f"{where}: altitude")
                 if "altitude" in table else None)
@@ -309,8 +317,13 @@ def site_from_table(table: Mapping[str, object], where: str = "site") -> Site:
         raise InputError(f"{where}: {error}") from None
     temperature = (parse_quantity(table["temperature"], "temperature", f"{where}: temperature")
                    if "temperature" in table else REFERENCE_TEMPERATURE_K)
-    if not temperature > 0:
-        raise InputError(f"{where}: temperature must be above absolute zero")
+    # The ranges of the readings' own air checks: anything outside is a typing mistake here.
+    if not 50e3 <= pressure_pa <= 110e3:
+        raise InputError(f"{where}: a site pressure of {pressure_pa / 1e3:.4g} kPa is outside "
+                         "50 to 110 kPa; check the unit (e.g. \"97.2 kPa\" or \"972 hPa\")")
+    if not 233.15 <= temperature <= 333.15:
+        raise InputError(f"{where}: a site temperature of {temperature - 273.15:.4g} degC is "
+                         "outside -40 to 60 degC; check the unit (e.g. \"20 degC\")")
     return Site(pressure_pa, temperature, {key: str(table[key]) for key in table})
 
 
@@ -344,8 +357,8 @@ def parse_machines_text(text: str, source: str = "machines file") -> MachineFile
         raise InputError(f"{source}: the file nests tables too deeply") from None
     unknown = sorted(set(document) - {"site", "machine"})
     if unknown:
-        raise InputError(f"{source}: '{unknown[0]}' is not a section of a machines file; "
-                         "use [site] and [[machine]]")
+        raise InputError(f"{source}: '{one_line(unknown[0])}' is not a section of a machines "
+                         "file; use [site] and [[machine]]")
     site = site_from_table(document.get("site", {}), f"{source}, [site]")
     tables = document.get("machine", [])
     if not isinstance(tables, list):

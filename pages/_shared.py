@@ -213,13 +213,16 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
     return table
 
 
-FINDINGS_FORMATS = {
-    "efficiency median [%]": st.column_config.NumberColumn(format="%.1f"),
-    "efficiency at 45 % RH [%]": st.column_config.NumberColumn(format="%.1f"),
-    "charge per revolution [nC]": st.column_config.NumberColumn(format="%.4g"),
-    "collection factor (observed)": st.column_config.NumberColumn(format="%.3f"),
-    "humidity effect [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
-}
+def findings_formats(reference_rh: float = 0.45) -> dict:
+    """Number formats for the columns of :func:`findings_table`."""
+    return {
+        "efficiency median [%]": st.column_config.NumberColumn(format="%.1f"),
+        f"efficiency at {reference_rh * 100:g} % RH [%]":
+            st.column_config.NumberColumn(format="%.1f"),
+        "charge per revolution [nC]": st.column_config.NumberColumn(format="%.4g"),
+        "collection factor (observed)": st.column_config.NumberColumn(format="%.3f"),
+        "humidity effect [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
+    }
 
 
 def machine_labels() -> dict[str, str]:

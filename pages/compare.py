@@ -82,7 +82,7 @@ st.subheader("Findings")
 st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "
            "One row per machine and session; intervals are 95 % confidence intervals.")
 st.dataframe(shared.findings_table(findings, labels, reference_rh), hide_index=True,
-             column_config=shared.FINDINGS_FORMATS, key="compare-findings")
+             column_config=shared.findings_formats(reference_rh), key="compare-findings")
 unknown = sorted(set(shown[col.MACHINE]) - set(machines))
 if unknown:
     st.warning("Readings name machines that are not described: " + ", ".join(unknown)

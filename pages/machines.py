@@ -77,16 +77,23 @@ with edit_tab:
         "Carriers N", 1, 1000, current.carriers if current else 1, key=f"machines-n-{chosen}",
         help="discs in a stack, belts: carriers that deliver charge"))
     table["collection_factor"] = float(factor_column.number_input(
-        "Collection factor k", 0.1, 10.0, current.collection_factor if current else 1.0,
+        "Collection factor k", 0.01, 100.0, current.collection_factor if current else 1.0,
         step=0.1, key=f"machines-k-{chosen}",
         help="charge loads per revolution per carrier; 1 unless you know better"))
     material = material_column.text_input("Material", current.material if current else "",
                                           key=f"machines-material-{chosen}",
                                           placeholder="acrylic, glass, polyester film")
+    field_column, notes_column = st.columns([1, 2])
+    breakdown_text = field_column.text_input(
+        "Breakdown field of air", current.breakdown_field_text if current else "",
+        key=f"machines-field-{chosen}", placeholder="3.0 MV/m (the default)")
+    notes_text = notes_column.text_input("Notes", current.notes if current else "",
+                                         key=f"machines-notes-{chosen}", max_chars=500)
     with st.expander("Tolerances (optional, one standard uncertainty)"):
         tolerance = {}
         tolerance_columns = st.columns(3)
-        tolerance_keys = [key for key in table if key in SPEC_KEYS[kind]] + ["speed", "current"]
+        tolerance_keys = ([key for key in table if key in SPEC_KEYS[kind]]
+                          + ["speed", "current", "breakdown_field"])
         for index, key in enumerate(tolerance_keys):
             stored_text = (current.tolerance_spec.get(key, "") if current else "")
             text = tolerance_columns[index % 3].text_input(
@@ -94,6 +101,10 @@ with edit_tab:
                 placeholder="'1 mm' or '2 %'")
             if text.strip():
                 tolerance[key] = text.strip()
+    if breakdown_text.strip():
+        table["breakdown_field"] = breakdown_text.strip()
+    if notes_text.strip():
+        table["notes"] = notes_text.strip()
     if label.strip():
         table["label"] = label.strip()
     if material.strip():

@@ -2,6 +2,7 @@
 
 import streamlit as st
 
+from engine.errors import InputError
 from pages import _shared as shared
 
 st.title("Ceiling Lab")
@@ -23,8 +24,12 @@ if store.has_demo():
     st.info("You are looking at the **demonstration lab**: an invented science centre, school, "
             "workshop and open day. Explore it, then remove it to start your own.")
     if st.button("Remove the demonstration data", key="overview-remove-demo"):
-        removed = store.remove_demo()
-        store.save_setting("demo", "removed")
+        try:
+            removed = store.remove_demo()
+            store.save_setting("demo", "removed")
+        except InputError as error:
+            shared.show_error(error)
+            st.stop()
         shared.flash(f"Removed the demonstration data ({removed.get('readings', 0):,} "
                      "readings).")
         st.rerun()
@@ -44,7 +49,7 @@ if counts["readings"] == 0:
 else:
     findings = shared.load_findings(by_session=True)
     st.dataframe(shared.findings_table(findings, shared.machine_labels()), hide_index=True,
-                 column_config=shared.FINDINGS_FORMATS, key="overview-findings")
+                 column_config=shared.findings_formats(), key="overview-findings")
     st.caption("One row per machine and session. Efficiency is the measured current over the "
                "ceiling. Flagged readings are kept but left out of the fits; the Readings and "
                "Sessions pages show them.")

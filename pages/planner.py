@@ -35,7 +35,7 @@ try:
         table["carriers"] = count_column.number_input("Carriers N", 1, 1000, 1,
                                                       key="planner-carriers")
         table["collection_factor"] = factor_column.number_input(
-            "Collection factor k", 0.1, 10.0, 1.0, step=0.1, key="planner-factor")
+            "Collection factor k", 0.01, 100.0, 1.0, step=0.1, key="planner-factor")
         machine = shared.sketch_machine(table)
 except InputError as error:
     shared.show_error(error)

@@ -169,9 +169,13 @@ if not same.empty:
                "every finding.")
     allowed = st.checkbox("Save it again anyway", False, key="readings-save-again")
 if st.button("Save the readings", type="primary", key="readings-save", disabled=not allowed):
-    with st.spinner(f"Saving {len(frame):,} readings..."):
-        import_id = store.import_readings(frame, name or upload.name, source=upload.name,
-                                          environment=environment)
+    try:
+        with st.spinner(f"Saving {len(frame):,} readings..."):
+            import_id = store.import_readings(frame, name or upload.name, source=upload.name,
+                                              environment=environment)
+    except InputError as error:
+        shared.show_error(error)
+        st.stop()
     shared.flash(f"Saved {len(frame):,} readings as '{name}' (import {import_id}). Open the "
                  "Compare page to see them against their ceilings.")
     st.rerun()

@@ -82,6 +82,10 @@ else:
                           f"{key}: {imports.set_index('id').loc[key, 'name']}",
                           key="report-remove")
     if remove is not None and st.button("Remove it with its readings", key="report-remove-do"):
-        store.delete_import(int(remove))
+        try:
+            store.delete_import(int(remove))
+        except InputError as error:
+            shared.show_error(error)
+            st.stop()
         shared.flash(f"Removed import {remove}.")
         st.rerun()

@@ -56,7 +56,9 @@ else:
         adjusted = comparison.get("adjusted_difference")
         if adjusted is not None and adjusted == adjusted:
             low, high = comparison["adjusted_difference_ci"]
-            metrics[2].metric("At the same speed and humidity", f"{adjusted * 100:+.1f} % points",
+            terms = comparison["adjusted_for"]
+            metrics[2].metric("At the same " + " and ".join(terms) if terms else "Adjusted",
+                              f"{adjusted * 100:+.1f} % points",
                               help=f"95 % CI {low * 100:+.1f} to {high * 100:+.1f} % points; "
                               f"adjusted for {', '.join(comparison['adjusted_for']) or 'nothing'}")
         for note in comparison.get("notes", []):

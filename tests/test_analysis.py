@@ -771,3 +771,21 @@ def test_a_difference_explained_by_humidity_is_said_so():
     assert result["raw_difference"] < -0.05  # the damp day looks worse
     assert result["verdict"].startswith("No clear difference")
     assert "comes from the sessions' different speed or humidity" in result["verdict"]
+
+
+def test_a_machine_above_its_declared_collection_factor_is_not_biased_down():
+    # Truth: the machine delivers 1.1 charge loads per revolution; the file says k = 1.
+    rng = np.random.default_rng(11)
+    machines = {"twin": make_machine("twin")}
+    speed = rng.uniform(2, 8, 60)
+    readings = frame("twin", np.ones(60), speed_rev_s=speed)
+    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
+    readings[col.CURRENT_A] = 1.1 * ceiling * (1 + rng.normal(0, 0.01, 60))
+    derived = derive(readings, machines)
+    assert (derived[col.FLAGS] == "above_ceiling").sum() > 50  # still shown to the user
+    table = findings(derived, machines)
+    low, high = table["observed_collection_factor_ci"][0]
+    assert low < high
+    # Recovered within 1 % (with above-ceiling readings left out, no fit was possible at all).
+    assert table["observed_collection_factor"][0] == pytest.approx(1.1, rel=0.01)
+    assert "kept in the fits" in table["notes"][0]

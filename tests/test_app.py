@@ -246,3 +246,23 @@ def test_report_offers_every_download(demo_lab):
     assert {"report-csv", "report-xlsx", "report-html", "report-bundle"} <= keys
     app.multiselect(key="report-machines").set_value([]).run()
     assert "Pick at least one machine" in texts(app)
+
+
+def test_editing_a_machine_keeps_what_the_form_does_not_change(empty_lab):
+    from engine.machines import machine_from_table
+
+    with open_store(empty_lab) as store:
+        store.save_machine(machine_from_table({
+            "id": "tall-stack", "carrier": "disc", "outer_diameter": "40 cm", "carriers": 8,
+            "collection_factor": 20, "breakdown_field": "2.5 MV/m", "notes": "museum piece",
+            "tolerance": {"breakdown_field": "5 %"}}))
+    app = open_page("pages/machines.py", empty=True)
+    app.selectbox(key="machines-edit").set_value("tall-stack").run()
+    assert not app.exception  # a collection factor of 20 fits the form
+    app.button(key="machines-save-tall-stack").click().run()
+    assert "Saved machine 'tall-stack'" in texts(app)
+    with open_store(empty_lab) as store:
+        machine = store.machines().by_id()["tall-stack"]
+    assert machine.reference_field_v_m == pytest.approx(2.5e6)
+    assert machine.notes == "museum piece" and machine.collection_factor == 20
+    assert machine.tolerances["breakdown_field"].value == pytest.approx(0.05)

@@ -255,6 +255,10 @@ def test_summary_json_has_the_agreed_keys(capsys):
     assert low < before["charge_per_rev_nC"] < high
     status, out, _ = run(capsys, "summary", MACHINES, TWIN)
     assert status == 0 and "charge per revolution" in out and "nC" in out
+    # "45" and "45 %" are the same reference humidity.
+    plain = run_json(capsys, "summary", MACHINES, TWIN, "--reference-rh", "45")
+    with_unit = run_json(capsys, "summary", MACHINES, TWIN, "--reference-rh", "45 %")
+    assert plain == with_unit
 
 
 @pytest.mark.parametrize(
