@@ -27,7 +27,7 @@ from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
 from engine.machines import Machine, load_machines
 from engine.readings import ReadOptions, merge_environment, read_environment, read_readings
-from engine.units import parse_quantity, parse_speed, split_quantity
+from engine.units import one_line, parse_quantity, parse_speed, split_quantity
 
 EXIT_BAD_INPUT = 2
 EXIT_INTERNAL = 1
@@ -268,7 +268,10 @@ def _command_evaluate(args: argparse.Namespace) -> int:
         print(table.to_json(orient="records", date_format="iso"))
     elif not args.output:
         sys.stdout.flush()
-        report.write_csv(table, sys.stdout.buffer)
+        if hasattr(sys.stdout, "buffer"):
+            report.write_csv(table, sys.stdout.buffer)
+        else:  # a text-only stream (an embedding program's)
+            sys.stdout.write(report.to_csv_bytes(table).decode("utf-8"))
     return 0
 
 
@@ -406,7 +409,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         args = build_parser().parse_args(argv)
         return args.run(args)
     except CeilingLabError as error:
-        print(f"error: {error}", file=sys.stderr)
+        print(f"error: {one_line(str(error))}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)

@@ -51,6 +51,7 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import itertools
 import math
 import os
 import re
@@ -85,7 +86,7 @@ from engine.columns import (
     VOLTAGE_V,
 )
 from engine.errors import InputError
-from engine.units import speed_unit_conversion, unit_conversion
+from engine.units import one_line, speed_unit_conversion, unit_conversion
 
 #: Most data rows read from one file; a larger file is refused with a clear message.
 MAX_ROWS = 5_000_000
@@ -96,6 +97,10 @@ SAMPLE_BYTES = 65_536
 DEFAULT_TOLERANCE_S = 300.0
 #: Rows searched for the header.
 HEADER_SEARCH_ROWS = 30
+#: Widest XLSX row read [columns]; a cell further right is refused with a message.
+MAX_SHEET_COLUMNS = 1_000
+#: Most cells (rows times the widest row) read from one XLSX sheet.
+MAX_SHEET_CELLS = 20_000_000
 
 #: Fields of a readings file, in the order of its canonical header. ``date`` is an auxiliary
 #: field: a separate date column joined with the time column.
@@ -458,7 +463,7 @@ def _columns_of(
     for source_header, field_name in (mapping or {}).items():
         position = _find_header(headers, source_header)
         if position is None:
-            shown = ", ".join(f"'{header}'" for header in headers if header) or "none"
+            shown = ", ".join(_quoted(header) for header in headers if header) or "none"
             raise InputError(
                 f"{source}: the column mapping names the column '{source_header}', which the "
                 f"file does not have; its columns are {shown}"
@@ -844,12 +849,23 @@ def _pandas_read_csv(inp: _Input, encoding: str, kwargs: dict) -> pd.DataFrame:
     except pd.errors.EmptyDataError:
         return pd.DataFrame({position: pd.Series(dtype=object) for position in kwargs["usecols"]})
     except pd.errors.ParserError as error:
+        if "Too many columns specified" in str(error) and kwargs["usecols"] is not None:
+            # pandas refuses usecols when no line is as long as the header (rows that leave
+            # out their trailing empty cells): read every column, then keep the used ones.
+            frame = _pandas_read_csv(inp, encoding, {**kwargs, "usecols": None})
+            return frame[list(kwargs["usecols"])]
         found = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", str(error))
         if found:
             expected, line, saw = found.groups()
             raise InputError(
                 f"{inp.name}: line {line} has {saw} fields where the others have {expected}; "
                 f"check the separator ('{kwargs['sep']}') and the quotes on that line"
+            ) from None
+        found = re.search(r"EOF inside string starting at row (\d+)", str(error))
+        if found:  # pandas counts lines from 0
+            raise InputError(
+                f"{inp.name}: line {int(found.group(1)) + 1} opens a quoted cell (\") that is "
+                "never closed; close the quote or remove it (a file cut short ends like this)"
             ) from None
         raise InputError(f"{inp.name}: cannot be read as CSV ({error})") from None
     except (ValueError, OSError, MemoryError) as error:
@@ -883,8 +899,10 @@ def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tab
         if sheet is None:
             raise InputError(f"{inp.name}: the workbook has no sheets")
         try:
-            raw = pd.read_excel(book, sheet_name=sheet, header=None,
-                                nrows=options.max_rows + HEADER_SEARCH_ROWS + 2)
+            raw = _sheet_frame(book.book[sheet], options.max_rows + HEADER_SEARCH_ROWS + 2,
+                               inp.name, sheet)
+        except InputError:
+            raise
         except Exception as error:  # noqa: BLE001 - any failure inside a corrupt sheet
             raise InputError(
                 f"{inp.name}: sheet '{sheet}' cannot be read ({type(error).__name__})"
@@ -922,6 +940,42 @@ def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tab
     return _Table(data, columns, unit_cells, headers, file_format, messages, len(body))
 
 
+def _sheet_frame(worksheet: object, most_rows: int, source: str, sheet: str) -> pd.DataFrame:
+    """The non-empty rows of a read-only worksheet: stored cell values, never formulas.
+
+    Read here rather than by ``pandas.read_excel``, which widens every row to the widest one
+    (one crafted cell at XFD1048576 makes 17 billion cells) and refuses a whole sheet for one
+    cell whose value overflows; here a far-away cell is refused with a message and an
+    infinite value is kept, to be flagged.
+    """
+    worksheet.reset_dimensions()  # type: ignore[attr-defined] - declared sizes may lie
+    rows: list[tuple] = []
+    width = 0
+    values_by_row = worksheet.iter_rows(values_only=True)  # type: ignore[attr-defined]
+    for number, values in enumerate(itertools.islice(values_by_row, most_rows), 1):
+        if len(values) > MAX_SHEET_COLUMNS:
+            raise InputError(
+                f"{source}: sheet '{sheet}', row {number} has a cell beyond column "
+                f"{MAX_SHEET_COLUMNS:,}; delete the cells far to the right of the readings "
+                "(or save the sheet as CSV)"
+            )
+        if any(value is not None and value != "" for value in values):
+            rows.append(values)
+            width = max(width, len(values))
+            if len(rows) * width > MAX_SHEET_CELLS:
+                raise InputError(
+                    f"{source}: sheet '{sheet}' holds more than {MAX_SHEET_CELLS:,} cells "
+                    "(rows times columns); save it as CSV or split it into smaller files"
+                )
+    return pd.DataFrame([values + (None,) * (width - len(values)) for values in rows])
+
+
+def _quoted(header: object, most: int = 60) -> str:
+    """A header in quotes for a message: on one line, cut after ``most`` characters."""
+    text = one_line(header)
+    return f"'{text[:most]}…'" if len(text) > most else f"'{text}'"
+
+
 def _check_usable(
     source: str, headers: Sequence[str], columns: Mapping[str, _Column], wanted: Sequence[str]
 ) -> None:
@@ -933,8 +987,9 @@ def _check_usable(
         needed_ok = "speed" in columns and "current" in columns
         needed = "a speed column and a current column"
     if not needed_ok:
-        shown = ", ".join(f"'{header}'" for header in headers if str(header).strip())
-        found = ", ".join(f"{name} <- '{column.header}'" for name, column in columns.items())
+        shown = ", ".join(_quoted(header) for header in headers if str(header).strip())
+        found = ", ".join(f"{name} <- {_quoted(column.header)}"
+                          for name, column in columns.items())
         raise InputError(
             f"{source}: no usable columns: it needs {needed}. Its header is "
             f"{shown or '(empty)'}" + (f"; recognised: {found}" if found else "")
@@ -966,14 +1021,14 @@ def _read_table(source: object, options: ReadOptions | None, name: str | None,
     if table.rows == 0:
         raise InputError(f"{inp.name}: has a header but no data rows")
     unused = [
-        f"'{header}'" for position, header in enumerate(table.headers)
+        _quoted(header) for position, header in enumerate(table.headers)
         if str(header).strip() and position not in {c.position for c in table.columns.values()}
     ]
     if unused:
         table.messages.append(f"{inp.name}: columns not used: {', '.join(unused)}")
     table.messages.append(
         f"{inp.name}: columns used: "
-        + ", ".join(f"{n} <- '{c.header}'" for n, c in table.columns.items())
+        + ", ".join(f"{n} <- {_quoted(c.header)}" for n, c in table.columns.items())
     )
     return inp, options, table
 
@@ -1043,18 +1098,31 @@ def _column_si(
         if origin == "caller":
             raise InputError(f"{source}: the unit given for {field_name}: {error}") from None
         raise InputError(
-            f"{source}: column '{column.header}' has the unit '{unit}' {where} the file, "
-            f"which does not fit: {error}. Correct the header, e.g. "
+            f"{source}: column {_quoted(column.header)} has the unit '{one_line(unit)}' {where} "
+            f"the file, which does not fit: {error}. Correct the header, e.g. "
             f"'{field_name} [{DEFAULT_UNITS[field_name]}]'"
         ) from None
     if origin == "default":
         messages.append(
-            f"{source}: column '{column.header}' gives no unit; read as {unit} (the default). "
-            f"Write the unit in the header, e.g. '{field_name} [{unit}]', if it is another"
+            f"{source}: column {_quoted(column.header)} gives no unit; read as {unit} (the "
+            f"default). Write the unit in the header, e.g. '{field_name} [{unit}]', if it is "
+            "another"
         )
     units_used[field_name] = unit
     values, not_number = _numbers(table.data[field_name].reset_index(drop=True), decimal)
-    return values * scale + offset, not_number, speed_kind
+    si_values, overflow = _scaled(values, scale, offset)
+    return si_values, not_number | overflow, speed_kind
+
+
+def _scaled(values: np.ndarray, scale: float, offset: float = 0.0
+            ) -> tuple[np.ndarray, np.ndarray]:
+    """Values times scale plus offset, and where that overflowed (1e308 kPa): left empty."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        scaled = values * scale + offset
+    overflow = np.isinf(scaled)
+    if overflow.any():
+        scaled = np.where(overflow, np.nan, scaled)
+    return scaled, overflow
 
 
 # --- Times ------------------------------------------------------------------------------------
@@ -1286,8 +1354,8 @@ def _parse_times(
             unit = table.unit_cells[time_field]
         except InputError:
             messages.append(
-                f"{source}: the units row gives '{table.unit_cells[time_field]}' for the time; "
-                "not a duration, a time zone or a date layout, so it was not used")
+                f"{source}: the units row gives {_quoted(table.unit_cells[time_field])} for the "
+                "time; not a duration, a time zone or a date layout, so it was not used")
     kind, hint = _time_hint(unit, source, column.header)
     day_first = options.day_first
     if kind == "format" and day_first is None:
@@ -1300,8 +1368,8 @@ def _parse_times(
     series = (raw if raw is not None else raw_date).reset_index(drop=True)
     if not series.notna().any():
         messages.append(
-            f"{source}: the time column '{column.header}' is empty: the readings have no times "
-            "and cannot be matched with an environment log")
+            f"{source}: the time column {_quoted(column.header)} is empty: the readings have "
+            "no times and cannot be matched with an environment log")
         return _Times(_empty_times(length), np.full(length, np.nan), nothing, None, None, False)
     if pd.api.types.is_datetime64_any_dtype(series.dtype):
         times = series
@@ -1324,10 +1392,11 @@ def _parse_times(
         values, not_number = _numbers(text, decimal)
         units_used["time"] = unit if kind == "duration" else "s"
         messages.append(
-            f"{source}: column '{column.header}' holds numbers: read as elapsed time in "
+            f"{source}: column {_quoted(column.header)} holds numbers: read as elapsed time in "
             f"{units_used['time']}")
-        elapsed = values * float(scale)  # type: ignore[arg-type]
-        return _Times(_empty_times(length), elapsed, not_number, "elapsed seconds", None, False)
+        elapsed, overflow = _scaled(values, float(scale))  # type: ignore[arg-type]
+        return _Times(_empty_times(length), elapsed, not_number | overflow, "elapsed seconds",
+                      None, False)
     if family == "clock":
         elapsed = _parse_clock(text)
         messages.append(
@@ -1474,7 +1543,12 @@ def read_readings(
     masks["zero_speed"] = speed == 0
     masks.update(_range_masks(values["rh"], values["temperature"], values["pressure"]))
     key = times.time if times.absolute else pd.Series(times.elapsed_s)
-    masks["duplicate_time"] = _duplicated(machine, key)
+    # Sessions may restart their clock (elapsed time from 0): a duplicate is the same machine,
+    # the same session and the same time.
+    session_codes, session_names = pd.factorize(pd.Series(session))
+    machine_codes, _machine_names = pd.factorize(pd.Series(machine))
+    group = pd.Series(machine_codes.astype(np.int64) * (len(session_names) + 1) + session_codes)
+    masks["duplicate_time"] = _duplicated(group, key)
     masks["bad_time"] = times.bad
 
     frame = pd.DataFrame({

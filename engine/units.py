@@ -17,6 +17,7 @@ import re
 from dataclasses import dataclass
 from functools import lru_cache
 
+import numpy as np
 import pint
 
 from engine.errors import InputError
@@ -24,7 +25,16 @@ from engine.errors import InputError
 #: Longest quantity string accepted; longer input is refused before any parsing.
 MAX_QUANTITY_LENGTH = 64
 
-ureg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+def _make_registry() -> pint.UnitRegistry:
+    # pint can keep its parsed definitions in the user's cache folder (ten times quicker to
+    # start); where that folder cannot be written, build the registry from scratch.
+    try:
+        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True, cache_folder=":auto:")
+    except Exception:  # noqa: BLE001 - any cache problem: fall back to the plain registry
+        return pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+
+
+ureg = _make_registry()
 ureg.define("@alias turn = rev")
 
 
@@ -79,6 +89,27 @@ _REPLACEMENTS = (
 )
 
 
+_CONTROL_ESCAPES = {code: f"\\x{code:02x}" for code in range(32)} | {
+    9: "\\t", 10: "\\n", 13: "\\r"}
+
+
+def one_line(text: object) -> str:
+    """User text for a message: control characters written as escapes, so it stays one line.
+
+    Parameters
+    ----------
+    text : object
+        What the user wrote, e.g. a header or a quantity string.
+
+    Returns
+    -------
+    str
+        The text with tab, line feed, carriage return and other control characters written
+        as ``\\t``, ``\\n``, ``\\r``, ``\\x07``.
+    """
+    return str(text).translate(_CONTROL_ESCAPES)
+
+
 def _normalise_unit_text(unit_text: str) -> str:
     text = unit_text.strip()
     for old, new in _REPLACEMENTS:
@@ -99,13 +130,15 @@ def _parse_units(unit_text: str, field: str) -> pint.Unit:
             "write a unit such as 'cm', 'm^2' or 'rpm'"
         )
     text = _normalise_unit_text(unit_text)
+    # pint's expression parser fails on malformed text in many ways (a TokenError for "m)",
+    # an AssertionError for "m/" or "()"): every failure here means "not a unit".
     try:
         return ureg.parse_units(text)
-    except (pint.errors.PintError, AttributeError, TypeError, ValueError, SyntaxError):
+    except Exception:  # noqa: BLE001
         pass
     try:
         return ureg.parse_units(text, case_sensitive=False)
-    except (pint.errors.PintError, AttributeError, TypeError, ValueError, SyntaxError):
+    except Exception:  # noqa: BLE001
         raise InputError(f"{field}: '{unit_text}' is not a unit this tool knows") from None
 
 
@@ -144,7 +177,8 @@ def split_quantity(text: str, field: str) -> tuple[float, str]:
     match = _NUMBER.fullmatch(text)
     if not match:
         raise InputError(
-            f"{field}: '{text}' is not a quantity; write a number then a unit, e.g. '46 cm'"
+            f"{field}: '{one_line(text)}' is not a quantity; write a number then a unit, "
+            "e.g. '46 cm'"
         )
     number_text, unit_text = match.groups()
     number = float(number_text.replace(",", "."))
@@ -164,11 +198,32 @@ def _units_of_kind(unit_text: str, kind: str, field: str) -> pint.Unit:
         ok = ureg.Quantity(1.0, units).dimensionality == ureg.Quantity(
             1.0, wanted.si_unit
         ).dimensionality
-    if not ok:
+    if not ok or not _plain_factors(units, kind):
         raise InputError(
             f"{field} needs {wanted.description}, e.g. '{wanted.example}', got '{unit_text}'"
         )
     return units
+
+
+def _plain_factors(units: pint.Unit, kind: str) -> bool:
+    """Whether a unit holds no dimensionless factor that makes no sense for ``kind``.
+
+    pint's radian, steradian, percent and count are dimensionless, so it takes ``rad*m`` for a
+    length and ``%/s``, ``sr/s`` or ``rpm*rad`` for a rotation rate. Here a rotation rate may
+    hold one angle to the first power (rpm, rev/s, rad/s, deg/s), a fraction may be a plain
+    ratio (%, ppm), and nothing else holds either.
+    """
+    angle = 0
+    for name, power in ureg.Quantity(1.0, units).unit_items():
+        base = dict(ureg.Quantity(1.0, name).to_base_units().unit_items())
+        angle_power = base.pop("radian", 0)
+        if angle_power and (power != 1 or kind != "rotation_rate"):
+            return False
+        angle += angle_power * power
+        ratio = "count" in base or (not base and not angle_power)
+        if ratio and kind != "fraction":
+            return False
+    return angle <= 1
 
 
 @lru_cache(maxsize=512)
@@ -287,9 +342,16 @@ def parse_quantity(text: object, kind: str, field: str) -> float:
         message = str(error)
         tail = f"got '{unit_text}'"
         if message.endswith(tail):
-            message = message[: -len(tail)] + f"got '{str(text).strip()}'"
+            message = message[: -len(tail)] + f"got '{one_line(str(text).strip())}'"
         raise InputError(message) from None
-    return number * scale + offset
+    return _finite(number * scale + offset, text, field)
+
+
+def _finite(value: float, text: object, field: str) -> float:
+    """The value, or an InputError when the conversion to SI overflowed ("1e308 km")."""
+    if not math.isfinite(value):
+        raise InputError(f"{field}: the number in '{text}' is too large")
+    return value
 
 
 def parse_speed(text: object, field: str = "speed") -> tuple[float, str]:
@@ -309,7 +371,7 @@ def parse_speed(text: object, field: str = "speed") -> tuple[float, str]:
     """
     number, unit_text = split_quantity(text, field)  # type: ignore[arg-type]
     scale, speed_kind = speed_unit_conversion(unit_text, field)
-    return number * scale, speed_kind
+    return _finite(number * scale, text, field), speed_kind
 
 
 @lru_cache(maxsize=256)
@@ -332,9 +394,11 @@ def speed_unit_conversion(unit_text: str, field: str = "speed") -> tuple[float, 
         raise InputError(f"{field} needs a unit, e.g. '300 rpm' or '6 m/s'")
     units = _parse_units(unit_text, field)
     dims = ureg.Quantity(1.0, units).dimensionality
-    if dims == ureg.Quantity(1.0, "1/s").dimensionality:
+    if dims == ureg.Quantity(1.0, "1/s").dimensionality and _plain_factors(units,
+                                                                          "rotation_rate"):
         return rotation_rate_factor(units), "rotation"
-    if dims == ureg.Quantity(1.0, "m/s").dimensionality:
+    if dims == ureg.Quantity(1.0, "m/s").dimensionality and _plain_factors(units,
+                                                                          "linear_speed"):
         return float(ureg.Quantity(1.0, units).to("m/s").magnitude), "linear"
     raise InputError(
         f"{field} needs a rotation rate (e.g. '300 rpm') or a linear speed (e.g. '6 m/s'), "
@@ -380,10 +444,10 @@ def parse_tolerance(text: object, kind: str, field: str) -> Tolerance:
         return Tolerance(number / 100.0, relative=True)
     if kind == "rotation_rate":
         scale, _speed_kind = speed_unit_conversion(unit_text, field)
-        return Tolerance(number * scale, relative=False)
+        return Tolerance(_finite(number * scale, text, field), relative=False)
     scale, _offset = unit_conversion(unit_text, kind, field)
     # A temperature tolerance is a difference: the offset does not apply.
-    return Tolerance(number * scale, relative=False)
+    return Tolerance(_finite(number * scale, text, field), relative=False)
 
 
 def to_display(value_si: float, kind: str, unit: str) -> float:
@@ -404,4 +468,6 @@ def to_display(value_si: float, kind: str, unit: str) -> float:
         The value in ``unit``.
     """
     scale, offset = unit_conversion(unit, kind, "display unit")
-    return (value_si - offset) / scale
+    # An absurd flagged value may overflow in the display unit: it shows as infinite.
+    with np.errstate(over="ignore", invalid="ignore"):
+        return (value_si - offset) / scale

@@ -799,3 +799,12 @@ def test_no_row_is_lost_or_reordered(rows):
             assert math.isnan(got) and ("not_a_number" in flags or "missing_value" in flags)
         else:
             assert got == pytest.approx(expected, rel=1e-12, abs=1e-300)
+
+
+def test_sessions_that_restart_their_clock_are_not_duplicates():
+    # Two sessions, each timed in seconds from its own start: the same elapsed times recur.
+    text = ("machine,session,time [s],speed [rpm],current [uA]\n"
+            "twin,before,0,300,5\ntwin,before,10,300,5\n"
+            "twin,after,0,300,9\ntwin,after,10,300,9\ntwin,after,10,300,9\n")
+    frame = read_readings(text.encode(), name="restart.csv").frame
+    assert list(frame["flags"]) == ["", "", "", "", "duplicate_time"]
