@@ -1108,8 +1108,18 @@ def _column_si(
             f"default). Write the unit in the header, e.g. '{field_name} [{unit}]', if it is "
             "another"
         )
-    units_used[field_name] = unit
     values, not_number = _numbers(table.data[field_name].reset_index(drop=True), decimal)
+    finite = values[np.isfinite(values)]
+    if (origin == "default" and field_name == "rh" and finite.size
+            and finite.min() >= 0 and finite.max() <= 1.0):
+        # Every humidity between 0 and 1 with no unit: a logger writing fractions, not
+        # percentages below 1 %. Read as a fraction and say so.
+        unit, scale, offset = "", 1.0, 0.0
+        messages.pop()  # the "read as % (the default)" note just above no longer holds
+        messages.append(f"{source}: column {_quoted(column.header)} holds values from 0 to 1 "
+                        "only: read as a fraction (0.45 = 45 %). Write 'rh [%]' in the header "
+                        "if these really are percentages")
+    units_used[field_name] = unit
     si_values, overflow = _scaled(values, scale, offset)
     return si_values, not_number | overflow, speed_kind
 

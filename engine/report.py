@@ -38,6 +38,10 @@ OUTPUT_COLUMNS: tuple[str, ...] = (
 )
 #: Columns appended after :data:`OUTPUT_COLUMNS`, each only when the input has it.
 OPTIONAL_OUTPUT_COLUMNS: tuple[str, ...] = ("session", "note")
+#: What else a reading carries, appended last when the input has it: its row in the source
+#: file (to trace a flag back), the belt speed, the air, and the achieved surface density.
+TRACE_OUTPUT_COLUMNS: tuple[str, ...] = ("row", "belt_speed_m_s", "temperature_C",
+                                         "pressure_kPa", "surface_density_uC_m2")
 #: Leading characters that make a spreadsheet read a cell as a formula (OWASP, CSV injection).
 FORMULA_PREFIXES: tuple[str, ...] = ("=", "+", "-", "@", "\t", "\r")
 
@@ -124,8 +128,10 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
     Returns
     -------
     pandas.DataFrame
-        Columns :data:`OUTPUT_COLUMNS` in that order, then ``session`` and ``note`` when the
-        input has them; rows in input order, index 0..n-1. Units: time as ISO text ("" when
+        Columns :data:`OUTPUT_COLUMNS` in that order, then ``session`` and ``note`` and then
+        :data:`TRACE_OUTPUT_COLUMNS` (source row, belt speed [m/s], temperature [degC],
+        pressure [kPa], surface density [uC/m^2]) when the input has them;
+        rows in input order, index 0..n-1. Units: time as ISO text ("" when
         unknown), speed [rev/s], currents [uA], efficiency and its uncertainty as fractions,
         charge per revolution [nC], relative humidity [%], absolute humidity [g/m^3], dew
         point [degC], relative air density [-], flags as "code;code" ("" when clean).
@@ -149,6 +155,17 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
     for name, column in (("session", col.SESSION), ("note", col.NOTE)):
         if column in derived:
             out[name] = _texts(derived, column)
+    if col.ROW in derived:
+        out["row"] = pd.to_numeric(derived[col.ROW], errors="coerce").to_numpy()
+    for name, column, convert in (
+            ("belt_speed_m_s", col.BELT_SPEED_M_S, lambda values: values),
+            ("temperature_C", col.TEMPERATURE_K,
+             lambda values: to_display(values, "temperature", "degC")),
+            ("pressure_kPa", col.PRESSURE_PA,
+             lambda values: to_display(values, "pressure", "kPa")),
+            ("surface_density_uC_m2", col.SURFACE_DENSITY_C_M2, lambda values: values * 1e6)):
+        if column in derived:
+            out[name] = convert(_floats(derived, column))
     return pd.DataFrame(out, index=pd.RangeIndex(len(derived)))
 
 

@@ -140,6 +140,7 @@ preview = pd.DataFrame({
     "session": output.get("session", ""),
     "time": output["time"],
     "speed [rpm]": output["speed_rev_s"] * 60,
+    "belt speed [m/s]": output["belt_speed_m_s"],
     "current [µA]": output["current_uA"],
     "ceiling [µA]": output["ceiling_uA"],
     "efficiency [%]": output["efficiency"] * 100,
@@ -149,6 +150,8 @@ preview = pd.DataFrame({
 })
 show_only_flagged = st.toggle("Show only flagged readings", not counts.empty,
                               key="readings-only-flagged")
+if preview["belt speed [m/s]"].isna().all():
+    preview = preview.drop(columns=["belt speed [m/s]"])
 table = preview[preview["flags"] != ""] if show_only_flagged else preview
 st.dataframe(table.head(500), hide_index=True, key="readings-preview",
              column_config={name: st.column_config.NumberColumn(format="%.4g")

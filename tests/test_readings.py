@@ -808,3 +808,14 @@ def test_sessions_that_restart_their_clock_are_not_duplicates():
             "twin,after,0,300,9\ntwin,after,10,300,9\ntwin,after,10,300,9\n")
     frame = read_readings(text.encode(), name="restart.csv").frame
     assert list(frame["flags"]) == ["", "", "", "", "duplicate_time"]
+
+
+def test_humidity_written_as_fractions_without_a_unit_is_read_as_fractions():
+    text = "machine,speed [rpm],current [uA],rh\ntwin,300,5,0.45\ntwin,310,5,0.52\n"
+    result = read_readings(text.encode(), name="fractions.csv")
+    assert list(result.frame["rh"]) == [0.45, 0.52]  # not 0.45 %
+    assert any("read as a fraction" in message for message in result.messages)
+    # A unit in the header is taken as written.
+    text = text.replace(",rh\n", ",rh [%]\n")
+    assert read_readings(text.encode(), name="percent.csv").frame["rh"].iloc[0] == \
+        pytest.approx(0.0045)

@@ -15,6 +15,7 @@ from engine import columns as col
 from engine.report import (
     FORMULA_PREFIXES,
     OUTPUT_COLUMNS,
+    TRACE_OUTPUT_COLUMNS,
     html_report,
     iso_text,
     neutralise_formula,
@@ -59,9 +60,11 @@ def test_output_columns_are_the_agreed_list_in_order():
         "relative_air_density", "flags",
     )
     out = output_frame(frame_of(one_reading()))
-    assert list(out.columns) == [*OUTPUT_COLUMNS, "session", "note"]
+    assert list(out.columns) == [*OUTPUT_COLUMNS, "session", "note", *TRACE_OUTPUT_COLUMNS]
     without = frame_of(one_reading()).drop(columns=[col.SESSION, col.NOTE])
-    assert list(output_frame(without).columns) == list(OUTPUT_COLUMNS)
+    assert list(output_frame(without).columns) == [*OUTPUT_COLUMNS, *TRACE_OUTPUT_COLUMNS]
+    bare = frame_of(one_reading())[[col.MACHINE, col.TIME, col.CURRENT_A, col.FLAGS]]
+    assert list(output_frame(bare).columns) == list(OUTPUT_COLUMNS)
 
 
 def test_output_frame_unit_conversions_hand_worked():
@@ -172,7 +175,7 @@ def test_csv_neutralises_each_leading_character_and_keeps_numbers():
         # a negative number is a number, not text: it is written as it is
         assert float(row["current_uA"]) == pytest.approx(-(number + 1))
         assert not row["current_uA"].startswith("'")
-    assert list(rows[0]) == [*OUTPUT_COLUMNS, "session", "note"]
+    assert list(rows[0])[:15] == [*OUTPUT_COLUMNS, "session", "note"]
 
 
 def test_csv_numbers_without_binary_noise():
@@ -190,7 +193,7 @@ def test_xlsx_neutralises_each_leading_character_and_has_no_formulas():
     assert book.sheetnames == ["readings", "findings"]
     sheet = book["readings"]
     header = [cell.value for cell in sheet[1]]
-    assert header == [*OUTPUT_COLUMNS, "session", "note"]
+    assert header[:15] == [*OUTPUT_COLUMNS, "session", "note"]
     for number, leader in enumerate(SIX_LEADERS):
         values = dict(zip(header, (cell.value for cell in sheet[number + 2]), strict=True))
         # XML parsers read a carriage return as a line feed (XML 1.0, section 2.11)
