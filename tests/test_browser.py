@@ -21,7 +21,9 @@ ARTIFACTS = ROOT / "tests" / "artifacts"
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 CHROMIUM_FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
                   "--disable-component-update", "--disable-sync", "--no-first-run"]
-PAGES = {"": "Ceiling Lab", "machines": "Machines", "readings": "Readings", "compare": "Compare",
+# Compare first: a direct link as the very first request of a fresh server must still go
+# through the app's frame (navigation, demo loading), not Streamlit's folder-based pages.
+PAGES = {"compare": "Compare", "": "Ceiling Lab", "machines": "Machines", "readings": "Readings",
          "sessions": "Sessions", "planner": "Planner", "report": "Report",
          "safety": "Safety and method"}
 
@@ -109,6 +111,9 @@ def test_every_page_opens_without_error(server, browser, path):
         assert errors.count() == 0, errors.all_inner_texts()
         if path == "compare":
             assert page.locator("[data-testid='stPlotlyChart']").count() == 4
+        # The app's own navigation, never one entry per file of the pages folder.
+        sidebar = page.locator("[data-testid='stSidebarNav']").inner_text()
+        assert "Safety and method" in sidebar and "_shared" not in sidebar
     finally:
         page.close()
 
