@@ -235,13 +235,18 @@ def _style(figure: go.Figure, title: str, x_title: str, y_title: str) -> None:
             if name.endswith(suffix):
                 trace.showlegend = False
                 line = getattr(trace, "line", None)
-                marker = getattr(trace, "mode", "") or ""
-                line_kinds.setdefault(kind, ((line.dash if line else None) or "solid", marker))
-    for kind, (dash, mode) in line_kinds.items():
+                mode = getattr(trace, "mode", "") or ""
+                marker = getattr(trace, "marker", None)
+                symbol = (marker.symbol if marker is not None else None) or "circle"
+                line_kinds.setdefault(kind, ((line.dash if line else None) or "solid", mode,
+                                             symbol))
+    for kind, (dash, mode, symbol) in line_kinds.items():
+        # The key looks like the traces it stands for (a line, or the same marker).
         figure.add_trace(go.Scatter(x=[None], y=[None], name=kind, hoverinfo="skip",
                                     mode="markers" if mode == "markers" else "lines",
                                     line={"color": "#555555", "dash": dash},
-                                    marker={"color": "#555555", "symbol": "diamond"},
+                                    marker={"color": "#555555", "symbol": symbol, "size": 10,
+                                            "line": {"width": 2, "color": "#555555"}},
                                     legendgroup=f"key-{kind}"))
     figure.update_layout(title=title, template="plotly_white", hovermode="closest",
                          height=500, margin={"l": 60, "r": 20, "t": 60, "b": 40},
