@@ -68,6 +68,25 @@ def relative_air_density(pressure_pa, temperature_k):
     return (pressure_pa / REFERENCE_PRESSURE_PA) * (REFERENCE_TEMPERATURE_K / temperature_k)
 
 
+def pressure_for_relative_density(relative_density, temperature_k=REFERENCE_TEMPERATURE_K):
+    """Pressure that gives a relative air density at a temperature (inverse of delta).
+
+    Parameters
+    ----------
+    relative_density : float or array_like
+        Relative air density delta [-].
+    temperature_k : float or array_like, optional
+        Air temperature [K]; default the IEC 60060-1 reference, 293.15 K.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Pressure [Pa], p = delta * 101.3 kPa * T / 293.15 K.
+    """
+    return (np.asarray(relative_density, dtype=float) * REFERENCE_PRESSURE_PA
+            * np.asarray(temperature_k, dtype=float) / REFERENCE_TEMPERATURE_K)
+
+
 def pressure_from_altitude(altitude_m):
     """Air pressure at a geometric altitude by the ICAO standard atmosphere.
 

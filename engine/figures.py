@@ -29,7 +29,7 @@ import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
 from engine import columns as col
-from engine.air import REFERENCE_PRESSURE_PA, REFERENCE_TEMPERATURE_K
+from engine.air import REFERENCE_TEMPERATURE_K, pressure_for_relative_density
 from engine.carriers import Belt, Cylinder, Disc
 from engine.ceiling import machine_ceiling
 from engine.errors import InputError
@@ -161,6 +161,22 @@ def _machine_ids(frame: pd.DataFrame) -> list[str]:
     return sorted({text for text in texts if text})
 
 
+def _chart_basics(derived: pd.DataFrame, colours: Mapping[str, str] | None
+                  ) -> tuple[list[str], dict[str, str], np.ndarray, np.ndarray]:
+    """What every comparison chart starts from: machine ids, colours, flags, machine column."""
+    ids = _machine_ids(derived)
+    return ids, _colours_for(colours, ids), _flagged(derived), _machine_column(derived)
+
+
+def _clean_machines(ids: Sequence[str], machine_column: np.ndarray, flagged: np.ndarray,
+                    machines: Mapping[str, Machine], colours: Mapping[str, str]):
+    """Each machine with clean readings: its id, their rows, its (escaped) label and colour."""
+    for machine_id in ids:
+        rows = (machine_column == machine_id) & ~flagged
+        if rows.any():
+            yield machine_id, rows, _escape(_label(machines, machine_id)), colours[machine_id]
+
+
 def _label(machines: Mapping[str, Machine], machine_id: str) -> str:
     machine = machines.get(machine_id)
     return machine.label if machine is not None and machine.label else machine_id
@@ -290,7 +306,7 @@ def _ceiling_at_density(machine: Machine, speed_rev_s, relative_density: float):
     """
     try:
         result = machine_ceiling(machine, speed_rev_s,
-                                 pressure_pa=relative_density * REFERENCE_PRESSURE_PA,
+                                 pressure_pa=pressure_for_relative_density(relative_density),
                                  temperature_k=REFERENCE_TEMPERATURE_K)
     except InputError:
         # a belt known only by its linear speed has no ceiling per revolution
@@ -403,20 +419,14 @@ def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None
     if derived is None or len(derived) == 0:
         return _empty_figure(title)
     machines = machines or {}
-    ids = _machine_ids(derived)
-    colours = _colours_for(colours, ids)
-    flagged = _flagged(derived)
-    machine_column = _machine_column(derived)
+    ids, colours, flagged, machine_column = _chart_basics(derived, colours)
     speed_rev_s = _floats(derived, col.SPEED_REV_S)
     speed_rpm = _rpm(speed_rev_s)
     current_ua = _micro_amp(_floats(derived, col.CURRENT_A))
     figure = go.Figure()
     no_speed, no_description = [], []
-    for machine_id in ids:
-        rows = (machine_column == machine_id) & ~flagged
-        if not rows.any():
-            continue
-        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+    for machine_id, rows, label, colour in _clean_machines(ids, machine_column, flagged,
+                                                           machines, colours):
         speed_range = _finite_range(speed_rev_s[rows])
         if speed_range is None:
             no_speed.append(machine_id)
@@ -494,21 +504,15 @@ def efficiency_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | N
     if derived is None or len(derived) == 0:
         return _empty_figure(title)
     machines = machines or {}
-    ids = _machine_ids(derived)
-    colours = _colours_for(colours, ids)
-    flagged = _flagged(derived)
-    machine_column = _machine_column(derived)
+    ids, colours, flagged, machine_column = _chart_basics(derived, colours)
     speed_rev_s = _floats(derived, col.SPEED_REV_S)
     speed_rpm = _rpm(speed_rev_s)
     efficiency_pct = _percent(_floats(derived, col.EFFICIENCY))
     uncertainty_pct = _percent(_floats(derived, col.EFFICIENCY_U))
     figure = go.Figure()
     no_speed, no_description = [], []
-    for machine_id in ids:
-        rows = (machine_column == machine_id) & ~flagged
-        if not rows.any():
-            continue
-        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+    for machine_id, rows, label, colour in _clean_machines(ids, machine_column, flagged,
+                                                           machines, colours):
         speed_range = _finite_range(speed_rev_s[rows])
         if speed_range is None:
             no_speed.append(machine_id)
@@ -596,10 +600,7 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     if derived is None or len(derived) == 0:
         return _empty_figure(title)
     machines = machines or {}
-    ids = _machine_ids(derived)
-    colours = _colours_for(colours, ids)
-    flagged = _flagged(derived)
-    machine_column = _machine_column(derived)
+    ids, colours, flagged, machine_column = _chart_basics(derived, colours)
     charge_nc = _floats(derived, col.CHARGE_PER_REV_C) * _NANO
     figure = go.Figure()
     position_of: dict[str, int] = {}
@@ -710,22 +711,16 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
     if derived is None or len(derived) == 0:
         return _empty_figure(title)
     machines = machines or {}
-    ids = _machine_ids(derived)
-    colours = _colours_for(colours, ids)
-    flagged = _flagged(derived)
-    machine_column = _machine_column(derived)
+    ids, colours, flagged, machine_column = _chart_basics(derived, colours)
     rh_pct = _percent(_floats(derived, col.RH))
     efficiency_pct = _percent(_floats(derived, col.EFFICIENCY))
     figure = go.Figure()
     no_humidity = []
-    for machine_id in ids:
-        rows = (machine_column == machine_id) & ~flagged
-        if not rows.any():
-            continue
-        label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
+    for machine_id, rows, label, colour in _clean_machines(ids, machine_column, flagged,
+                                                           machines, colours):
         rh_range = _finite_range(rh_pct[rows])
         if rh_range is None:
-            no_humidity.append(_escape(_label(machines, machine_id)))
+            no_humidity.append(label)
             continue
         figure.add_trace(_scatter(
             int(rows.sum()), x=rh_pct[rows], y=efficiency_pct[rows], mode="markers",

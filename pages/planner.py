@@ -3,7 +3,11 @@
 import numpy as np
 import streamlit as st
 
-from engine.air import REFERENCE_PRESSURE_PA, REFERENCE_TEMPERATURE_K, pressure_from_altitude
+from engine.air import (
+    REFERENCE_TEMPERATURE_K,
+    pressure_for_relative_density,
+    pressure_from_altitude,
+)
 from engine.ceiling import SIZES_HELD, ceiling_figures, size_for_current, speed_for_current
 from engine.errors import InputError
 from engine.figures import planner_curve
@@ -50,11 +54,13 @@ if machine is not None:
         if air_mode == "an altitude":
             altitude = parse_quantity(st.text_input("Altitude", "1500 m", key="planner-altitude"),
                                       "length", "altitude")
-            pressure_pa, temperature_k = float(pressure_from_altitude(altitude)), 293.15
+            pressure_pa = float(pressure_from_altitude(altitude))
+            temperature_k = REFERENCE_TEMPERATURE_K
         elif air_mode == "a relative air density":
             delta = st.slider("Relative air density", 0.5, 1.2, 0.83, 0.01,
                               key="planner-delta")
-            pressure_pa, temperature_k = delta * REFERENCE_PRESSURE_PA, REFERENCE_TEMPERATURE_K
+            temperature_k = REFERENCE_TEMPERATURE_K
+            pressure_pa = float(pressure_for_relative_density(delta, temperature_k))
 
         speed_kind = "linear" if "rotation" not in machine.carrier.speed_kinds else "rotation"
         top_text = st.text_input("Speeds up to", "6 m/s" if speed_kind == "linear"
@@ -80,8 +86,8 @@ if machine is not None:
         left.metric(f"Ceiling at {top_text}", f"{here['ceiling_current_uA']:.3g} µA",
                     delta=f"{(density - 1) * 100:+.1f} % against sea-level reference air",
                     delta_color="off")
-        right.metric("Charge density limit here", f"{here['charge_density_limit_uC_m2']:.3g} uC/m²",
-                     help=f"Reference air: {reference['charge_density_limit_uC_m2']:.3g} uC/m²")
+        right.metric("Charge density limit here", f"{here['charge_density_limit_uC_m2']:.3g} µC/m²",
+                     help=f"Reference air: {reference['charge_density_limit_uC_m2']:.3g} µC/m²")
 
         st.subheader("What reaches a target current?")
         target_column, speed_column = st.columns(2)

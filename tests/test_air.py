@@ -117,3 +117,12 @@ def test_humidity_functions_are_vectorised_and_consistent():
     assert np.isnan(dew[0])  # no dew point in perfectly dry air
     assert dew[2] == pytest.approx(283.15)  # saturated air: dew point equals temperature
     assert absolute_humidity(rh, temperature)[0] == 0.0
+
+
+def test_pressure_for_a_relative_density_inverts_delta():
+    from engine.air import pressure_for_relative_density
+
+    # delta 0.83 at 30 degC: p = 0.83 * 101.3 kPa * 303.15 / 293.15 = 86.95 kPa (hand-worked)
+    pressure = pressure_for_relative_density(0.83, 303.15)
+    assert pressure == pytest.approx(0.83 * 101_300 * 303.15 / 293.15)
+    assert relative_air_density(pressure, 303.15) == pytest.approx(0.83)
