@@ -22,10 +22,11 @@ from pathlib import Path
 
 from engine import analysis, columns, report
 from engine.air import REFERENCE_TEMPERATURE_K, site_pressure
-from engine.carriers import CARRIER_KINDS, ROTATION, carrier_from_spec
+from engine.arrangements import ARRANGEMENTS, COLLECTORS
+from engine.carriers import CARRIER_KINDS, ROTATION
 from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
-from engine.machines import Machine, load_machines
+from engine.machines import load_machines, machine_from_table
 from engine.readings import ReadOptions, merge_environment, read_environment, read_readings
 from engine.units import one_line, parse_quantity, parse_speed, split_quantity
 
@@ -38,7 +39,7 @@ _GEOMETRY_OPTIONS = {
     "outer_diameter": "outer diameter of the charged zone (disc), e.g. '46 cm'",
     "inner_radius": "inner radius of the charged zone (disc)",
     "inner_diameter": "inner diameter of the charged zone (disc)",
-    "sector_fill": "fraction of the annulus that carries charge (disc), e.g. 0.55 or '55 %'",
+    "sector_fill": "fraction of the annulus that carries charge (disc), e.g. 0.55 or '55 %%'",
     "width": "belt width, e.g. '5 cm'",
     "roller_diameter": "diameter of the roller the speed is read on (belt)",
     "loop_length": "belt loop length, when the speed counts belt circulations",
@@ -110,45 +111,70 @@ def _format_summary(figures: dict[str, object], label: str) -> str:
         f"{figures['relative_air_density']:.3f}",
         f"  breakdown field               {figures['breakdown_field_MV_m']:.3g} MV/m, "
         f"charge density limit {figures['charge_density_limit_uC_m2']:.4g} uC/m^2",
-        f"  carriers x collection factor  {figures['carriers']} x "
-        f"{figures['collection_factor']:g}",
+        f"  one unit (one carrier)        {figures['single_carrier_ceiling_uA']:.4g} uA",
+        f"  units                         {figures['units']:g}: {figures['units_rule']}",
         f"  ceiling current               {figures['ceiling_current_uA']:.4g} uA",
     ]
     return "\n".join(lines)
 
 
-def _command_ceiling(args: argparse.Namespace) -> int:
-    spec = {key: getattr(args, key) for key in _GEOMETRY_OPTIONS
-            if getattr(args, key) is not None}
+#: Machines-file keys that `ceiling` takes as options, besides the geometry.
+_MACHINE_OPTIONS = ("carriers", "collection_factor", "arrangement", "collectors", "discs",
+                    "units", "breakdown_field")
+
+
+def _as_option_names(message: str) -> str:
+    """A machines-file message in the command line's words: keys become --options."""
+    message = message.replace("machine 'command-line': ", "")
+    keys = sorted(list(_GEOMETRY_OPTIONS) + [key for key in _MACHINE_OPTIONS if key != "units"],
+                  key=len, reverse=True)
+    for key in keys:
+        message = re.sub(rf"(?<![\w-]){key}(?!\w)", "--" + key.replace("_", "-"), message)
+    # "units" is also a plain word: only where it stands for the key.
+    message = re.sub(r"(?<![\w-])units(?= must| or | =)|(?<=give )units(?= or)", "--units",
+                     message)
+    message = re.sub(r"(--[\w-]+) = (\"?[\w.-]+\"?)", r"\1 \2", message)
+    message = re.sub(r"is not a key of a (\w+) machine; its keys are", r"is not an option for a "
+                     r"\1; its options are", message)
+    return re.sub(r"is not a (\w+) key; \w+ keys are", r"is not an option for a \1; its "
+                  r"options are", message)
+
+
+def _whole_number(text: str, name: str) -> int:
     try:
-        carrier = carrier_from_spec(args.carrier, spec, f"{args.carrier} carrier")
+        return int(text)
+    except ValueError:
+        raise InputError(f"{name} must be a whole number, got '{text}'") from None
+
+
+def _command_ceiling(args: argparse.Namespace) -> int:
+    table: dict[str, object] = {"id": "command-line", "carrier": args.carrier}
+    table.update({key: getattr(args, key) for key in _GEOMETRY_OPTIONS
+                  if getattr(args, key) is not None})
+    if args.carriers is not None:
+        table["carriers"] = _positive_count(args.carriers, "--carriers")
+    if args.collection_factor is not None:
+        table["collection_factor"] = _positive_number(args.collection_factor,
+                                                      "--collection-factor")
+    if args.units is not None:
+        table["units"] = _positive_number(args.units, "--units")
+    if args.discs is not None:
+        table["discs"] = _whole_number(args.discs, "--discs")
+    for key in ("arrangement", "collectors", "breakdown_field"):
+        if getattr(args, key) is not None:
+            table[key] = getattr(args, key)
+    try:
+        machine = machine_from_table(table)
     except InputError as error:
         # Name the options as typed on the command line, not the machines-file keys.
-        message = str(error)
-        for key in sorted(_GEOMETRY_OPTIONS, key=len, reverse=True):
-            message = re.sub(rf"(?<![\w-]){key}(?!\w)", "--" + key.replace("_", "-"), message)
-        message = re.sub(r"is not a (\w+) key; \w+ keys are", r"is not an option for a \1; "
-                         r"its options are", message)
-        raise InputError(message) from None
-    reference_field = (parse_quantity(args.breakdown_field, "electric_field",
-                                      "--breakdown-field") if args.breakdown_field else None)
-    if reference_field is not None and not reference_field > 0:
-        raise InputError("--breakdown-field must be positive")
-    machine = Machine(
-        id="command-line",
-        label=f"a {args.carrier} machine",
-        carrier=carrier,
-        carriers=_positive_count(args.carriers, "--carriers"),
-        collection_factor=_positive_number(args.collection_factor, "--collection-factor"),
-        **({"reference_field_v_m": reference_field} if reference_field else {}),
-    )
+        raise InputError(_as_option_names(str(error))) from None
     speed, speed_kind = _speed_from_option(args.speed)
     pressure_pa, temperature_k = _air_from_options(args)
     figures = ceiling_figures(machine, speed, speed_kind, pressure_pa, temperature_k)
     if args.json:
         print(json.dumps(figures))
     else:
-        print(_format_summary(figures, machine.label))
+        print(_format_summary(figures, f"a {args.carrier} machine"))
     return 0
 
 
@@ -161,8 +187,14 @@ def _command_machines(args: argparse.Namespace) -> int:
             "id": machine.id,
             "label": machine.label,
             "carrier": machine.kind,
+            "arrangement": machine.arrangement or None,
+            "collectors": machine.collectors or None,
+            "discs": machine.discs,
             "carriers": machine.carriers,
-            "collection_factor": machine.collection_factor,
+            "collection_factor": (machine.collection_factor if machine.counts_carriers
+                                  else None),
+            "units": machine.units,
+            "units_rule": machine.unit_rule.text,
             "area_per_rev_m2": machine.carrier.area_per_rev_m2,
         }
         if speed is not None:
@@ -181,13 +213,13 @@ def _command_machines(args: argparse.Namespace) -> int:
     if not rows:
         print(f"{args.file}: no machines")
         return 0
-    header = f"{'id':<24} {'carrier':<9} {'N':>3} {'area/rev [m^2]':>15}"
+    header = f"{'id':<24} {'carrier':<9} {'units':>6} {'area/rev [m^2]':>15}"
     if speed is not None:
         header += f" {'ceiling [uA]':>13}"
     print(header)
     for row, machine in zip(rows, machine_file.machines, strict=True):
         area = machine.carrier.area_per_rev_m2  # the machine's own, whatever the speed
-        line = (f"{row['id']:<24} {row['carrier']:<9} {row['carriers']:>3} "
+        line = (f"{row['id']:<24} {row['carrier']:<9} {row['units']:>6g} "
                 f"{(f'{area:.5g}' if area is not None else 'linear only'):>15}")
         if speed is not None:
             ceiling = row.get("ceiling_current_uA")
@@ -370,8 +402,16 @@ def build_parser() -> argparse.ArgumentParser:
     ceiling.add_argument("--carrier", required=True, choices=CARRIER_KINDS)
     for key, help_text in _GEOMETRY_OPTIONS.items():
         ceiling.add_argument("--" + key.replace("_", "-"), dest=key, help=help_text)
-    ceiling.add_argument("--carriers", default="1", help="number of carriers N (default 1)")
-    ceiling.add_argument("--collection-factor", default="1",
+    ceiling.add_argument("--arrangement", choices=ARRANGEMENTS,
+                         help="how a disc machine's discs are arranged; sets its units")
+    ceiling.add_argument("--collectors", choices=COLLECTORS,
+                         help="fixed (default) or split collectors, with --arrangement")
+    ceiling.add_argument("--discs", help="number of discs of a disc-stack (at least 3)")
+    ceiling.add_argument("--units", help="units of the one-carrier ceiling the machine "
+                         "delivers, given directly")
+    ceiling.add_argument("--carriers", help="number of carriers N that deliver charge "
+                         "(belts, cylinders, custom; default 1)")
+    ceiling.add_argument("--collection-factor",
                          help="charge loads per revolution per carrier k (default 1)")
     ceiling.add_argument("--speed", required=True,
                          help="rotation rate ('300 rpm', '5 rev/s') or belt speed ('6 m/s')")

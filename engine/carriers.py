@@ -378,12 +378,18 @@ def carrier_from_spec(kind: str, spec: Mapping[str, object], where: str = "") ->
     if kind == "disc":
         outer = _one_of(spec, "outer_radius", "outer_diameter", where, required=True)
         inner = _one_of(spec, "inner_radius", "inner_diameter", where, required=False)
+        if inner is None:
+            raise InputError(
+                f"{where}: inner_diameter (or inner_radius) is missing: the charged zone of a "
+                "disc never reaches the hub, so give its inner edge (where the sectors or the "
+                "charged zone begin), e.g. inner_diameter = \"26 cm\"; write "
+                "inner_diameter = \"0 cm\" to mean a full disc on purpose")
         fill = (
             parse_quantity(spec["sector_fill"], "fraction", f"{where}: sector_fill")
             if "sector_fill" in spec
             else 1.0
         )
-        return Disc(outer, inner or 0.0, fill, where=where)  # type: ignore[arg-type]
+        return Disc(outer, inner, fill, where=where)  # type: ignore[arg-type]
     if kind == "belt":
         if "width" not in spec:
             raise InputError(f"{where}: width is missing, e.g. '5 cm'")

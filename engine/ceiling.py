@@ -1,6 +1,8 @@
 """The ceiling current: the most an open-air carrier machine can deliver.
 
-I_ceiling = sigma_limit * A_swept_per_s * N * k, with sigma_limit = eps0 * E_ref * delta.
+I_ceiling = sigma_limit * A_swept_per_s * units, with sigma_limit = eps0 * E_ref * delta and
+units the machine's count of one-carrier ceilings: from the arrangement of a disc machine (see
+:mod:`engine.arrangements`), or N * k for belts, cylinders and custom carriers.
 Every function is vectorised over arrays of speed, pressure and temperature: one call serves a
 million readings.
 """
@@ -24,9 +26,8 @@ from engine.errors import InputError
 from engine.machines import Machine
 
 
-def ceiling_current(charge_density_limit_c_m2, swept_area_per_s_m2, carriers=1,
-                    collection_factor=1.0):
-    """Ceiling current of a machine from its limit density and swept area.
+def ceiling_current(charge_density_limit_c_m2, swept_area_per_s_m2, units=1.0):
+    """Ceiling current of a machine from its limit density, swept area and units.
 
     Parameters
     ----------
@@ -35,21 +36,20 @@ def ceiling_current(charge_density_limit_c_m2, swept_area_per_s_m2, carriers=1,
     swept_area_per_s_m2 : float or array_like
         Charged area one carrier sweeps past the collectors per second [m^2/s]
         (area per revolution times revolutions per second, or belt width times speed).
-    carriers : int or array_like, optional
-        Number N of carriers delivering charge [-].
-    collection_factor : float or array_like, optional
-        Charge loads k per revolution per carrier [-].
+    units : float or array_like, optional
+        Units of the one-carrier ceiling the machine can deliver [-]: from a disc machine's
+        arrangement (see :mod:`engine.arrangements`), or carriers N times charge loads per
+        revolution k.
 
     Returns
     -------
     float or numpy.ndarray
-        Ceiling current [A], I = sigma_limit * A_s * N * k.
+        Ceiling current [A], I = sigma_limit * A_s * units.
     """
     return (
         np.asarray(charge_density_limit_c_m2, dtype=float)
         * np.asarray(swept_area_per_s_m2, dtype=float)
-        * np.asarray(carriers, dtype=float)
-        * np.asarray(collection_factor, dtype=float)
+        * np.asarray(units, dtype=float)
     )
 
 
@@ -111,7 +111,7 @@ def machine_ceiling(machine: Machine, speed, speed_kind: str = ROTATION,
     field_v_m = breakdown_field(delta, machine.reference_field_v_m)
     sigma = charge_density_limit(field_v_m)
     swept = machine.carrier.swept_area_per_s_m2(speed, speed_kind)
-    current = ceiling_current(sigma, swept, machine.carriers, machine.collection_factor)
+    current = ceiling_current(sigma, swept, machine.units)
     return CeilingResult(delta, field_v_m, sigma, swept, current)
 
 
@@ -132,14 +132,28 @@ def ceiling_figures(machine: Machine, speed: float, speed_kind: str = ROTATION,
         linear speed), ``swept_area_per_s_m2`` (one carrier), ``charge_density_limit_uC_m2``,
         ``relative_air_density``, ``speed_rev_s`` (None for a linear speed),
         ``linear_speed_m_s`` (None for a rotation rate), ``breakdown_field_MV_m``,
-        ``pressure_kPa``, ``temperature_C``, ``carrier``, ``carriers``, ``collection_factor``.
+        ``pressure_kPa``, ``temperature_C``, ``carrier``, ``arrangement`` and ``collectors``
+        (None without an arrangement), ``discs`` (a stack's, else None), ``carriers`` (discs of
+        an arrangement), ``collection_factor`` (None where the units do not come from it),
+        ``units``, ``units_rule`` (the rule in words with its basis) and
+        ``single_carrier_ceiling_uA`` (one unit at these air conditions), with
+        ``ceiling_current_uA = units * single_carrier_ceiling_uA``.
     """
     result = machine_ceiling(machine, speed, speed_kind, pressure_pa, temperature_k)
     rotation = speed_kind == ROTATION
+    rule = machine.unit_rule
+    single = float(ceiling_current(result.charge_density_limit_c_m2,
+                                   result.swept_area_per_s_m2, 1.0))
     return {
         "carrier": machine.kind,
+        "arrangement": machine.arrangement or None,
+        "collectors": machine.collectors or None,
+        "discs": machine.discs,
         "carriers": machine.carriers,
-        "collection_factor": machine.collection_factor,
+        "collection_factor": machine.collection_factor if machine.counts_carriers else None,
+        "units": rule.units,
+        "units_rule": rule.text,
+        "single_carrier_ceiling_uA": single * 1e6,
         "area_per_rev_m2": machine.carrier.area_per_rev_m2 if rotation else None,
         "speed_rev_s": float(speed) if rotation else None,
         "linear_speed_m_s": None if rotation else float(speed),
@@ -177,7 +191,7 @@ def speed_for_current(machine: Machine, target_current_a: float, speed_kind: str
     Returns
     -------
     float
-        Speed [rev/s] or [m/s]: f = I / (sigma_limit * A_rev * N * k), since the ceiling is
+        Speed [rev/s] or [m/s]: f = I / (sigma_limit * A_rev * units), since the ceiling is
         linear in speed.
     """
     if not target_current_a > 0:
@@ -220,7 +234,7 @@ def size_for_current(machine: Machine, target_current_a: float, speed: float,
 
     Notes
     -----
-    The swept area per second needed is A_s = I / (sigma_limit * N * k). A disc then needs
+    The swept area per second needed is A_s = I / (sigma_limit * units). A disc then needs
     r_out = sqrt(A_rev / (pi fill) + r_in^2) with A_rev = A_s / f; a belt needs w = A_s / v
     (v = f * length per revolution); a cylinder L = A_rev / (2 pi r); a custom carrier A_rev.
     """
@@ -229,7 +243,7 @@ def size_for_current(machine: Machine, target_current_a: float, speed: float,
     if not speed > 0:
         raise InputError("the speed must be positive")
     sigma = float(_limit_density(machine, pressure_pa, temperature_k))
-    swept_needed = target_current_a / (sigma * machine.carriers * machine.collection_factor)
+    swept_needed = target_current_a / (sigma * machine.units)
     carrier = machine.carrier
     if carrier.kind == "belt":
         if speed_kind == ROTATION:

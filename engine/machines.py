@@ -12,8 +12,8 @@ A machines file holds an optional ``[site]`` table and one ``[[machine]]`` table
     outer_diameter = "46 cm"
     inner_diameter = "30 cm"
     sector_fill = 0.55
-    carriers = 2
-    collection_factor = 1.0
+    arrangement = "twin-disc"     # or carriers = 2 and collection_factor = 1.0 (N x k units)
+    collectors = "fixed"
     breakdown_field = "3.0 MV/m"
 
     [machine.tolerance]
@@ -22,6 +22,12 @@ A machines file holds an optional ``[site]`` table and one ``[[machine]]`` table
     current = "3 %"
 
 Tolerances are read as one standard uncertainty (1 sigma) of the value they belong to.
+
+A disc machine names its ``arrangement`` (``single-disc``, ``twin-disc``,
+``twin-disc-sectorless``, ``disc-stack`` with ``discs = N``) and its ``collectors`` (``fixed``
+or ``split``), and gets the trade's units from :mod:`engine.arrangements`; or it gives
+``units`` directly. Belt, cylinder and custom machines, and disc machines of earlier files with
+neither, count ``carriers`` x ``collection_factor`` units.
 """
 
 from __future__ import annotations
@@ -35,6 +41,14 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from engine.air import REFERENCE_BREAKDOWN_FIELD_V_M, REFERENCE_TEMPERATURE_K, site_pressure
+from engine.arrangements import (
+    ARRANGEMENTS,
+    COLLECTORS,
+    UnitRule,
+    counted_units,
+    given_units,
+    unit_rule,
+)
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS, Carrier, carrier_from_spec
 from engine.errors import InputError
 from engine.units import (
@@ -54,6 +68,8 @@ MAX_MACHINES = 1_000
 
 _COMMON_KEYS = ("id", "label", "carrier", "carriers", "collection_factor", "breakdown_field",
                 "material", "notes", "tolerance")
+#: Keys that only a disc machine takes: how its discs and collectors are arranged.
+_DISC_KEYS = ("arrangement", "collectors", "discs", "units")
 _TOLERANCE_EXTRA_KINDS = {
     "speed": "rotation_rate",
     "current": "current",
@@ -76,9 +92,11 @@ class Machine:
     carrier : Carrier
         Geometry of one carrier (see :mod:`engine.carriers`).
     carriers : int
-        Number N of carriers that deliver charge (discs in a stack, belts).
+        Number N of carriers that deliver charge (belts, cylinders, custom carriers, and disc
+        machines described without an arrangement); for an arrangement, the number of discs.
     collection_factor : float
-        Charge loads k delivered per revolution per carrier [-]; default 1.
+        Charge loads k delivered per revolution per carrier [-]; default 1. Not used when the
+        machine has an arrangement or gives its units.
     reference_field_v_m : float
         Breakdown field of air at the reference atmosphere for this machine [V/m].
     tolerances : mapping of str to Tolerance
@@ -104,18 +122,58 @@ class Machine:
     spec: Mapping[str, object] = field(default_factory=dict)
     tolerance_spec: Mapping[str, str] = field(default_factory=dict)
     breakdown_field_text: str = ""
+    arrangement: str = ""
+    collectors: str = ""
+    discs: int | None = None
+    units_given: float | None = None
 
     @property
     def kind(self) -> str:
         """Carrier kind: disc, belt, cylinder or custom."""
         return self.carrier.kind
 
+    @property
+    def unit_rule(self) -> UnitRule:
+        """How many units of one carrier's ceiling the machine can deliver, and the rule.
+
+        From the arrangement (disc machines), the units given, or carriers x collection factor.
+        """
+        arranged = None
+        if self.arrangement:
+            sectored = getattr(self.carrier, "sector_fill", 1.0) < 1.0
+            arranged = unit_rule(self.arrangement, self.collectors or "fixed", self.discs,
+                                 sectored)
+        if self.units_given is not None:
+            return given_units(self.units_given, arranged)
+        if arranged is not None:
+            return arranged
+        return counted_units(self.carriers, self.collection_factor)
+
+    @property
+    def units(self) -> float:
+        """Expected units [-]: the ceiling is units x the ceiling of one carrier's area."""
+        return self.unit_rule.units
+
+    @property
+    def counts_carriers(self) -> bool:
+        """Whether the units come from carriers N x collection factor k (no arrangement, no
+        units given)."""
+        return not self.arrangement and self.units_given is None
+
     def to_table(self) -> dict[str, object]:
         """The machine as a TOML table (plain dict), in the file's own keys and units."""
         table: dict[str, object] = {"id": self.id, "label": self.label, "carrier": self.kind}
         table.update(self.spec)
-        table["carriers"] = self.carriers
-        table["collection_factor"] = self.collection_factor
+        if self.arrangement:
+            table["arrangement"] = self.arrangement
+            table["collectors"] = self.collectors or "fixed"
+            if self.discs is not None:
+                table["discs"] = self.discs
+        if self.units_given is not None:
+            table["units"] = self.units_given
+        if self.counts_carriers:
+            table["carriers"] = self.carriers
+            table["collection_factor"] = self.collection_factor
         if self.breakdown_field_text:
             table["breakdown_field"] = self.breakdown_field_text
         if self.material:
@@ -210,14 +268,20 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
             f"{where}: carrier {kind!r} is not known; use one of {', '.join(CARRIER_KINDS)}"
         )
     geometry_keys = SPEC_KEYS[kind]  # type: ignore[index]
-    unknown = sorted(set(table) - set(_COMMON_KEYS) - set(geometry_keys))
+    disc_keys = _DISC_KEYS if kind == "disc" else ()
+    unknown = sorted(set(table) - set(_COMMON_KEYS) - set(geometry_keys) - set(disc_keys))
     if unknown:
+        if unknown[0] in _DISC_KEYS:
+            raise InputError(
+                f"{where}: '{unknown[0]}' is for disc machines; a {kind} machine counts its "
+                "carriers and collection_factor (its units are carriers x collection_factor)")
         raise InputError(
             f"{where}: '{one_line(unknown[0])}' is not a key of a {kind} machine; its keys are "
-            f"{', '.join(list(_COMMON_KEYS) + list(geometry_keys))}"
+            f"{', '.join(list(_COMMON_KEYS) + list(geometry_keys) + list(disc_keys))}"
         )
     spec = {key: table[key] for key in geometry_keys if key in table}
     carrier = carrier_from_spec(kind, spec, where)  # type: ignore[arg-type]
+    arrangement, collectors, discs, units_given = _disc_arrangement(table, carrier, where)
 
     carriers = table.get("carriers", 1)
     if isinstance(carriers, bool) or not isinstance(carriers, int) or not 1 <= carriers <= 1000:
@@ -229,6 +293,8 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
     ):
         raise InputError(f"{where}: collection_factor must be a number above 0 (default 1), "
                          f"got {factor!r}")
+    if arrangement:
+        carriers = {"single-disc": 1, "disc-stack": discs}.get(arrangement, 2)
     field_text = table.get("breakdown_field", "")
     if not isinstance(field_text, str):
         raise InputError(f"{where}: breakdown_field needs a unit in quotes, e.g. \"3.0 MV/m\"")
@@ -273,7 +339,64 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         spec=spec,
         tolerance_spec={key: tolerance_table[key] for key in tolerance_table},
         breakdown_field_text=field_text if isinstance(field_text, str) else "",
+        arrangement=arrangement,
+        collectors=collectors,
+        discs=discs,
+        units_given=units_given,
     )
+
+
+def _disc_arrangement(table: Mapping[str, object], carrier: Carrier, where: str
+                      ) -> tuple[str, str, int | None, float | None]:
+    """Read and check ``arrangement``, ``collectors``, ``discs`` and ``units`` of a disc machine.
+
+    Returns the arrangement ("" when none), the collectors ("" when no arrangement), the
+    number of discs of a stack (None otherwise) and the units given (None when not given).
+    """
+    arrangement = table.get("arrangement", "")
+    if not isinstance(arrangement, str) or (arrangement and arrangement not in ARRANGEMENTS):
+        raise InputError(f"{where}: arrangement {arrangement!r} is not known; use one of "
+                         f"{', '.join(ARRANGEMENTS)}, or give units = N yourself")
+    counted = [key for key in ("carriers", "collection_factor") if key in table]
+    if arrangement and counted:
+        raise InputError(
+            f"{where}: give arrangement or {counted[0]}, not both: the arrangement sets the "
+            f"units of a disc machine; remove {' and '.join(counted)}")
+    collectors = table.get("collectors", "fixed" if arrangement else "")
+    if "collectors" in table:
+        if not arrangement:
+            raise InputError(f"{where}: collectors goes with an arrangement; add arrangement = "
+                             f"one of {', '.join(ARRANGEMENTS)}, or remove collectors")
+        if collectors not in COLLECTORS:
+            raise InputError(f"{where}: collectors {collectors!r} is not known; use "
+                             f"{' or '.join(COLLECTORS)}")
+    discs = table.get("discs")
+    if discs is not None and arrangement != "disc-stack":
+        raise InputError(f"{where}: 'discs' goes with arrangement = \"disc-stack\" only; remove "
+                         "it, or set arrangement = \"disc-stack\"")
+    if arrangement == "disc-stack":
+        if discs is None:
+            raise InputError(f"{where}: a disc-stack needs 'discs', how many it has, e.g. "
+                             "discs = 8")
+        if isinstance(discs, bool) or not isinstance(discs, int) or not 3 <= discs <= 1000:
+            hint = ("; a pair is a twin-disc machine: use arrangement = \"twin-disc\" or "
+                    "\"twin-disc-sectorless\"" if discs == 2 else "")
+            raise InputError(f"{where}: discs must be a whole number from 3 to 1000 for a "
+                             f"disc-stack, got {discs!r}{hint}")
+    if arrangement == "twin-disc-sectorless" and getattr(carrier, "sector_fill", 1.0) < 1.0:
+        raise InputError(f"{where}: a sectorless twin-disc has no sectors, but sector_fill is "
+                         f"{carrier.sector_fill:g}; remove sector_fill, or use arrangement = "
+                         "\"twin-disc\" for a twin-disc with sectors")
+    units_given = None
+    if "units" in table:
+        if counted:
+            raise InputError(f"{where}: give units or {counted[0]}, not both; the units count "
+                             "what the whole machine delivers")
+        try:
+            units_given = given_units(table["units"]).units  # type: ignore[arg-type]
+        except InputError as error:
+            raise InputError(f"{where}: {error}") from None
+    return arrangement, str(collectors) if arrangement else "", discs, units_given
 
 
 def _check_speed_tolerance_kind(carrier: Carrier, text: str, where: str) -> None:
