@@ -350,6 +350,7 @@ def _format_finding(record: dict, reference_rh: float) -> str:
     title = record["machine"] + (f", session '{record['session']}'" if record.get("session")
                                  else "")
     interval = record.get("charge_per_rev_ci_nC")
+    units_ci = record.get("observed_units_ci")
     rows = [
         ("readings used / flagged", f"{record['readings_used']} / {record['readings_flagged']}"),
         ("efficiency, median", _number(record.get("efficiency_median"), ".1f", "%", 100)),
@@ -357,11 +358,15 @@ def _format_finding(record: dict, reference_rh: float) -> str:
          + (f" (95 % CI {interval[0]:.4g} to {interval[1]:.4g})" if interval else "")),
         ("offset current", _number(record.get("offset_current_uA"), ".3g", "uA")
          + f", R^2 {_number(record.get('fit_r2'), '.3f')}"),
-        ("observed collection factor", _number(record.get("observed_collection_factor"), ".3g")),
+        ("units, expected", _number(record.get("units"), "g")
+         + (f" ({record['units_rule']})" if record.get("units_rule") else "")),
+        ("units, observed", _number(record.get("observed_units"), ".3g")
+         + (f" (95 % CI {units_ci[0]:.3g} to {units_ci[1]:.3g})" if units_ci else "")),
         ("humidity slope", _number(record.get("humidity_slope_per_10pct"), "+.1f",
                                    "% points per +10 % RH", 100)),
         (f"efficiency at {reference_rh:g} % RH",
-         _number(record.get("efficiency_at_reference_rh"), ".1f", "%", 100)),
+         _number(record.get("efficiency_at_reference_rh"), ".1f", "%", 100)
+         + (f" (from the {record['humidity_model']})" if record.get("humidity_model") else "")),
     ]
     if record.get("notes"):
         rows.append(("notes", record["notes"]))

@@ -56,9 +56,16 @@ REFERENCE_RH = 0.45
 
 #: Flag codes that :func:`derive` owns: removed from the input and computed afresh, so that
 #: deriving again with corrected machines clears them.
-DERIVE_FLAGS = ("unknown_machine", "speed_kind", "above_ceiling")
-#: Added by :func:`derive` to a reading that carries no flag but lacks its current or speed.
+DERIVE_FLAGS = ("negative", "unknown_machine", "speed_kind", "above_ceiling")
+#: Added by :func:`derive` to a reading that carries no flag but lacks its current or speed,
+#: or whose efficiency cannot be computed.
 MISSING_FLAG = "missing_value"
+#: Coverage factor of the rule "within uncertainty of the ceiling" and of the rule "near zero"
+#: [-]: a reading is flagged ``above_ceiling`` only when its efficiency exceeds 1 by more than
+#: this many standard uncertainties, and a current is flagged ``negative`` only when it lies
+#: below zero by more than this many standard uncertainties of the meter. 2 gives about 95 %
+#: coverage for a normal distribution (JCGM 100:2008, clause 6.3).
+COVERAGE_FACTOR = 2.0
 
 _NUMERIC_COLUMNS = (
     col.ELAPSED_S, col.SPEED_REV_S, col.BELT_SPEED_M_S, col.CURRENT_A, col.RH,
@@ -443,7 +450,7 @@ class _MachineTable:
 def _machine_table(machines: Mapping[str, Machine]) -> _MachineTable:
     ids = tuple(machines)
     names = ("area_per_rev_m2", "width_m", "length_per_rev_m", "accepts_rotation",
-             "accepts_linear", "carriers", "collection_factor", "reference_field_v_m",
+             "accepts_linear", "units", "reference_field_v_m",
              "current_relative", "current_absolute_a", "speed_relative",
              "speed_absolute_rev_s", "speed_absolute_m_s", "field_relative",
              "area_relative_rotation", "area_relative_linear")
@@ -462,8 +469,7 @@ def _machine_table(machines: Mapping[str, Machine]) -> _MachineTable:
         values["length_per_rev_m"][index] = math.nan if length is None else length
         values["accepts_rotation"][index] = ROTATION in carrier.speed_kinds
         values["accepts_linear"][index] = LINEAR in carrier.speed_kinds
-        values["carriers"][index] = machine.carriers
-        values["collection_factor"][index] = machine.collection_factor
+        values["units"][index] = machine.units
         values["reference_field_v_m"][index] = machine.reference_field_v_m
 
         current = tolerances.get("current")
@@ -520,7 +526,8 @@ def _clean_flags(readings: pd.DataFrame) -> pd.Series:
     return flags.astype("str")
 
 
-def _update_flags(flags: pd.Series, additions: Sequence[tuple[str, np.ndarray]]) -> pd.Series:
+def _update_flags(flags: pd.Series, additions: Sequence[tuple[str, np.ndarray]],
+                  owned_codes: Sequence[str] = DERIVE_FLAGS) -> pd.Series:
     """Remove the codes that derive owns, then append codes where their masks are true.
 
     Flags take few distinct values, so the work runs once per distinct combination of a flags
@@ -532,7 +539,7 @@ def _update_flags(flags: pd.Series, additions: Sequence[tuple[str, np.ndarray]])
     for _code, mask in additions:
         key = key * 2 + mask.astype(np.int64)
     key_codes, keys = pd.factorize(key)
-    owned = set(DERIVE_FLAGS)
+    owned = set(owned_codes)
     new_texts = []
     for combined in keys:  # one pass per distinct combination
         bits = [bool((int(combined) >> shift) & 1) for shift in range(len(additions) - 1, -1, -1)]
@@ -590,11 +597,13 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
         A copy of ``readings``, same rows in the same order with the same index, with
         :data:`engine.columns.DERIVED_COLUMNS` added (SI units):
 
-        - ``ceiling_a`` I_c = eps0 * E_ref * delta * A_swept * N * k [A];
+        - ``ceiling_a`` I_c = eps0 * E_ref * delta * A_swept * units [A], with the machine's
+          units from its arrangement or N * k (see :attr:`engine.machines.Machine.units`);
         - ``efficiency`` I / I_c [-] (NaN where the ceiling is unknown or zero);
         - ``efficiency_u`` its 1-sigma uncertainty [-] (see Notes);
         - ``charge_per_rev_c`` I / f [C], where the rotation rate is known;
-        - ``surface_density_c_m2`` I / (A_swept * N) [C/m^2];
+        - ``surface_density_c_m2`` I / (A_swept * units) [C/m^2], the density each unit
+          carried (efficiency = surface density / sigma_limit);
         - ``relative_air_density`` delta [-], ``abs_humidity_kg_m3`` [kg/m^3],
           ``dew_point_k`` [K].
 
@@ -608,14 +617,20 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
 
     Notes
     -----
-    Flags: the codes ``unknown_machine`` (machine id not in ``machines``), ``speed_kind``
-    (a linear speed for a disc, cylinder or custom carrier, or a rotation rate for a belt with
-    neither roller diameter nor loop length) and ``above_ceiling`` (efficiency above 1) are
-    computed afresh on every call: stale ones from an earlier call are removed first. Every
-    other flag is kept. ``missing_value`` is added to a reading with no flag whose current or
-    speed is empty. A reading with both speeds is taken as a rotation rate.
+    Flags: the codes ``negative`` (a negative speed, or a current below zero by more than
+    :data:`COVERAGE_FACTOR` times the meter's standard uncertainty: a current a little below
+    zero within the meter's tolerance is a reading near zero and stays in the fits),
+    ``unknown_machine`` (machine id not in ``machines``), ``speed_kind`` (a linear speed for a
+    disc, cylinder or custom carrier, or a rotation rate for a belt with neither roller
+    diameter nor loop length) and ``above_ceiling`` (efficiency above 1 by more than
+    :data:`COVERAGE_FACTOR` times its own standard uncertainty: the rule "within uncertainty of
+    the ceiling" keeps a reading whose efficiency is within that margin of 100 %) are computed
+    afresh on every call: stale ones from an earlier call are removed first. Every other flag
+    is kept. ``missing_value`` is added to a reading with no flag whose current or speed is
+    empty, or whose efficiency cannot be computed, so that every reading without a flag has a
+    finite efficiency. A reading with both speeds is taken as a rotation rate.
 
-    Uncertainty, first order, 1 sigma, with eta = I / (eps0 E_ref delta A f N k):
+    Uncertainty, first order, 1 sigma, with eta = I / (eps0 E_ref delta A f units):
 
         (u(eta) / eta)^2 = u_rel(I)^2 + u_rel(A)^2 + u_rel(f)^2 + u_rel(E_ref)^2
 
@@ -677,11 +692,11 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
         delta = relative_air_density(pressure, temperature)
         sigma = charge_density_limit(breakdown_field(delta, table.take("reference_field_v_m",
                                                                         codes)))
-        carriers = table.take("carriers", codes)
-        ceiling = ceiling_current(sigma, swept, carriers, table.take("collection_factor", codes))
+        units = table.take("units", codes)
+        ceiling = ceiling_current(sigma, swept, units)
         efficiency = _divide(current, ceiling)
         charge_per_rev = _divide(current, filled_speed)
-        surface_density = _divide(current, swept * carriers)
+        surface_density = _divide(current, swept * units)
 
         current_u = (table.take("current_relative", codes) * np.abs(current)
                      + table.take("current_absolute_a", codes))
@@ -703,14 +718,22 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
     flags = _clean_flags(out)
     missing = ((flags == "").to_numpy()
                & (~np.isfinite(current) | ~(has_rotation | np.isfinite(belt_speed))))
-    out[col.SPEED_REV_S] = filled_speed
-    # .array: placed by position, so repeated row labels cannot misalign it
-    out[col.FLAGS] = _update_flags(flags, [
+    negative = ((speed_rev_s < 0) | (belt_speed < 0)
+                | (current < -COVERAGE_FACTOR * np.nan_to_num(current_u)))
+    above = efficiency > 1.0 + COVERAGE_FACTOR * np.nan_to_num(efficiency_u)
+    flagged_after = _update_flags(flags, [
         (MISSING_FLAG, missing),
+        ("negative", negative),
         ("unknown_machine", ~known),
         ("speed_kind", wrong_kind),
-        ("above_ceiling", efficiency > 1.0),
-    ]).array
+        ("above_ceiling", above),
+    ])
+    # A reading without any flag must give an efficiency, so that used + flagged = total.
+    no_efficiency = (flagged_after == "").to_numpy() & ~np.isfinite(efficiency)
+    out[col.SPEED_REV_S] = filled_speed
+    # .array: placed by position, so repeated row labels cannot misalign it
+    out[col.FLAGS] = _update_flags(flagged_after, [(MISSING_FLAG, no_efficiency)],
+                                   owned_codes=()).array
     out[col.CEILING_A] = ceiling
     out[col.EFFICIENCY] = efficiency
     out[col.EFFICIENCY_U] = efficiency_u
@@ -739,10 +762,11 @@ FINDINGS_COLUMNS = (
     "efficiency_median", "efficiency_q25", "efficiency_q75", "efficiency_u_median",
     "speed_fit_on", "charge_per_rev_nC", "charge_per_rev_ci_nC", "charge_per_metre_nC",
     "charge_per_metre_ci_nC", "offset_current_uA", "offset_current_ci_uA", "fit_r2",
-    "charge_density_limit_uC_m2", "observed_collection_factor",
-    "observed_collection_factor_ci", "rh_min_pct", "rh_max_pct", "humidity_slope_per_10pct",
+    "charge_density_limit_uC_m2", "units", "units_rule", "units_basis", "observed_units",
+    "observed_units_ci", "rh_min_pct", "rh_max_pct", "humidity_slope_per_10pct",
     "humidity_slope_per_10pct_ci", "efficiency_at_reference_rh",
-    "efficiency_at_reference_rh_ci", "logistic_rh_half_pct", "logistic_rh_half_ci_pct",
+    "efficiency_at_reference_rh_ci", "humidity_model", "logistic_rh_half_pct",
+    "logistic_rh_half_ci_pct",
     "logistic_dry_efficiency", "logistic_dry_efficiency_ci", "logistic_width_pct", "notes",
 )
 """Columns of :func:`findings`, in order."""
@@ -788,20 +812,30 @@ def findings(derived: pd.DataFrame, machines: Mapping[str, Machine] | MachineFil
     pandas.DataFrame
         One row per machine (machines-file order, then ids not in the file) or per machine and
         session (sessions in order of first appearance), columns :data:`FINDINGS_COLUMNS`.
-        Only readings without any flag and with a finite efficiency are used. Efficiencies are
-        fractions; intervals are 95 % and are tuples (low, high), or None where the figure
-        could not be computed (its value is then NaN and ``notes`` says why).
+        Only readings without any flag are used (:func:`derive` gives every such reading a
+        finite efficiency), so ``readings_used + readings_flagged = readings_total``.
+        Efficiencies are fractions; intervals are 95 % and are tuples (low, high), or None where
+        the figure could not be computed (its value is then NaN and ``notes`` says why).
 
         - Speed fit, least squares I = q_rev f + I_0 (``charge_per_rev_nC``,
           ``offset_current_uA``, ``fit_r2``); for a belt whose speed is known only in m/s,
           I = q_m v + I_0 (``charge_per_metre_nC``) and ``charge_per_rev_nC`` is NaN.
-        - ``observed_collection_factor`` = q_rev / (sigma_limit A_rev N), or
-          q_m / (sigma_limit w N), with sigma_limit the mean over the used readings; its
-          interval scales the slope's interval (sigma_limit and the geometry taken as exact).
+        - ``units`` (expected, from the arrangement or N * k) with ``units_rule`` (the rule in
+          words) and ``units_basis`` (see :class:`engine.arrangements.UnitRule`), and
+          ``observed_units`` = q_rev / (sigma_limit A_rev), or q_m / (sigma_limit
+          w) for a belt read in m/s: the fitted charge per revolution over the charge one
+          unit carries per revolution, with sigma_limit the mean over the used readings and
+          A_rev the charged area of one carrier. Its interval scales the slope's interval
+          (sigma_limit and the geometry taken as exact). A machine "delivers observed_units of
+          the units its arrangement allows".
         - Humidity fit, least squares efficiency = a + b RH: ``humidity_slope_per_10pct`` is
           b * 0.1 (fraction of efficiency per +10 % points of RH), and
           ``efficiency_at_reference_rh`` is a + b * reference_rh with the interval of the
-          fitted mean. It needs 3 readings and an RH spread of at least 5 % points.
+          fitted mean (``humidity_model`` "straight line"). It needs 3 readings and an RH
+          spread of at least 5 % points. Where the logistic decline below is fitted, the
+          efficiency at the reference humidity comes from it instead (``humidity_model``
+          "logistic decline"), with a first-order (delta-method) interval from the fit's
+          covariance.
         - Logistic decline eta = e_dry / (1 + exp((RH - RH_half) / w)), fitted with
           scipy.optimize.curve_fit only where the data span the drop: at least 10 readings with
           humidity, RH spread of at least 20 % points, and the median efficiency of the wettest
@@ -866,23 +900,13 @@ def findings(derived: pd.DataFrame, machines: Mapping[str, Machine] | MachineFil
     return pd.DataFrame(rows, columns=list(FINDINGS_COLUMNS))
 
 
-#: Readings flagged only ``above_ceiling`` and at most this efficiency stay in the fits: a
-#: machine may deliver more charge loads per revolution than its declared collection factor,
-#: and leaving those readings out would bias the observed factor down. Far above it is a unit
-#: or size mistake.
-ABOVE_CEILING_KEPT_UP_TO = 2.0
-
-
 def _usable_for_fits(flags: pd.Series, efficiency: np.ndarray) -> np.ndarray:
-    """Readings the fits use: clean ones, and those only a little above the ceiling."""
+    """Readings the fits use: those without any flag, with a finite efficiency."""
     flag_text = flags.to_numpy(dtype=object) if not isinstance(flags, np.ndarray) else flags
     codes, texts = pd.factorize(pd.Series(flag_text), use_na_sentinel=True)
     clean_text = np.array([text == "" for text in texts] + [True])
-    above_only = np.array([text == "above_ceiling" for text in texts] + [False])
     codes = np.where(codes < 0, len(texts), codes)
-    finite = np.isfinite(efficiency)
-    return finite & (clean_text[codes] | (above_only[codes]
-                                          & (efficiency <= ABOVE_CEILING_KEPT_UP_TO)))
+    return np.isfinite(efficiency) & clean_text[codes]
 
 
 def _empty_findings(machine_id: str, session: str | None, machine: Machine | None) -> dict:
@@ -891,7 +915,11 @@ def _empty_findings(machine_id: str, session: str | None, machine: Machine | Non
         if name.endswith("_ci") or "_ci_" in name:
             row[name] = None
     row.update(machine=machine_id, session=session,
-               carrier=None if machine is None else machine.kind, speed_fit_on=None)
+               carrier=None if machine is None else machine.kind, speed_fit_on=None,
+               units=math.nan if machine is None else machine.units,
+               units_rule=None if machine is None else machine.unit_rule.text,
+               units_basis=None if machine is None else machine.unit_rule.basis,
+               humidity_model=None)
     return row
 
 
@@ -904,12 +932,11 @@ def _group_findings(machine_id: str, session: str | None, machine: Machine | Non
     row["readings_total"] = int(positions.size)
     row["readings_used"] = int(used.size)
     row["readings_flagged"] = int(positions.size - np.count_nonzero(clean[positions]))
-    kept_above = int(np.count_nonzero(~clean[used]))
-    if kept_above:
-        notes.append(f"{kept_above} readings above the ceiling (up to "
-                     f"{ABOVE_CEILING_KEPT_UP_TO:g} times it) are kept in the fits: the machine "
-                     "may deliver more charge loads per revolution than its collection factor "
-                     "says; see the observed collection factor")
+    near_ceiling = int(np.count_nonzero(data["efficiency"][used] > 1.0))
+    if near_ceiling:
+        notes.append(f"{near_ceiling} reading(s) lie above 100 % but within "
+                     f"{COVERAGE_FACTOR:g} standard uncertainties of it (the rule 'within "
+                     "uncertainty of the ceiling'): kept in the fits")
     if machine is None:
         notes.append(f"machine '{machine_id}' is not in the machines list: no ceiling")
         row["notes"] = "; ".join(notes)
@@ -963,9 +990,9 @@ def _speed_findings(row: dict, notes: list[str], machine: Machine, used: np.ndar
     row["offset_current_uA"] = fit.intercept * 1e6
     row["offset_current_ci_uA"] = _scaled(fit.intercept_ci, 1e6)
     row["fit_r2"] = fit.r_squared
-    per_unit_factor = 1.0 / (sigma * charged_length * machine.carriers)
-    row["observed_collection_factor"] = fit.slope * per_unit_factor
-    row["observed_collection_factor_ci"] = _scaled(fit.slope_ci, per_unit_factor)
+    per_unit_factor = 1.0 / (sigma * charged_length)
+    row["observed_units"] = fit.slope * per_unit_factor
+    row["observed_units_ci"] = _scaled(fit.slope_ci, per_unit_factor)
 
 
 def _humidity_findings(row: dict, notes: list[str], used: np.ndarray,
@@ -994,15 +1021,16 @@ def _humidity_findings(row: dict, notes: list[str], used: np.ndarray,
     value, interval = fit.mean_at(reference_rh)
     row["efficiency_at_reference_rh"] = value
     row["efficiency_at_reference_rh_ci"] = interval
+    row["humidity_model"] = "straight line"
     if not rh.min() <= reference_rh <= rh.max():
         notes.append(f"the reference humidity {reference_rh * 100:.0f} % lies outside the "
                      f"measured {rh.min() * 100:.0f} to {rh.max() * 100:.0f} %: the efficiency "
                      "there is an extrapolation")
-    _logistic_findings(row, notes, rh, efficiency, span)
+    _logistic_findings(row, notes, rh, efficiency, span, reference_rh)
 
 
 def _logistic_findings(row: dict, notes: list[str], rh: np.ndarray, efficiency: np.ndarray,
-                       span: float) -> None:
+                       span: float, reference_rh: float) -> None:
     from scipy import optimize
     if rh.size < LOGISTIC_MIN_READINGS:
         notes.append(f"logistic decline not fitted: fewer than {LOGISTIC_MIN_READINGS} "
@@ -1049,6 +1077,15 @@ def _logistic_findings(row: dict, notes: list[str], rh: np.ndarray, efficiency: 
     row["logistic_rh_half_ci_pct"] = ((rh_half - half * errors[1]) * 100,
                                       (rh_half + half * errors[1]) * 100)
     row["logistic_width_pct"] = width * 100
+    # The efficiency at the reference humidity from the curve that was fitted, with a
+    # first-order interval: var = J C J^T (JCGM 100:2008, clause 5.1.2).
+    at_reference = float(logistic_efficiency(reference_rh, *parameters))
+    jacobian = _logistic_jacobian(np.array([reference_rh]), *parameters)[0]
+    spread = float(np.sqrt(max(float(jacobian @ covariance @ jacobian), 0.0)))
+    row["efficiency_at_reference_rh"] = at_reference
+    row["efficiency_at_reference_rh_ci"] = (at_reference - half * spread,
+                                            at_reference + half * spread)
+    row["humidity_model"] = "logistic decline"
 
 
 # --- compare_sessions ------------------------------------------------------------------------
@@ -1089,8 +1126,12 @@ def compare_sessions(derived: pd.DataFrame, machine_id: str, session_a: str,
         ``adjusted_difference_ci`` (the session coefficient of the least-squares regression
         efficiency ~ 1 + [session is b] + speed + RH, 95 %; NaN and None when it cannot be
         computed), ``adjusted_for`` (the terms kept, e.g. ["speed", "humidity"]), ``n_adjusted``
-        (readings in the regression), ``notes`` (list of str: terms dropped and why) and
-        ``verdict`` (plain words, differences in % points with the 95 % half-width).
+        (readings in the regression), ``notes`` (list of str: terms dropped and why),
+        ``disjoint_conditions`` (the adjusted-for terms whose ranges in the two sessions do not
+        overlap) and ``verdict`` (plain words, differences in % points with the 95 %
+        half-width; it says when the data cannot tell the machine from the conditions: the
+        ranges do not overlap, or the adjusted interval holds both zero and the plain
+        difference).
 
     Raises
     ------
@@ -1147,8 +1188,36 @@ def compare_sessions(derived: pd.DataFrame, machine_id: str, session_a: str,
         "adjusted_difference": adjusted, "adjusted_difference_ci": adjusted_ci,
         "adjusted_for": terms, "n_adjusted": n_adjusted, "notes": notes,
     }
-    result["verdict"] = _verdict(session_a, session_b, raw, raw_ci, adjusted, adjusted_ci, terms)
+    result["disjoint_conditions"] = _disjoint_conditions(derived, in_a, in_b, terms)
+    result["verdict"] = _verdict(session_a, session_b, raw, raw_ci, adjusted, adjusted_ci, terms,
+                                 result["disjoint_conditions"])
     return result
+
+
+def _disjoint_conditions(derived: pd.DataFrame, in_a: np.ndarray, in_b: np.ndarray,
+                         terms: Sequence[str]) -> list[str]:
+    """The adjusted-for conditions (speed, humidity) whose ranges in the two sessions do not
+    overlap: there the adjustment extrapolates from one session into the other."""
+    disjoint = []
+    for name in terms:
+        values = _condition_values(derived, name)
+        first, second = values[in_a], values[in_b]
+        first, second = first[np.isfinite(first)], second[np.isfinite(second)]
+        if first.size and second.size and (first.max() < second.min()
+                                           or second.max() < first.min()):
+            disjoint.append(name)
+    return disjoint
+
+
+def _condition_values(derived: pd.DataFrame, name: str) -> np.ndarray:
+    if name == "humidity":
+        return derived[col.RH].to_numpy(dtype=float) if col.RH in derived \
+            else np.full(len(derived), np.nan)
+    speed = derived[col.SPEED_REV_S].to_numpy(dtype=float) if col.SPEED_REV_S in derived \
+        else np.full(len(derived), np.nan)
+    if not np.isfinite(speed).any() and col.BELT_SPEED_M_S in derived:
+        speed = derived[col.BELT_SPEED_M_S].to_numpy(dtype=float)
+    return speed
 
 
 def _adjusted_difference(derived: pd.DataFrame, rows: np.ndarray, in_b: np.ndarray,
@@ -1215,7 +1284,7 @@ def _adjusted_difference(derived: pd.DataFrame, rows: np.ndarray, in_b: np.ndarr
 
 
 def _verdict(session_a: str, session_b: str, raw: float, raw_ci, adjusted: float,
-             adjusted_ci, terms: Sequence[str]) -> str:
+             adjusted_ci, terms: Sequence[str], disjoint: Sequence[str] = ()) -> str:
     if adjusted_ci is not None and math.isfinite(adjusted):
         value, interval = adjusted, adjusted_ci
         condition = {
@@ -1232,14 +1301,27 @@ def _verdict(session_a: str, session_b: str, raw: float, raw_ci, adjusted: float
     raw_shown, _ = _round_pair(raw * 100, raw_half * 100) if math.isfinite(raw_half) else (
         f"{raw * 100:+.1f}", "")
     adjusted_used = value is not raw
+    caution = ""
+    if adjusted_used and disjoint:
+        ranges = " and ".join(disjoint)
+        caution = (f" The data cannot tell the machine from the conditions: the two sessions' "
+                   f"{ranges} ranges do not overlap, so the adjustment extrapolates from one "
+                   "session into the other; measure both sessions over a common range to be "
+                   "sure.")
     if interval[0] <= 0 <= interval[1]:
         signed, _ = _round_pair(value * 100, half * 100)
         verdict = (f"No clear difference between '{session_b}' and '{session_a}' {condition}: "
                    f"{signed} ± {shown_half} % points (95 % interval, it includes zero).")
-        if adjusted_used and not (raw_ci[0] <= 0 <= raw_ci[1]):
-            verdict += (f" The plain difference of {raw_shown} % points comes from the "
-                        "sessions' different speed or humidity, not from the machine.")
-        return verdict
+        raw_is_clear = raw_ci is not None and not (raw_ci[0] <= 0 <= raw_ci[1])
+        if adjusted_used and raw_is_clear and not caution:
+            if interval[0] <= raw <= interval[1]:
+                verdict += (f" The plain difference of {raw_shown} % points also lies within "
+                            "that interval: the data cannot tell whether it comes from the "
+                            "machine or from the sessions' different speed or humidity.")
+            else:
+                verdict += (f" The plain difference of {raw_shown} % points comes from the "
+                            "sessions' different speed or humidity, not from the machine.")
+        return verdict + caution
     direction = "more" if value > 0 else "less"
     return (f"The '{session_b}' session delivers {shown} ± {shown_half} % points {direction} "
-            f"efficiency than '{session_a}' {condition} (± is the 95 % interval).")
+            f"efficiency than '{session_a}' {condition} (± is the 95 % interval)." + caution)

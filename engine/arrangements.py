@@ -65,8 +65,8 @@ MAX_UNITS = 10_000.0
 
 TRADE_RULE = "common practice, no source"
 BY_ANALOGY = "by analogy, no source"
-GIVEN = "given by the user"
-COUNTED = "carriers x charge loads per revolution"
+GIVEN = "the user's own count"
+COUNTED = "no arrangement given"
 
 
 @dataclass(frozen=True)
@@ -256,3 +256,28 @@ def counted_units(carriers: int, collection_factor: float) -> UnitRule:
     return UnitRule(float(units), f"{_plural(carriers, 'carrier')} x {collection_factor:g} "
                     f"charge load{'s' if collection_factor != 1 else ''} per revolution = "
                     f"{_plural(units, 'unit')}", COUNTED)
+
+
+def delivery_sentence(observed_units: float, units: float, basis: str = TRADE_RULE) -> str:
+    """The trade's way of saying what a machine delivers, e.g. "delivers 5.6 of the 28 units its
+    arrangement allows".
+
+    Parameters
+    ----------
+    observed_units : float
+        Units observed from readings [-] (fitted charge per revolution over one unit's).
+    units : float
+        Units expected [-].
+    basis : str
+        The basis of the expected units (a :class:`UnitRule`'s ``basis``).
+
+    Returns
+    -------
+    str
+        A sentence without a subject; "" when either number is missing.
+    """
+    if not (math.isfinite(observed_units) and math.isfinite(units)):
+        return ""
+    allows = {GIVEN: "given for it", COUNTED: "its carriers allow"}.get(
+        basis, "its arrangement allows")
+    return f"delivers {observed_units:.2g} of the {units:g} units {allows}"

@@ -452,8 +452,8 @@ def _table(header: Sequence[str], rows: Sequence[Sequence[str]], caption: str = 
 
 
 def _machines_table(machines: Mapping[str, Machine]) -> str:
-    header = ["Id", "Label", "Carrier", "Geometry (as described)", "Carriers N",
-              "Collection factor k", "Charged area per revolution [cm²]",
+    header = ["Id", "Label", "Carrier", "Geometry (as described)", "Units of one carrier's "
+              "ceiling (rule)", "Charged area per revolution [cm²]",
               "Breakdown field at reference [MV/m]", "Material", "Notes"]
     rows = []
     for machine in machines.values():
@@ -461,7 +461,7 @@ def _machines_table(machines: Mapping[str, Machine]) -> str:
         geometry = ", ".join(f"{key} = {value}" for key, value in machine.spec.items())
         rows.append([
             _esc(machine.id), _esc(machine.label), _esc(machine.kind), _esc(geometry),
-            _esc(machine.carriers), _fmt(machine.collection_factor),
+            _esc(f"{machine.units:g} ({machine.unit_rule.text})"),
             _fmt(to_display(area, "area", "cm^2"), 4) if area is not None else "– (linear speed)",
             _fmt(to_display(machine.reference_field_v_m, "electric_field", "MV/m")),
             _esc(machine.material), _esc(machine.notes),
@@ -475,7 +475,7 @@ def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machin
         return "<p>No findings: no machine had readings to fit.</p>"
     header = ["Machine", "Session", "Carrier", "Readings used", "Readings flagged",
               "Efficiency median [%] (quartiles)", "Charge per revolution q [nC] (95 % CI)",
-              "Offset current I0 [µA]", "Speed fit R² [-]", "Observed collection factor [-]",
+              "Offset current I0 [µA]", "Speed fit R² [-]", "Units delivered of expected",
               "Humidity slope [% points per +10 % RH] (95 % CI)",
               f"Efficiency at {reference_rh_pct:g} % RH [%]", "RH at half output [%]", "Notes"]
     percent = _PERCENT_PER_FRACTION
@@ -505,7 +505,7 @@ def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machin
             charge,
             _fmt(record.get("offset_current_uA")),
             _fixed(record.get("fit_r2"), 3),
-            _fmt(record.get("observed_collection_factor")),
+            _units_text(record),
             _with_interval(_fixed(record.get("humidity_slope_per_10pct"), 1, percent),
                            _interval_text(record.get("humidity_slope_per_10pct_ci"),
                                           scale=percent, decimals=1)),
@@ -514,6 +514,14 @@ def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machin
             _esc("" if _blank(notes) else notes),
         ])
     return _table(header, rows)
+
+
+def _units_text(record: Mapping[str, object]) -> str:
+    observed, expected = record.get("observed_units"), record.get("units")
+    if _blank(observed) or _blank(expected):
+        return _DASH
+    return _with_interval(f"{_fmt(observed, 2)} of {_fmt(expected)}",
+                          _interval_text(record.get("observed_units_ci"), 2))
 
 
 def _frame_table(frame: pd.DataFrame) -> str:
@@ -562,7 +570,7 @@ _METHOD_HTML = """
 density at which the field next to the carrier reaches the breakdown field of air, times the
 charged area that passes the collectors per second:</p>
 <p class="formula">I<sub>ceiling</sub> = &epsilon;<sub>0</sub> &middot; E<sub>ref</sub> &middot;
-&delta; &middot; A<sub>rev</sub> &middot; f &middot; N &middot; k</p>
+&delta; &middot; A<sub>rev</sub> &middot; f &middot; units</p>
 <ul>
 <li>&epsilon;<sub>0</sub> = 8.8541878128 &times; 10<sup>-12</sup> F/m, the vacuum permittivity
 (CODATA 2018);</li>
@@ -570,23 +578,33 @@ charged area that passes the collectors per second:</p>
 machine says otherwise; handbook value for uniform fields over centimetre gaps);</li>
 <li>&delta; = (p / 101.3 kPa) &middot; (293.15 K / T): relative air density against the
 standard reference atmosphere of IEC 60060-1 (20 &deg;C, 101.3 kPa); where only the altitude is
-known the pressure comes from the ICAO standard atmosphere (ICAO Doc 7488/3);</li>
+known the pressure comes from the ICAO standard atmosphere (ICAO Doc 7488/3); the linear
+scaling is the IEC 60060-1 air-density correction with exponent 1, and the reference
+atmosphere also states 11 g/m&sup3; absolute humidity;</li>
 <li>A<sub>rev</sub>: charged area per revolution of one carrier (disc: annulus times sector
 fill; belt: width times belt length per counted revolution; cylinder: 2&pi;rL; custom: as
-given); f: revolutions per second; N: number of carriers; k: collection factor.</li>
+given); f: revolutions per second;</li>
+<li>units: how many one-carrier ceilings the machine can deliver. For disc machines the trade
+counts by arrangement (common practice, no published source): one disc past a fixed inductor
+1; twin-disc with sectors 1 in total (one disc delivers, the other acts as a moving inductor),
+with split collectors 2; sectorless twin-disc 2, with split collectors 4; a close stack of
+sectorless discs with split collectors 2 per outer and 4 per inner disc (4n &minus; 4). Other
+carriers count carriers N times charge loads per revolution k.</li>
 </ul>
 <p>Efficiency is measured over ceiling current. Charge per revolution is current over
 revolutions per second. The speed fit is a least-squares line I = q f + I<sub>0</sub> per
-machine (and session); the observed collection factor is q / (&epsilon;<sub>0</sub>
-E<sub>ref</sub> &delta; A<sub>rev</sub> N). The humidity slope is a least-squares line of
-efficiency against relative humidity, given per +10 % RH, and evaluated at the reference
-humidity. Every fitted figure carries its 95 % confidence interval. Humidity does not enter the
-ceiling; it lowers real output through surface leakage. Vapour pressure, dew point and absolute
-humidity use the Magnus form with the coefficients of Alduchov and Eskridge (1996):
+machine (and session); the observed units are q / (&epsilon;<sub>0</sub>
+E<sub>ref</sub> &delta; A<sub>rev</sub>), the fitted charge per revolution over what one unit
+carries, so a machine "delivers 5.6 of the 28 units its arrangement allows". The humidity slope
+is a least-squares line of efficiency against relative humidity, given per +10 % RH; the
+efficiency at the reference humidity comes from that line, or from the logistic decline where
+the data span the drop and it was fitted. Every fitted figure carries its 95 % confidence
+interval. Humidity does not enter the ceiling; it lowers real output through surface
+leakage. Vapour pressure, dew point and absolute humidity use the Magnus form with the coefficients of Alduchov and Eskridge (1996):
 e<sub>s</sub> = 6.1094 hPa &middot; exp(17.625 T / (T + 243.04 &deg;C)).</p>
-<p>Readings with flags (values out of range, missing, above the ceiling and so on) are left out
-of the fits and of the charts of this report; they are listed in the exported readings table
-with their flag codes.</p>
+<p>Readings with flags (values out of range, missing, above the ceiling by more than twice
+their own uncertainty, clearly negative and so on) are left out of the fits and of the charts
+of this report; they are listed in the exported readings table with their flag codes.</p>
 <h3>References</h3>
 <ul>
 <li>IEC 60060-1:2010, High-voltage test techniques, Part 1: General definitions and test

@@ -9,6 +9,7 @@ import pandas as pd
 import streamlit as st
 
 from engine import analysis
+from engine.arrangements import delivery_sentence
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.errors import InputError
 from engine.figures import PALETTE
@@ -204,7 +205,10 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
         "charge per revolution [nC]": findings["charge_per_rev_nC"],
         "95 % interval [nC]": [_interval_text(value) for value in
                                findings["charge_per_rev_ci_nC"]],
-        "collection factor (observed)": findings["observed_collection_factor"],
+        "units delivered": [delivery_sentence(observed, expected, basis) for
+                            observed, expected, basis in zip(
+                                findings["observed_units"], findings["units"],
+                                findings["units_basis"], strict=True)],
         "readings used": findings["readings_used"],
         "flagged": findings["readings_flagged"],
         "carrier": findings["carrier"].fillna("(not described)"),
@@ -220,7 +224,6 @@ def findings_formats(reference_rh: float = 0.45) -> dict:
         f"efficiency at {reference_rh * 100:g} % RH [%]":
             st.column_config.NumberColumn(format="%.1f"),
         "charge per revolution [nC]": st.column_config.NumberColumn(format="%.4g"),
-        "collection factor (observed)": st.column_config.NumberColumn(format="%.3f"),
         "humidity effect [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
     }
 

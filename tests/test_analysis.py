@@ -473,10 +473,12 @@ def test_findings_recover_charge_per_revolution_and_offset():
     np.testing.assert_allclose(row["offset_current_ci_uA"],
                                reference.conf_int(0.05)[0] * 1e6, rtol=1e-9)
     assert row["fit_r2"] == pytest.approx(reference.rsquared, rel=1e-9)
-    # observed factor = q / (sigma A N) = 0.3 within its interval
-    low, high = row["observed_collection_factor_ci"]
-    assert low < 0.3 < high
-    assert row["observed_collection_factor"] == pytest.approx(0.3, rel=0.02)
+    # observed units = q / (sigma A) = 0.3 * 2 = 0.6 of the machine's 2 units (N x k = 2 x 1),
+    # within its interval
+    low, high = row["observed_units_ci"]
+    assert low < 0.6 < high
+    assert row["observed_units"] == pytest.approx(0.6, rel=0.02)
+    assert row["units"] == 2 and "2 carriers" in row["units_rule"]
     assert row["readings_used"] == 200 and row["readings_flagged"] == 0
     assert row["carrier"] == "disc" and row["session"] is None
     low_eta, median_eta, high_eta = (row["efficiency_q25"], row["efficiency_median"],
@@ -484,17 +486,17 @@ def test_findings_recover_charge_per_revolution_and_offset():
     assert low_eta < median_eta < high_eta
 
 
-def test_observed_collection_factor_uses_the_air_density_of_the_readings():
+def test_observed_units_use_the_air_density_of_the_readings():
     rng = np.random.default_rng(22)
     # a machine declared with k = 2 that runs at 80 % of its ceiling at 84.6 kPa, 20 degC:
-    # q = 0.8 * 2 * sigma * delta * A, delta = 84.6 / 101.3 = 0.835143; k_observed = 1.6
+    # q = 0.8 * 2 * sigma * delta * A, delta = 84.6 / 101.3 = 0.835143; observed units 1.6
     machines = machines_of("drum", collection_factor=2.0)
     delta = 84_600.0 / 101_300.0
     q_true = 1.6 * SIGMA_REF * delta * 2 * math.pi * 0.1 * 0.3
     _speed, _current, readings = _speed_series("drum", machines, q_true, 0.0, 0.05e-6, 100, rng,
                                                pressure=84_600.0)
     row = findings(derive(readings, machines), machines).iloc[0]
-    low, high = row["observed_collection_factor_ci"]
+    low, high = row["observed_units_ci"]
     assert low < 1.6 < high
     assert row["charge_density_limit_uC_m2"] == pytest.approx(SIGMA_REF * delta * 1e6)
     assert row["efficiency_median"] == pytest.approx(0.8, rel=0.02)
@@ -511,10 +513,9 @@ def test_belt_known_only_in_metres_per_second_is_fitted_per_metre():
     assert math.isnan(row["charge_per_rev_nC"]) and row["speed_fit_on"] == "m/s"
     line = scipy.stats.linregress(speed, current)  # reference: scipy.stats.linregress
     assert row["charge_per_metre_nC"] == pytest.approx(line.slope * 1e9, rel=1e-9)
-    # observed factor = slope / (sigma w N)
-    assert row["observed_collection_factor"] == pytest.approx(
-        line.slope / (SIGMA_REF * 0.05), rel=1e-9)
-    low, high = row["observed_collection_factor_ci"]
+    # observed units = slope / (sigma w)
+    assert row["observed_units"] == pytest.approx(line.slope / (SIGMA_REF * 0.05), rel=1e-9)
+    low, high = row["observed_units_ci"]
     assert low < 0.5 < high
 
 
@@ -619,7 +620,7 @@ def test_findings_by_session_and_flagged_readings_left_out():
     assert list(table["readings_total"]) == [30, 40]
     assert list(table["readings_used"]) == [30, 35]
     assert list(table["readings_flagged"]) == [0, 5]
-    np.testing.assert_allclose(table["observed_collection_factor"], [0.3, 0.6], rtol=0.03)
+    np.testing.assert_allclose(table["observed_units"], [0.3, 0.6], rtol=0.03)
     whole = findings(derived, machines)
     assert len(whole) == 1 and whole["readings_used"][0] == 65
 
@@ -770,22 +771,98 @@ def test_a_difference_explained_by_humidity_is_said_so():
     result = compare_sessions(derive(readings, machines), "twin", "dry day", "damp day")
     assert result["raw_difference"] < -0.05  # the damp day looks worse
     assert result["verdict"].startswith("No clear difference")
+    # The two days' humidity ranges do not overlap: the adjustment extrapolates, and the
+    # verdict says that the data cannot tell the machine from the air.
+    assert result["disjoint_conditions"] == ["humidity"]
+    assert "cannot tell the machine from the conditions" in result["verdict"]
+    assert "humidity ranges do not overlap" in result["verdict"]
+
+
+def test_a_difference_explained_by_overlapping_humidity_is_said_so():
+    # As above, but the two days share a range of humidity: the adjustment interpolates.
+    rng = np.random.default_rng(8)
+    machines = {"twin": make_machine("twin")}
+    rh = np.concatenate([rng.uniform(0.30, 0.55, 80), rng.uniform(0.45, 0.75, 80)])
+    efficiency = 0.6 - 0.5 * rh + rng.normal(0, 0.01, rh.size)
+    speed = rng.uniform(2, 8, rh.size)
+    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh,
+                     session=np.repeat(["dry day", "damp day"], 80))
+    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
+    readings[col.CURRENT_A] = efficiency * ceiling
+    result = compare_sessions(derive(readings, machines), "twin", "dry day", "damp day")
+    assert result["disjoint_conditions"] == []
+    assert result["verdict"].startswith("No clear difference")
     assert "comes from the sessions' different speed or humidity" in result["verdict"]
 
 
-def test_a_machine_above_its_declared_collection_factor_is_not_biased_down():
-    # Truth: the machine delivers 1.1 charge loads per revolution; the file says k = 1.
+def test_a_wide_adjusted_interval_that_holds_the_raw_difference_cannot_tell():
+    # Each session sits at its own humidity but for one reading at 50 %, so the ranges touch
+    # and session and humidity move almost in step: the adjusted interval is wide and holds
+    # zero and the plain difference alike, so the verdict must not blame the air.
+    rng = np.random.default_rng(3)
+    machines = {"twin": make_machine("twin")}
+    rh = np.concatenate([rng.uniform(0.449, 0.451, 14), [0.50], rng.uniform(0.549, 0.551, 14),
+                         [0.50]])
+    efficiency = 0.40 - 0.6 * (rh - 0.5) + rng.normal(0, 0.015, rh.size)
+    speed = rng.uniform(2, 8, rh.size)
+    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh,
+                     session=np.repeat(["before", "after"], 15))
+    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
+    readings[col.CURRENT_A] = efficiency * ceiling
+    result = compare_sessions(derive(readings, machines), "twin", "before", "after")
+    low, high = result["adjusted_difference_ci"]
+    raw_low, raw_high = result["raw_difference_ci"]
+    assert result["disjoint_conditions"] == []
+    assert not raw_low <= 0 <= raw_high  # the plain difference is clear
+    assert low <= 0 <= high and low <= result["raw_difference"] <= high
+    assert "cannot tell whether it comes from the machine" in result["verdict"]
+
+
+def test_readings_above_the_ceiling_are_left_out_and_counted_once():
+    # Truth: the machine delivers 1.1 times its ceiling; the file says 2 units. Those readings
+    # are flagged above_ceiling, left out of the fits, and counted as flagged, never as used.
     rng = np.random.default_rng(11)
     machines = {"twin": make_machine("twin")}
     speed = rng.uniform(2, 8, 60)
     readings = frame("twin", np.ones(60), speed_rev_s=speed)
     ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
-    readings[col.CURRENT_A] = 1.1 * ceiling * (1 + rng.normal(0, 0.01, 60))
+    readings[col.CURRENT_A] = ceiling * np.where(np.arange(60) < 50, 1.1, 0.5) * (
+        1 + rng.normal(0, 0.01, 60))
     derived = derive(readings, machines)
-    assert (derived[col.FLAGS] == "above_ceiling").sum() > 50  # still shown to the user
-    table = findings(derived, machines)
-    low, high = table["observed_collection_factor_ci"][0]
-    assert low < high
-    # Recovered within 1 % (with above-ceiling readings left out, no fit was possible at all).
-    assert table["observed_collection_factor"][0] == pytest.approx(1.1, rel=0.01)
-    assert "kept in the fits" in table["notes"][0]
+    assert (derived[col.FLAGS] == "above_ceiling").sum() == 50  # shown to the user
+    row = findings(derived, machines).iloc[0]
+    assert row["readings_used"] == 10 and row["readings_flagged"] == 50
+    assert row["readings_used"] + row["readings_flagged"] == row["readings_total"]
+    assert row["observed_units"] == pytest.approx(2 * 0.5, rel=0.02)
+
+
+def test_readings_within_their_uncertainty_of_the_ceiling_stay_in():
+    # The rule 'within uncertainty of the ceiling': with a 5 % current tolerance (one standard
+    # uncertainty), an efficiency of 1.04 is within 2 sigma of 100 % and kept; 1.3 is not.
+    rng = np.random.default_rng(12)
+    machines = {"twin": make_machine("twin", tolerance={"current": "5 %"})}
+    speed = rng.uniform(2, 8, 40)
+    readings = frame("twin", np.ones(40), speed_rev_s=speed)
+    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
+    readings[col.CURRENT_A] = ceiling * np.where(np.arange(40) < 30, 1.04, 1.3)
+    derived = derive(readings, machines)
+    assert list(derived[col.FLAGS][:30].unique()) == [""]
+    assert list(derived[col.FLAGS][30:].unique()) == ["above_ceiling"]
+    row = findings(derived, machines).iloc[0]
+    assert row["readings_used"] == 30 and row["readings_flagged"] == 10
+    assert "within uncertainty of the ceiling" in row["notes"]
+
+
+def test_small_negative_currents_within_the_meter_tolerance_are_readings_near_zero():
+    # A wet session: the meter (tolerance 0.05 uA, one standard uncertainty) reads a little
+    # below zero. Within 2 sigma of zero the reading stays; clearly negative ones are flagged.
+    machines = {"drum": make_machine("drum", tolerance={"current": "0.05 uA"})}
+    current = np.array([-0.02e-6, -0.08e-6, -0.5e-6, 0.3e-6])
+    derived = derive(frame("drum", current, speed_rev_s=5.0), machines)
+    assert list(derived[col.FLAGS]) == ["", "", "negative", ""]
+    # Without a tolerance, any negative current is flagged.
+    derived = derive(frame("drum", current, speed_rev_s=5.0), machines_of("drum"))
+    assert list(derived[col.FLAGS]) == ["negative", "negative", "negative", ""]
+    # A negative speed is always flagged.
+    derived = derive(frame("drum", [1e-6], speed_rev_s=-5.0), machines)
+    assert derived[col.FLAGS][0] == "negative"

@@ -18,9 +18,10 @@ def test_disc_annulus_with_sectors():
     assert disc.area_per_rev_m2 == pytest.approx(math.pi * 0.01672, rel=1e-12)
 
 
-def test_full_disc_default_fill():
-    # A sectorless disc of radius 0.2 m: pi * 0.04 = 0.125664 m^2
-    disc = carrier_from_spec("disc", {"outer_radius": "20 cm"})
+def test_full_disc_on_purpose_default_fill():
+    # A sectorless disc of radius 0.2 m charged to its centre, said with an inner edge of 0:
+    # pi * 0.04 = 0.125664 m^2
+    disc = carrier_from_spec("disc", {"outer_radius": "20 cm", "inner_diameter": "0 cm"})
     assert disc.area_per_rev_m2 == pytest.approx(0.125664, rel=1e-5)
 
 
@@ -65,9 +66,12 @@ def test_swept_area_is_vectorised():
     ("kind", "spec", "message"),
     [
         ("disc", {"outer_radius": "10 cm", "inner_radius": "15 cm"}, "must be larger than"),
-        ("disc", {"outer_radius": "-10 cm"}, "positive size"),
-        ("disc", {"outer_radius": "10 cm", "sector_fill": 1.5}, "sector_fill must be above 0"),
-        ("disc", {"outer_radius": "10 cm", "sector_fill": 0}, "sector_fill must be above 0"),
+        ("disc", {"outer_radius": "-10 cm", "inner_radius": "0 cm"}, "positive size"),
+        ("disc", {"outer_radius": "10 cm", "inner_radius": "5 cm", "sector_fill": 1.5},
+         "sector_fill must be above 0"),
+        ("disc", {"outer_radius": "10 cm", "inner_radius": "5 cm", "sector_fill": 0},
+         "sector_fill must be above 0"),
+        ("disc", {"outer_radius": "10 cm"}, r"inner_diameter \(or inner_radius\) is missing"),
         ("disc", {"inner_radius": "10 cm"}, "outer_radius or outer_diameter is missing"),
         ("disc", {"outer_radius": "10 cm", "outer_diameter": "20 cm"}, "not both"),
         ("disc", {"outer_radius": "10 cm", "width": "3 cm"}, "'width' is not a disc key"),

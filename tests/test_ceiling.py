@@ -109,7 +109,7 @@ def test_rpm_and_rev_per_second_agree(rpm):
 
 
 def test_ceiling_current_broadcasts():
-    values = ceiling_current(np.array([1e-5, 2e-5]), 0.5, carriers=np.array([1, 2]))
+    values = ceiling_current(np.array([1e-5, 2e-5]), 0.5, units=np.array([1, 2]))
     np.testing.assert_allclose(values, [5e-6, 2e-5])
 
 

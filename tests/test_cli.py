@@ -11,6 +11,7 @@ from engine.__main__ import main
 from tests.test_machines import EXAMPLE
 
 ROOT = Path(__file__).resolve().parents[1]
+DISC = ["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--inner-radius", "5 cm"]
 
 
 def run(capsys, *argv):
@@ -71,7 +72,7 @@ def test_cylinder_and_custom_at_altitude_and_pressure(capsys):
 
 def test_plain_output_is_a_short_summary(capsys):
     status, out, _ = run(capsys, "ceiling", "--carrier", "disc", "--outer-radius", "20 cm",
-                         "--speed", "300 rpm")
+                         "--inner-radius", "10 cm", "--speed", "300 rpm")
     assert status == 0
     assert "ceiling current" in out and "uA" in out and "300 rpm" in out
     assert len(out.splitlines()) < 12
@@ -86,21 +87,21 @@ def test_plain_output_is_a_short_summary(capsys):
          "--outer-radius or --outer-diameter is missing"),
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm"], "--speed"),
         (["ceiling", "--carrier", "wheel", "--speed", "3 Hz"], "invalid choice"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "6 m/s"],
+        ([*DISC, "--speed", "6 m/s"],
          "rotation rate"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "-5 rpm"],
+        ([*DISC, "--speed", "-5 rpm"],
          "must not be negative"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+        ([*DISC, "--speed", "5 rpm",
           "--pressure", "90 kPa", "--altitude", "300 m"], "not both"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+        ([*DISC, "--speed", "5 rpm",
           "--temperature", "-300 degC"], "above absolute zero"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+        ([*DISC, "--speed", "5 rpm",
           "--altitude", "40 km"], "altitude must be between"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+        ([*DISC, "--speed", "5 rpm",
           "--carriers", "two"], "whole number"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+        ([*DISC, "--speed", "5 rpm",
           "--collection-factor", "0"], "above 0"),
-        (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--speed", "5 rpm",
+        ([*DISC, "--speed", "5 rpm",
           "--breakdown-field", "3 kV"], "electric field"),
         (["ceiling", "--carrier", "disc", "--outer-radius", "20 cm", "--width", "3 cm",
           "--speed", "5 rpm"], "'--width' is not an option for a disc"),
@@ -156,8 +157,8 @@ def test_module_runs_as_a_program_without_traceback():
     assert done.stderr.startswith("error:") and "Traceback" not in done.stderr
     done = subprocess.run(
         [sys.executable, "-m", "engine", "ceiling", "--carrier", "disc", "--outer-radius",
-         "20 cm", "--speed", "300 rpm", "--json"], cwd=ROOT, capture_output=True, text=True,
-        timeout=60)
+         "20 cm", "--inner-radius", "0 cm", "--speed", "300 rpm", "--json"], cwd=ROOT,
+        capture_output=True, text=True, timeout=60)
     assert done.returncode == 0
     assert json.loads(done.stdout)["ceiling_current_uA"] > 0
 
@@ -232,7 +233,7 @@ def test_evaluate_json_and_files(capsys, tmp_path):
 def test_evaluate_takes_the_machine_from_the_caller(capsys, tmp_path):
     machines = tmp_path / "one.toml"
     machines.write_text('[[machine]]\nid = "bench-disc"\ncarrier = "disc"\n'
-                        'outer_radius = "20 cm"\n', encoding="utf-8")
+                        'outer_radius = "20 cm"\ninner_radius = "0 cm"\n', encoding="utf-8")
     data = str(ROOT / "tests" / "data" / "readings" / "no_machine.csv")
     rows = run_json(capsys, "evaluate", str(machines), data, "--machine", "bench-disc")
     assert {row["machine"] for row in rows} == {"bench-disc"}
@@ -245,8 +246,9 @@ def test_summary_json_has_the_agreed_keys(capsys):
     records = run_json(capsys, "summary", MACHINES, TWIN, "--by-session")
     keys = {"machine", "readings_used", "readings_flagged", "efficiency_median",
             "charge_per_rev_nC", "charge_per_rev_ci_nC", "offset_current_uA", "fit_r2",
-            "observed_collection_factor", "humidity_slope_per_10pct",
+            "units", "observed_units", "observed_units_ci", "humidity_slope_per_10pct",
             "efficiency_at_reference_rh"}
+    assert all("observed_collection_factor" not in record for record in records)
     assert all(keys <= set(record) for record in records)
     by_session = {record["session"]: record for record in records}
     before, after = by_session["before restoration"], by_session["after restoration"]
