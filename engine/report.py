@@ -600,7 +600,8 @@ is a least-squares line of efficiency against relative humidity, given per +10 %
 efficiency at the reference humidity comes from that line, or from the logistic decline where
 the data span the drop and it was fitted. Every fitted figure carries its 95 % confidence
 interval. Humidity does not enter the ceiling; it lowers real output through surface
-leakage. Vapour pressure, dew point and absolute humidity use the Magnus form with the coefficients of Alduchov and Eskridge (1996):
+leakage. Vapour pressure, dew point and absolute humidity use the Magnus form with the
+coefficients of Alduchov and Eskridge (1996):
 e<sub>s</sub> = 6.1094 hPa &middot; exp(17.625 T / (T + 243.04 &deg;C)).</p>
 <p>Readings with flags (values out of range, missing, above the ceiling by more than twice
 their own uncertainty, clearly negative and so on) are left out of the fits and of the charts
