@@ -53,6 +53,7 @@ import os
 import sqlite3
 import threading
 import time
+import tomllib
 import zipfile
 import zlib
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
@@ -193,8 +194,29 @@ SCHEMA_V3: tuple[str, ...] = (
     "CREATE TABLE settings (key TEXT PRIMARY KEY, value TEXT NOT NULL)",
 )
 
-#: Statements that bring a store from version ``n`` to ``n + 1`` are ``MIGRATIONS[n]``.
-MIGRATIONS: tuple[tuple[str, ...], ...] = (SCHEMA_V1, SCHEMA_V2, SCHEMA_V3)
+
+
+def _disc_inner_edges(connection: sqlite3.Connection) -> None:
+    """Version 4: a disc machine must state the inner edge of its charged zone. Discs stored
+    without one were computed as full discs, so they get ``inner_diameter = "0 cm"``: the same
+    machine, said explicitly."""
+    rows = connection.execute("SELECT id, toml FROM machines WHERE carrier = 'disc'").fetchall()
+    for machine_id, text in rows:
+        document = tomllib.loads(text)
+        tables = document.get("machine", [])
+        if not tables or "inner_radius" in tables[0] or "inner_diameter" in tables[0]:
+            continue
+        head, separator, tail = text.partition("\n[machine.tolerance]")
+        fixed = head.rstrip("\n") + '\ninner_diameter = "0 cm"\n' + separator + tail
+        connection.execute("UPDATE machines SET toml = ? WHERE id = ?", (fixed, machine_id))
+
+
+#: Version 4: disc machines state their inner edge (a Python step, see _disc_inner_edges).
+SCHEMA_V4: tuple[object, ...] = (_disc_inner_edges,)
+
+#: Statements (or Python steps taking the connection) that bring a store from version ``n`` to
+#: ``n + 1`` are ``MIGRATIONS[n]``.
+MIGRATIONS: tuple[tuple[object, ...], ...] = (SCHEMA_V1, SCHEMA_V2, SCHEMA_V3, SCHEMA_V4)
 #: Version of a store written by this module.
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -297,7 +319,10 @@ def _migrate(connection: sqlite3.Connection, path: Path) -> None:
                              f"another file with {STORE_ENV_VAR}")
         for statements in MIGRATIONS[version:]:
             for statement in statements:
-                connection.execute(statement)
+                if callable(statement):
+                    statement(connection)
+                else:
+                    connection.execute(statement)
         connection.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
         connection.execute("COMMIT")
     except BaseException:

@@ -3,6 +3,7 @@ and what happens when a writing program is killed or two programs write at once.
 
 import io
 import json
+import math
 import os
 import signal
 import sqlite3
@@ -157,7 +158,7 @@ def test_open_sets_the_connection_pragmas(store):
     assert connection.execute("PRAGMA foreign_keys").fetchone()[0] == 1
     assert connection.execute("PRAGMA busy_timeout").fetchone()[0] == 30_000
     assert connection.execute("PRAGMA synchronous").fetchone()[0] == 1  # 1 is NORMAL
-    assert store.schema_version == SCHEMA_VERSION == 3
+    assert store.schema_version == SCHEMA_VERSION == 4
 
 
 def test_a_file_that_is_not_a_store_is_an_input_error(tmp_path):
@@ -458,6 +459,28 @@ def test_a_version_1_store_is_migrated_and_keeps_its_data(tmp_path, machine_file
     assert readings[CURRENT_A].iloc[0] == 1.25e-5
     assert {"readings_by_import", "readings_by_machine", "readings_by_session",
             "environment_by_import"} <= indexes
+
+
+def test_a_version_3_disc_without_an_inner_edge_is_migrated_as_the_full_disc_it_was(tmp_path):
+    # Version 3 computed a disc without an inner edge as a full disc; version 4 asks for the
+    # edge, so the migration writes inner_diameter = "0 cm" and the ceiling stays the same.
+    path = tmp_path / "v3.sqlite3"
+    open_store(path).close()
+    old_text = ('[[machine]]\nid = "old-disc"\nlabel = "old-disc"\ncarrier = "disc"\n'
+                'outer_diameter = "40 cm"\ncarriers = 2\ncollection_factor = 1.0\n\n'
+                '[machine.tolerance]\nouter_diameter = "1 mm"\n')
+    connection = sqlite3.connect(path)
+    connection.execute("INSERT INTO machines (id, label, carrier, toml, updated_at) VALUES "
+                       "('old-disc', 'old-disc', 'disc', ?, '2026-01-01T00:00:00+00:00')",
+                       (old_text,))
+    connection.execute("PRAGMA user_version = 3")
+    connection.commit()
+    connection.close()
+    with open_store(path) as store:
+        machine = store.machines().by_id()["old-disc"]
+    assert machine.spec["inner_diameter"] == "0 cm"
+    assert machine.carrier.area_per_rev_m2 == pytest.approx(math.pi * 0.2**2)  # pi r^2
+    assert machine.units == 2 and machine.tolerance_spec == {"outer_diameter": "1 mm"}
 
 
 # --- foreign keys, cascades and demonstration data -----------------------------------------------
