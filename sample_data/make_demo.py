@@ -71,8 +71,10 @@ carrier = "disc"
 outer_diameter = "44 cm"
 inner_diameter = "26 cm"
 sector_fill = 0.5
-carriers = 2
-collection_factor = 1.0
+# Sectored twin-disc with fixed collectors: 1 unit of the one-disc ceiling in total (one disc
+# delivers, the other acts as a moving inductor).
+arrangement = "twin-disc"
+collectors = "fixed"
 breakdown_field = "3.0 MV/m"
 material = "glass discs, aluminium foil sectors"
 notes = "Hand-cranked, belt drive 1:4. Restored in the centre's workshop: discs cleaned, \
@@ -127,17 +129,21 @@ breakdown_field = "10 %"
 [[machine]]
 id = "stack-six"
 label = "Six-disc stack machine"
-carrier = "custom"
-# The sectors are of uneven shapes, so the charged area of one disc was measured directly:
-# its 24 sectors traced on paper, cut out and weighed against a known square.
-area_per_rev = "410 cm^2"
-carriers = 6
-collection_factor = 1.0
-material = "polycarbonate discs, aluminium foil sectors"
+carrier = "disc"
+# Six close-spaced counter-rotating sectorless discs of 34 cm with split collectors. The charged
+# annulus, measured from the marks the brushes left on the discs, runs from 18 cm to 32 cm
+# diameter. Two outer discs x 2 units + four inner discs x 4 units = 20 units.
+outer_diameter = "32 cm"
+inner_diameter = "18 cm"
+arrangement = "disc-stack"
+discs = 6
+collectors = "split"
+material = "polycarbonate discs, no sectors"
 notes = "Six discs on two shafts, motor driven; kept in the science centre's store."
 
 [machine.tolerance]
-area_per_rev = "4 %"
+outer_diameter = "2 mm"
+inner_diameter = "3 mm"
 speed = "1 %"
 current = "2 %"
 breakdown_field = "10 %"
