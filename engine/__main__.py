@@ -13,8 +13,10 @@ Bad input exits with status 2 and one line on stderr starting with ``error:``.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import math
+import os
 import re
 import sys
 from collections.abc import Sequence
@@ -22,7 +24,7 @@ from pathlib import Path
 
 from engine import analysis, columns, report
 from engine.air import REFERENCE_TEMPERATURE_K, site_pressure
-from engine.arrangements import ARRANGEMENTS, COLLECTORS
+from engine.arrangements import ARRANGEMENTS, COLLECTORS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, ROTATION
 from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
@@ -359,9 +361,12 @@ def _format_finding(record: dict, reference_rh: float) -> str:
         ("offset current", _number(record.get("offset_current_uA"), ".3g", "uA")
          + f", R^2 {_number(record.get('fit_r2'), '.3f')}"),
         ("units, expected", _number(record.get("units"), "g")
-         + (f" ({record['units_rule']})" if record.get("units_rule") else "")),
+         + (f": {record['units_rule']}" if record.get("units_rule") else "")),
         ("units, observed", _number(record.get("observed_units"), ".3g")
-         + (f" (95 % CI {units_ci[0]:.3g} to {units_ci[1]:.3g})" if units_ci else "")),
+         + (f" (95 % CI {units_ci[0]:.3g} to {units_ci[1]:.3g})" if units_ci else "")
+         + (f": {delivered}" if (delivered := delivery_sentence(
+             record.get("observed_units") or math.nan, record.get("units") or math.nan,
+             record.get("units_basis") or "")) else "")),
         ("humidity slope", _number(record.get("humidity_slope_per_10pct"), "+.1f",
                                    "% points per +10 % RH", 100)),
         (f"efficiency at {reference_rh:g} % RH",
@@ -459,6 +464,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("error: interrupted", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except BrokenPipeError:
+        # The reader went away (``... | head``): end quietly, as command-line tools do.
+        with contextlib.suppress(OSError):
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except Exception as error:  # noqa: BLE001 - the user sees one line, never a traceback
         print(f"error: internal problem ({type(error).__name__}: {error}); please report it",
               file=sys.stderr)

@@ -55,13 +55,14 @@ def relative_air_density(pressure_pa, temperature_k):
 
     Notes
     -----
-    delta = (p / 101.3 kPa) * (293.15 K / T). The breakdown field of air scales with delta
-    (Paschen similarity) over the gaps of interest here.
+    delta = (p / 101.3 kPa) * (293.15 K / T). The standard reference atmosphere of
+    IEC 60060-1 is 20 degC, 101.3 kPa and 11 g/m^3 absolute humidity; this tool applies no
+    humidity correction to the breakdown field (see :func:`breakdown_field`).
 
     References
     ----------
     IEC 60060-1:2010, High-voltage test techniques, Part 1, clause on atmospheric correction
-    (standard reference atmosphere 20 degC, 101.3 kPa).
+    (standard reference atmosphere 20 degC, 101.3 kPa, 11 g/m^3).
     """
     pressure_pa = np.asarray(pressure_pa, dtype=float)
     temperature_k = np.asarray(temperature_k, dtype=float)
@@ -161,8 +162,19 @@ def breakdown_field(relative_density, reference_field_v_m: float = REFERENCE_BRE
 
     Notes
     -----
-    Linear scaling with density follows Paschen's law at fixed gap in the range of pressure
-    and gap met at ground level; it is the correction of IEC 60060-1 with exponent 1.
+    The linear scaling with relative air density is the air-density correction of
+    IEC 60060-1 with exponent 1 (k1 = delta^m, m = 1), good at the pressures met at ground
+    level. (Paschen's law is a law in p * d, pressure times gap: it is not what is applied
+    here.) Water vapour hardly changes the breakdown of air and raises it slightly, so no
+    humidity correction is applied. 3 MV/m is a uniform-field value for centimetre gaps;
+    over millimetre gaps air holds more (about 4.6 MV/m at 1 mm by the empirical
+    uniform-field relation of the high-voltage textbooks), so a machine may give its own
+    reference field.
+
+    References
+    ----------
+    IEC 60060-1:2010, High-voltage test techniques, Part 1: General definitions and test
+    requirements, clause on atmospheric correction factors.
     """
     return reference_field_v_m * np.asarray(relative_density, dtype=float)
 
@@ -200,7 +212,10 @@ def saturation_vapour_pressure(temperature_k):
     Notes
     -----
     Magnus form e_s = 610.94 Pa * exp(17.625 t / (t + 243.04)), t in degC; within 0.4 % of
-    reference tables from -40 degC to 50 degC.
+    reference tables from -40 degC to 50 degC. Below 0 degC this is the pressure over
+    supercooled water, not over ice: the meteorological convention for relative humidity
+    (World Meteorological Organization, Guide to Instruments and Methods of Observation,
+    WMO-No. 8, annex on humidity formulae).
 
     References
     ----------

@@ -280,4 +280,34 @@ def delivery_sentence(observed_units: float, units: float, basis: str = TRADE_RU
         return ""
     allows = {GIVEN: "given for it", COUNTED: "its carriers allow"}.get(
         basis, "its arrangement allows")
-    return f"delivers {observed_units:.2g} of the {units:g} units {allows}"
+    return f"delivers {observed_units:.2g} of the {_plural(units, 'unit')} {allows}"
+
+
+def disc_roles(arrangement: str, collectors: str = "fixed", discs: int | None = None,
+               sectored: bool = False) -> list[tuple[str, float | None]]:
+    """What each disc of an arrangement does, for drawings: a role and its units.
+
+    Parameters
+    ----------
+    arrangement, collectors, discs, sectored
+        As for :func:`unit_rule`.
+
+    Returns
+    -------
+    list of (str, float or None)
+        One entry per disc, left to right, with the units it is counted for; None where the
+        trade counts the machine as a whole (a sectored twin-disc: one disc delivers, the
+        other acts as a moving inductor). The units add up to :func:`unit_rule`'s where every
+        entry has a number.
+    """
+    rule = unit_rule(arrangement, collectors, discs, sectored)
+    if arrangement == "single-disc":
+        return [("disc", rule.units)]
+    if arrangement == "twin-disc":
+        return [("delivers", None), ("moving inductor", None)]
+    if arrangement == "twin-disc-sectorless":
+        return [("disc", rule.units / 2), ("disc", rule.units / 2)]
+    outer, inner = _per_disc_units(collectors, sectored)
+    count = int(discs)  # checked by unit_rule
+    return [("outer disc", outer)] + [("inner disc", inner)] * (count - 2) + [("outer disc",
+                                                                                outer)]

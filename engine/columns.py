@@ -50,14 +50,16 @@ DERIVED_COLUMNS = (
 FLAG_CODES: dict[str, str] = {
     "not_a_number": "a value that should be a number is text",
     "missing_value": "speed or current is empty",
-    "negative": "speed or current is negative",
+    "negative": "speed is negative, or current is clearly below zero (beyond the meter's "
+                "tolerance)",
     "zero_speed": "speed is zero: no charge is carried",
     "unknown_machine": "the machine is not in the machines list",
     "rh_out_of_range": "relative humidity outside 0 to 100 %",
     "temperature_out_of_range": "air temperature outside -40 to 60 degC",
     "pressure_out_of_range": "air pressure outside 50 to 110 kPa",
     "no_environment": "no humidity log entry within the time tolerance",
-    "above_ceiling": "efficiency above 100 %: almost always a unit or geometry error",
+    "above_ceiling": "efficiency above 100 % by more than twice its uncertainty: almost always "
+                     "a unit or geometry error",
     "duplicate_time": "another reading of the same machine has the same time",
     "bad_time": "the time could not be read",
     "speed_kind": "the speed's kind does not suit the machine (m/s for a disc)",

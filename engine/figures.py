@@ -1052,3 +1052,81 @@ def planner_curve(machine: Machine, speeds_rev_s,
     _style(figure, title, SPEED_AXIS, "Ceiling current [µA]")
     figure.update_layout(legend={"title": {"text": "Air"}})
     return figure
+
+
+#: Most discs drawn one by one in an arrangement diagram; a larger stack is drawn shortened.
+_DIAGRAM_DISCS_MAX = 12
+
+
+def arrangement_diagram(machine: Machine) -> go.Figure:
+    """A side view of a disc machine's discs with the units each one counts for.
+
+    Parameters
+    ----------
+    machine : Machine
+        A disc machine with an arrangement; other machines get a diagram of their N carriers
+        (or a note where the units were given).
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Discs seen edge on, left to right, each labelled with its role and units; collectors
+        drawn above them (straight for fixed collectors, angled halves for split ones); the
+        rule in words below. Not to scale.
+    """
+    from engine.arrangements import ARRANGEMENT_LABELS, disc_roles
+
+    rule = machine.unit_rule
+    figure = go.Figure()
+    if machine.arrangement:
+        sectored = getattr(machine.carrier, "sector_fill", 1.0) < 1.0
+        roles = disc_roles(machine.arrangement, machine.collectors or "fixed", machine.discs,
+                           sectored)
+        title = ARRANGEMENT_LABELS[machine.arrangement].split(":")[0]
+    elif machine.units_given is not None:
+        roles = []
+        title = "units given"
+    else:
+        roles = [("carrier", machine.collection_factor)] * min(machine.carriers,
+                                                               _DIAGRAM_DISCS_MAX)
+        title = f"{machine.carriers} carrier{'s' if machine.carriers > 1 else ''}"
+    shortened = len(roles) > _DIAGRAM_DISCS_MAX
+    if shortened:
+        roles = roles[:_DIAGRAM_DISCS_MAX - 2] + roles[-2:]
+    split = machine.collectors == "split"
+    for position, (role, units) in enumerate(roles):
+        moving_inductor = role == "moving inductor"
+        colour = "#8C8C8C" if moving_inductor else PALETTE[0]
+        figure.add_shape(type="rect", x0=position - 0.08, x1=position + 0.08, y0=-1.0, y1=1.0,
+                         fillcolor=colour, line={"color": "#333333", "width": 1})
+        words = role if units is None else f"{role}<br>{units:g} unit{'s' if units != 1 else ''}"
+        figure.add_annotation(x=position, y=-1.25, text=words, showarrow=False,
+                              font={"size": 11}, yanchor="top")
+        if moving_inductor:
+            continue
+        if split:  # two halves angled toward the nearest neutraliser
+            for side in (-1, 1):
+                figure.add_shape(type="line", x0=position, y0=1.15, x1=position + 0.25 * side,
+                                 y1=1.45, line={"color": "#D55E00", "width": 2})
+        else:
+            figure.add_shape(type="line", x0=position, y0=1.15, x1=position, y1=1.45,
+                             line={"color": "#D55E00", "width": 2})
+    if machine.arrangement == "single-disc":
+        figure.add_shape(type="rect", x0=0.45, x1=0.55, y0=-0.9, y1=0.9,
+                         fillcolor="#E69F00", line={"color": "#333333", "width": 1})
+        figure.add_annotation(x=0.5, y=-1.25, text="fixed inductor<br>plate", showarrow=False,
+                              font={"size": 11}, yanchor="top")
+    if shortened:
+        figure.add_annotation(x=_DIAGRAM_DISCS_MAX - 2.5, y=0, text="…", showarrow=False,
+                              font={"size": 20})
+    width = max(len(roles), 2)
+    figure.add_annotation(x=(width - 1) / 2, y=-2.1, showarrow=False, yanchor="top",
+                          text=_wrap(_escape(f"{rule.rule} ({rule.basis})"), 70),
+                          font={"size": 12})
+    figure.update_layout(title=f"{_escape(title)}: {rule.units:g} unit"
+                               f"{'s' if rule.units != 1 else ''}, seen edge on (not to scale)",
+                         template="plotly_white", showlegend=False, height=300,
+                         margin={"l": 10, "r": 10, "t": 40, "b": 10})
+    figure.update_xaxes(visible=False, range=[-0.8, width - 0.2])
+    figure.update_yaxes(visible=False, range=[-2.6, 1.7])
+    return figure

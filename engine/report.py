@@ -520,7 +520,7 @@ def _units_text(record: Mapping[str, object]) -> str:
     observed, expected = record.get("observed_units"), record.get("units")
     if _blank(observed) or _blank(expected):
         return _DASH
-    return _with_interval(f"{_fmt(observed, 2)} of {_fmt(expected)}",
+    return _with_interval(f"{_fmt(observed, 2)} of {_number(expected):g}",
                           _interval_text(record.get("observed_units_ci"), 2))
 
 

@@ -9,7 +9,7 @@ import pandas as pd
 import streamlit as st
 
 from engine import analysis
-from engine.arrangements import delivery_sentence
+from engine.arrangements import ARRANGEMENT_LABELS, COLLECTOR_LABELS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.errors import InputError
 from engine.figures import PALETTE
@@ -62,7 +62,8 @@ FIELD_EXAMPLES = {
 }
 FIELD_HELP = {
     "outer_diameter": "of the charged zone; any unit: '46 cm', '18 in'",
-    "inner_diameter": "of the charged zone; leave empty for a full disc",
+    "inner_diameter": "where the charged zone (or the sectors) begins; '0 cm' for a disc "
+                      "charged to its centre",
     "sector_fill": "fraction of the annulus covered by sectors, 1 for none (0.55 or '55 %')",
     "width": "charged width of the belt",
     "roller_diameter": "of the roller the speed is read on; leave empty for a belt speed in m/s",
@@ -110,6 +111,66 @@ def machine_form_table(kind: str, prefix: str, values: dict | None = None) -> di
                                  help=FIELD_HELP.get(key.replace("radius", "diameter")))
         if text.strip():
             table[key] = text.strip()
+    return table
+
+
+#: The units choices of a disc machine, in the user's words.
+UNIT_CHOICES = {
+    **{name: label[0].upper() + label[1:] for name, label in ARRANGEMENT_LABELS.items()},
+    "units": "I'll give the number of units myself",
+    "counted": "Count carriers and charge loads per revolution (older machine files)",
+}
+
+
+def units_form(kind: str, prefix: str, current: Machine | None = None) -> dict:
+    """Draw the inputs that set a machine's units; return the machines-file keys they give.
+
+    A disc machine chooses its arrangement (and collectors, and the discs of a stack), or gives
+    its units; other carriers give carriers N and charge loads per revolution k.
+    """
+    table: dict[str, object] = {}
+    if kind == "disc":
+        if current is not None and current.kind == "disc":
+            start = current.arrangement or ("units" if current.units_given is not None
+                                            else "counted")
+        else:
+            start = "twin-disc"
+        choices = list(UNIT_CHOICES)
+        choice = st.radio("How the discs are arranged", choices, index=choices.index(start),
+                          format_func=UNIT_CHOICES.get, key=f"{prefix}-arrangement",
+                          help="Sets the units: how many one-disc ceilings the machine can "
+                               "deliver, by the trade's rules")
+        if choice in ARRANGEMENT_LABELS:
+            table["arrangement"] = choice
+            collectors = list(COLLECTOR_LABELS)
+            chosen_collectors = (current.collectors if current is not None
+                                 and current.collectors in collectors else "fixed")
+            table["collectors"] = st.radio(
+                "Collectors", collectors, index=collectors.index(chosen_collectors),
+                format_func=lambda name: COLLECTOR_LABELS[name].capitalize(), horizontal=True,
+                key=f"{prefix}-collectors")
+            if choice == "disc-stack":
+                table["discs"] = int(st.number_input(
+                    "Discs in the stack", 3, 1000,
+                    current.discs if current is not None and current.discs else 6,
+                    key=f"{prefix}-discs"))
+            return table
+        if choice == "units":
+            table["units"] = float(st.number_input(
+                "Units (one-disc ceilings the machine delivers)", 0.1, 10_000.0,
+                float(current.units) if current is not None else 1.0, step=0.5,
+                key=f"{prefix}-units"))
+            return table
+    count_column, factor_column = st.columns(2)
+    table["carriers"] = int(count_column.number_input(
+        "Carriers that deliver charge (N)", 1, 1000,
+        current.carriers if current is not None else 1, key=f"{prefix}-n",
+        help="Belts, cylinders or discs that each carry charge to the collectors"))
+    table["collection_factor"] = float(factor_column.number_input(
+        "Charge loads per revolution of each (k)", 0.01, 100.0,
+        current.collection_factor if current is not None else 1.0, step=0.1,
+        key=f"{prefix}-k", help="How many times each carrier is charged and discharged per "
+                                "revolution; 1 unless you know better. Units = N x k."))
     return table
 
 

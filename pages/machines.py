@@ -6,7 +6,7 @@ import streamlit as st
 from engine.carriers import SPEC_KEYS
 from engine.ceiling import ceiling_figures
 from engine.errors import InputError
-from engine.figures import carrier_drawing
+from engine.figures import arrangement_diagram, carrier_drawing
 from engine.machines import dump_machines, machine_from_table, parse_machines_text
 from engine.units import parse_speed
 from pages import _shared as shared
@@ -35,8 +35,8 @@ if machine_file.machines:
             "carrier": machine.kind,
             "ceiling [µA]": None,
             "area per rev [cm²]": None if area is None else area * 1e4,
-            "N": machine.carriers,
-            "k": machine.collection_factor,
+            "units": machine.units,
+            "how the units are counted": machine.unit_rule.text,
             "geometry": ", ".join(f"{key.replace('_', ' ')} {value}"
                                   for key, value in machine.spec.items()),
         }
@@ -72,17 +72,10 @@ with edit_tab:
     table = shared.machine_form_table(kind, f"machines-{chosen}",
                                       dict(current.spec) if current and current.kind == kind
                                       else None)
-    count_column, factor_column, material_column = st.columns(3)
-    table["carriers"] = int(count_column.number_input(
-        "Carriers N", 1, 1000, current.carriers if current else 1, key=f"machines-n-{chosen}",
-        help="discs in a stack, belts: carriers that deliver charge"))
-    table["collection_factor"] = float(factor_column.number_input(
-        "Collection factor k", 0.01, 100.0, current.collection_factor if current else 1.0,
-        step=0.1, key=f"machines-k-{chosen}",
-        help="charge loads per revolution per carrier; 1 unless you know better"))
-    material = material_column.text_input("Material", current.material if current else "",
-                                          key=f"machines-material-{chosen}",
-                                          placeholder="acrylic, glass, polyester film")
+    table.update(shared.units_form(kind, f"machines-{chosen}-{kind}", current))
+    material = st.text_input("Material", current.material if current else "",
+                             key=f"machines-material-{chosen}",
+                             placeholder="acrylic, glass, polyester film")
     field_column, notes_column = st.columns([1, 2])
     breakdown_text = field_column.text_input(
         "Breakdown field of air", current.breakdown_field_text if current else "",
@@ -115,13 +108,22 @@ with edit_tab:
         machine = machine_from_table({"id": machine_id.strip() or "new-machine", **table})
         drawing_column, figures_column = st.columns([3, 2])
         drawing_column.plotly_chart(carrier_drawing(machine), key=f"machines-drawing-{chosen}")
+        if machine.kind == "disc":
+            drawing_column.plotly_chart(arrangement_diagram(machine),
+                                        key=f"machines-arrangement-{chosen}")
         area = machine.carrier.area_per_rev_m2
         figures_column.metric("Charged area per revolution",
                               "belt speed only" if area is None else f"{area * 1e4:.1f} cm²")
+        figures_column.metric("Units", f"{machine.units:g}", help=machine.unit_rule.text)
+        figures_column.caption(f"Units: {machine.unit_rule.text}.")
         if speed is not None and speed_kind in machine.carrier.speed_kinds:
-            figures_column.metric(f"Ceiling at {speed_text}", "{:.3g} µA".format(
-                ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
-                                site.temperature_k)["ceiling_current_uA"]))
+            figures = ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
+                                      site.temperature_k)
+            figures_column.metric(f"Ceiling at {speed_text}",
+                                  "{:.3g} µA".format(figures["ceiling_current_uA"]))
+            figures_column.caption("{:g} units x {:.3g} µA, the ceiling of one carrier's "
+                                   "charged area".format(figures["units"],
+                                                         figures["single_carrier_ceiling_uA"]))
         save_column, delete_column = st.columns(2)
         if save_column.button("Save machine", type="primary", key=f"machines-save-{chosen}"):
             if not machine_id.strip():

@@ -35,11 +35,7 @@ try:
         kind = st.selectbox("Carrier", shared.carrier_choices(), key="planner-kind",
                             format_func=shared.CARRIER_LABELS.get)
         table = shared.machine_form_table(kind, "planner")
-        count_column, factor_column = st.columns(2)
-        table["carriers"] = count_column.number_input("Carriers N", 1, 1000, 1,
-                                                      key="planner-carriers")
-        table["collection_factor"] = factor_column.number_input(
-            "Collection factor k", 0.01, 100.0, 1.0, step=0.1, key="planner-factor")
+        table.update(shared.units_form(kind, f"planner-{kind}"))
         machine = shared.sketch_machine(table)
 except InputError as error:
     shared.show_error(error)

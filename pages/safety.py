@@ -33,21 +33,40 @@ st.latex(r"\sigma_{limit} = \varepsilon_0 \, E_{breakdown}, \qquad "
          r"\delta = \frac{p}{101.3\ \mathrm{kPa}} \cdot \frac{293.15\ \mathrm{K}}{T}")
 st.markdown("The ceiling current is that density times the charged area swept past the "
             "collectors per second:")
-st.latex(r"I_{ceiling} = \sigma_{limit} \cdot A_{rev} \cdot f \cdot N \cdot k")
+st.latex(r"I_{ceiling} = \sigma_{limit} \cdot A_{rev} \cdot f \cdot \mathrm{units}")
 st.markdown(
     """
 | symbol | meaning |
 | --- | --- |
 | A_rev | charged area per revolution of one carrier: a disc's annulus π (r_out² − r_in²) times the sector fill; a belt's width times π d_roller or the loop length (σ w v for a belt speed); a cylinder's lateral surface 2 π r L; or an area you give |
 | f | revolutions per second (revolutions, never radians) |
-| N | carriers that deliver charge (discs in a stack, belts) |
-| k | charge loads delivered per revolution per carrier (default 1; observed from readings) |
+| units | how many one-carrier ceilings the machine can deliver: for a disc machine from its arrangement (table below); for belts, cylinders and custom carriers N × k, the carriers that deliver charge times the charge loads per revolution of each |
 | E_ref | breakdown field at the reference atmosphere, 3.0 MV/m by default |
 
+**Units: how the trade counts disc machines** (common practice, no published source). One unit
+is the ceiling of one disc's charged annulus, σ_limit · A_rev · f.
+
+| arrangement | units |
+| --- | --- |
+| one disc turning past a fixed inductor plate | 1 |
+| twin-disc with sectors | 1 in total: the two sides never have equal capacitance, so one disc delivers and the other acts as a moving inductor |
+| the same with split collectors (each collector's halves angled toward the nearest neutraliser) | 2 |
+| sectorless twin-disc | 2 |
+| sectorless twin-disc with split collectors | 4 |
+| close-spaced stack of sectorless discs with split collectors | 2 per outer disc, 4 per inner disc: n discs give 4n − 4 (8 discs: 28) |
+
+Where the trade gives no rule (one disc with split collectors, a stack with fixed collectors or
+with sectors) the count is derived by the same reasoning (split collectors double, sectors
+halve) and marked "by analogy, no source"; you may give the units yourself instead.
+
 **Efficiency** is the measured current over the ceiling. **Charge per revolution** is the
-current over the speed; the **observed collection factor** is the fitted charge per revolution
-over σ_limit · A_rev · N. Humidity does not enter the ceiling; its effect on output is measured
-from the readings (efficiency against relative humidity). Vapour pressure, dew point and absolute
+current over the speed; the **observed units** are the fitted charge per revolution over
+σ_limit · A_rev, what one unit carries per revolution: a machine "delivers 5.6 of the 28 units
+its arrangement allows". Humidity does not enter the ceiling (water vapour hardly changes the
+breakdown of air, and raises it slightly); its effect on output, through a conducting film on
+the insulating surfaces, is measured from the readings (efficiency against relative humidity,
+with a logistic decline where the data span the drop). Below 0 °C humidity is taken over
+supercooled water, the meteorological convention. Vapour pressure, dew point and absolute
 humidity use the Magnus form:
 """
 )
@@ -59,11 +78,16 @@ st.markdown(
     """
 - CODATA 2018 recommended values: vacuum permittivity 8.8541878128e-12 F/m.
 - IEC 60060-1:2010, High-voltage test techniques, Part 1: standard reference atmosphere
-  (20 degC, 101.3 kPa) and the air density correction.
+  (20 degC, 101.3 kPa, 11 g/m³ absolute humidity) and the air density correction, here with
+  exponent 1 (the breakdown field proportional to the relative air density).
 - ICAO Doc 7488/3, Manual of the ICAO Standard Atmosphere (pressure from altitude).
 - O. A. Alduchov and R. E. Eskridge, Improved Magnus form approximation of saturation vapor
   pressure, J. Appl. Meteor. 35 (1996) 601-609.
 - Breakdown field of air, about 3 MV/m in uniform fields over centimetre gaps: handbook value.
+  Over millimetre gaps air holds more (about 4.6 MV/m at 1 mm, 20 °C, 101.3 kPa, by the
+  empirical uniform-field relation of the high-voltage textbooks).
+- Units of disc machines by arrangement: the trade's rules, common practice, no published
+  source.
 """
 )
 
@@ -71,12 +95,15 @@ st.header("Limits of the model")
 st.markdown(
     """
 - The limit density assumes the field on one side of a charged sheet facing a conductor; a
-  carrier with charge on both faces or collected twice per turn shows up as a collection factor
-  above 1.
+  carrier with charge on both faces or collected twice per turn delivers more units than one,
+  which the arrangement (or the units you give) accounts for.
 - The breakdown field depends on the gap and the electrode shape; 3 MV/m holds for uniform fields
-  over centimetre gaps. Sharp edges break down earlier, so real carriers stay below the ceiling.
-- Scaling with air density is linear (Paschen similarity at fixed gap), good at ground-level
-  pressures; it is not meant for vacuum or pressurised machines.
+  over centimetre gaps, and higher fields hold over millimetre gaps, so a carrier close to a
+  conductor can carry more than the flat ceiling. Sharp edges break down earlier, so real
+  carriers stay below the ceiling.
+- Scaling with air density is the IEC 60060-1 correction with exponent 1 (the breakdown field
+  proportional to the relative air density), good at ground-level pressures; it is not meant
+  for vacuum or pressurised machines.
 - Humidity's effect is measured, not modelled: a steep drop above roughly 60-70 % RH is common
   practice, with no published source.
 - Tolerances in the machines file are taken as one standard uncertainty; efficiency uncertainty

@@ -352,7 +352,8 @@ def test_other_empty_inputs(machines):
 
 ALL_KINDS = {
     **MACHINE_TABLES,
-    "disc-full": {"carrier": "disc", "outer_radius": "15 cm", "label": "Sectorless disc"},
+    "disc-full": {"carrier": "disc", "outer_radius": "15 cm", "inner_radius": "0 cm",
+                  "label": "Sectorless disc"},
     "belt-loop": {"carrier": "belt", "width": "4 cm", "loop_length": "120 cm"},
     "belt-linear": {"carrier": "belt", "width": "5 cm", "label": "Belt in m/s"},
 }

@@ -289,7 +289,7 @@ def test_report_sections_method_references_and_safety(report):
                       "CODATA 2018", "6.1094 hPa", "293.15 K", "101.3 kPa"):
         assert reference in text
     assert ("I<sub>ceiling</sub> = &epsilon;<sub>0</sub> &middot; E<sub>ref</sub> &middot; "
-            "&delta; &middot; A<sub>rev</sub> &middot; f &middot; N &middot; k") in text
+            "&delta; &middot; A<sub>rev</sub> &middot; f &middot; units") in text
     for warning in ("kilovolts", "insulated grounding rod", "implanted medical devices",
                     "flammable vapours", "ozone", "Protect electronic instruments", "X-rays",
                     "institution's electrical safety rules, local codes",
@@ -316,7 +316,8 @@ def test_findings_figures_in_display_units():
          "readings_used": 98, "readings_flagged": 1, "efficiency_median": 0.2384,
          "efficiency_q25": 0.2291, "efficiency_q75": 0.2433, "charge_per_rev_nC": 1391.37,
          "charge_per_rev_ci_nC": (1376.2, 1406.9), "offset_current_uA": 0.4262,
-         "fit_r2": 0.99712, "observed_collection_factor": 0.2191,
+         "fit_r2": 0.99712, "units": 20.0, "observed_units": 4.382,
+         "observed_units_ci": (4.33, 4.43),
          "humidity_slope_per_10pct": -0.0632, "humidity_slope_per_10pct_ci": (-0.0679, -0.0578),
          "efficiency_at_reference_rh": 0.2921, "logistic_rh_half_pct": 66.2, "notes": None},
         {"machine": "belt-lin", "session": None, "carrier": None, "readings_used": 10,
@@ -328,7 +329,7 @@ def test_findings_figures_in_display_units():
     # hand-worked: fractions x 100 to one decimal, nC to three significant digits without
     # exponent, R^2 to three decimals, RH at half output to whole percent
     expected = ["<td>98</td>", "<td>23.8 (22.9 to 24.3)</td>", "<td>1391 (1376 to 1407)</td>",
-                "<td>0.426</td>", "<td>0.997</td>", "<td>0.219</td>",
+                "<td>0.426</td>", "<td>0.997</td>", "<td>4.4 of 20 (4.3 to 4.4)</td>",
                 "<td>-6.3 (-6.8 to -5.8)</td>", "<td>29.2</td>", "<td>66</td>",
                 "<td>210 per metre of belt (205 to 216)</td>"]
     for cell in expected:
