@@ -30,6 +30,7 @@ from plotly.subplots import make_subplots
 
 from engine import columns as col
 from engine.air import REFERENCE_TEMPERATURE_K, pressure_for_relative_density
+from engine.analysis import logistic_efficiency
 from engine.carriers import Belt, Cylinder, Disc
 from engine.ceiling import machine_ceiling
 from engine.errors import InputError
@@ -691,7 +692,8 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
                            colours: Mapping[str, str] | None = None,
                            show_flagged: bool = False,
                            reference_rh_pct: float = DEFAULT_REFERENCE_RH_PCT) -> go.Figure:
-    """Efficiency against relative humidity, with each machine's linear humidity fit.
+    """Efficiency against relative humidity, with each machine's humidity fit: the logistic
+    decline where one was fitted, else the straight line.
 
     Parameters
     ----------
@@ -735,14 +737,26 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
                 continue
             session = _session_of(row)
             fit_range = _finite_range(rh_pct[rows & _session_rows(derived, session)]) or rh_range
-            line_rh = np.linspace(*fit_range, _LINE_POINTS)
-            line_efficiency = _percent(at_reference + slope * (line_rh - reference_rh_pct) / 10)
+            line_rh = np.linspace(*fit_range, _LINE_POINTS * 4)
+            if row.get("humidity_model") == "logistic decline":
+                # The curve that was fitted, and that gave the efficiency at the reference RH.
+                dry = _number(row.get("logistic_dry_efficiency"))
+                half = _number(row.get("logistic_rh_half_pct"))
+                width = _number(row.get("logistic_width_pct"))
+                line_efficiency = _percent(logistic_efficiency(line_rh / 100, dry, half / 100,
+                                                               width / 100))
+                what = (f"Logistic decline: half the dry {_percent(dry):.1f} % at "
+                        f"{half:.0f} % RH")
+            else:
+                line_efficiency = _percent(at_reference
+                                           + slope * (line_rh - reference_rh_pct) / 10)
+                what = f"Humidity fit: {_percent(slope):+.1f} % points per +10 % RH"
             figure.add_trace(go.Scatter(
                 x=line_rh, y=line_efficiency, mode="lines",
                 name=_fit_name(label, _escape(session)), legendgroup=machine_id,
                 line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
-                hovertemplate=(f"Humidity fit: {_percent(slope):+.1f} % points per +10 % RH, "
-                               f"{_percent(at_reference):.1f} % at {reference_rh_pct:g} % RH"
+                hovertemplate=(f"{what}, {_percent(at_reference):.1f} % at "
+                               f"{reference_rh_pct:g} % RH"
                                "<br>RH %{x:.1f} %<br>Efficiency %{y:.1f} %"),
             ))
     shown_flagged = flagged & np.isfinite(rh_pct)

@@ -557,6 +557,18 @@ def test_findings_recover_a_logistic_humidity_drop():
     low, high = row["logistic_dry_efficiency_ci"]
     assert low < 0.55 < high
     assert row["logistic_width_pct"] == pytest.approx(4.0, rel=0.15)
+    # The efficiency at the reference humidity comes from the curve that was fitted, not from
+    # the straight line: at 70 % RH the truth is 0.55 / (1 + exp(0.5)) = 0.2085.
+    wet = findings(derive(_humidity_frame("twin", efficiency, rh, rng), machines), machines,
+                   reference_rh=0.70).iloc[0]
+    assert wet["humidity_model"] == "logistic decline"
+    assert wet["efficiency_at_reference_rh"] == pytest.approx(
+        logistic_efficiency(0.70, wet["logistic_dry_efficiency"],
+                            wet["logistic_rh_half_pct"] / 100, wet["logistic_width_pct"] / 100))
+    low, high = wet["efficiency_at_reference_rh_ci"]
+    assert low < 0.55 / (1 + math.exp(0.5)) < high
+    line = np.polyfit(rh, efficiency, 1)  # the straight line misses the knee
+    assert abs(np.polyval(line, 0.70) - 0.2085) > 3 * (high - low)
 
 
 def test_logistic_efficiency_hand_worked():
