@@ -167,6 +167,46 @@ def test_add_a_machine_of_each_kind(demo_lab):
     assert disc.carrier.outer_radius_m == pytest.approx(9 * 0.0254)  # exact inch (1959)
 
 
+def test_the_machine_form_counts_a_disc_stack_the_trade_s_way(empty_lab):
+    # The trade's worked case (common practice, no source): eight sectorless discs with split
+    # collectors, annulus 114.5 to 145 mm radius: 28 units.
+    app = open_page("pages/machines.py", empty=True)
+    prefix = "machines-(a new machine)"
+    app.selectbox(key="machines-kind-(a new machine)").set_value("disc").run()
+    app.text_input(key="machines-id-(a new machine)").input("stack-eight").run()
+    app.text_input(key=f"{prefix}-disc-outer_diameter").input("290 mm").run()
+    app.text_input(key=f"{prefix}-disc-inner_diameter").input("229 mm").run()
+    assert not app.number_input  # no N or k for an arrangement
+    app.radio(key=f"{prefix}-disc-arrangement").set_value("disc-stack").run()
+    app.number_input(key=f"{prefix}-disc-discs").set_value(8).run()
+    app.radio(key=f"{prefix}-disc-collectors").set_value("split").run()
+    metrics = {metric.label: metric.value for metric in app.metric}
+    assert metrics["Units"] == "28"
+    assert "2 outer discs x 2 + 6 inner discs x 4 = 28 units" in texts(app)
+    assert len(charts(app)) == 2  # the disc to scale and the arrangement diagram
+    app.button(key="machines-save-(a new machine)").click().run()
+    assert "Saved machine 'stack-eight'" in texts(app)
+    with open_store(empty_lab) as store:
+        machine = store.machines().by_id()["stack-eight"]
+    assert machine.arrangement == "disc-stack" and machine.units == 28
+    # Giving the units directly, and N x k for the older description.
+    app.selectbox(key="machines-edit").set_value("stack-eight").run()
+    app.radio(key="machines-stack-eight-disc-arrangement").set_value("units").run()
+    app.number_input(key="machines-stack-eight-disc-units").set_value(12.0).run()
+    assert {metric.label: metric.value for metric in app.metric}["Units"] == "12"
+    app.radio(key="machines-stack-eight-disc-arrangement").set_value("counted").run()
+    assert {item.key for item in app.number_input} >= {"machines-stack-eight-disc-n",
+                                                       "machines-stack-eight-disc-k"}
+
+
+def test_findings_say_units_delivered_the_trade_s_way(demo_lab):
+    app = open_page("pages/compare.py")
+    table = table_with(app, "units delivered")
+    delivered = " ".join(table["units delivered"])
+    assert "of the 20 units its arrangement allows" in delivered
+    assert "collection factor" not in texts(app).lower()
+
+
 def test_machine_form_names_the_bad_field(demo_lab):
     app = open_page("pages/machines.py")
     app.selectbox(key="machines-kind-(a new machine)").set_value("disc").run()
@@ -253,7 +293,8 @@ def test_editing_a_machine_keeps_what_the_form_does_not_change(empty_lab):
 
     with open_store(empty_lab) as store:
         store.save_machine(machine_from_table({
-            "id": "tall-stack", "carrier": "disc", "outer_diameter": "40 cm", "carriers": 8,
+            "id": "tall-stack", "carrier": "disc", "outer_diameter": "40 cm",
+            "inner_diameter": "10 cm", "carriers": 8,
             "collection_factor": 20, "breakdown_field": "2.5 MV/m", "notes": "museum piece",
             "tolerance": {"breakdown_field": "5 %"}}))
     app = open_page("pages/machines.py", empty=True)
