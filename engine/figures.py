@@ -1010,10 +1010,11 @@ def carrier_drawing(machine: Machine) -> go.Figure:
         notes.append("Shown as a square of the charged area per revolution")
         x_title, y_title = "Size [cm]", "Size [cm]"
     area = carrier.area_per_rev_m2
+    counted = "discs" if isinstance(carrier, Disc) else "carriers"
     if area is not None:
         notes.insert(0, f"Charged area per revolution of one carrier: "
                         f"{float(to_display(area, 'area', 'cm^2')):.4g} cm²"
-                        + (f"; {machine.carriers} carriers" if machine.carriers > 1 else ""))
+                        + (f"; {machine.carriers} {counted}" if machine.carriers > 1 else ""))
     figure.update_layout(title=f"{label}: {machine.kind}, to scale", template="plotly_white",
                          showlegend=False, hovermode="closest")
     figure.update_xaxes(title_text=x_title, zeroline=False)
@@ -1118,6 +1119,9 @@ def arrangement_diagram(machine: Machine) -> go.Figure:
                               font={"size": 11}, yanchor="top")
         if moving_inductor:
             continue
+        if position == 0 or (roles[0][0] == "moving inductor" and position == 1):
+            figure.add_annotation(x=position + 0.3, y=1.45, text="collector", showarrow=False,
+                                  font={"size": 10, "color": "#D55E00"}, xanchor="left")
         if split:  # two halves angled toward the nearest neutraliser
             for side in (-1, 1):
                 figure.add_shape(type="line", x0=position, y0=1.15, x1=position + 0.25 * side,

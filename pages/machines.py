@@ -121,9 +121,9 @@ with edit_tab:
                                       site.temperature_k)
             figures_column.metric(f"Ceiling at {speed_text}",
                                   "{:.3g} µA".format(figures["ceiling_current_uA"]))
-            figures_column.caption("{:g} units x {:.3g} µA, the ceiling of one carrier's "
-                                   "charged area".format(figures["units"],
-                                                         figures["single_carrier_ceiling_uA"]))
+            figures_column.caption("{:g} x {:.3g} µA, the ceiling of one carrier's charged "
+                                   "area (one unit)".format(figures["units"],
+                                                           figures["single_carrier_ceiling_uA"]))
         save_column, delete_column = st.columns(2)
         if save_column.button("Save machine", type="primary", key=f"machines-save-{chosen}"):
             if not machine_id.strip():

@@ -501,7 +501,7 @@ def test_disc_drawing_to_scale(machines):
     assert sum(value is None for value in zone.x) == 12
     texts = " ".join(annotation_texts(figure))
     # hand-worked: pi (22^2 - 13^2) * 0.5 = 494.8 cm^2
-    assert "494.8 cm²" in texts and "2 carriers" in texts
+    assert "494.8 cm²" in texts and "2 discs" in texts
 
 
 def test_full_disc_drawing_is_an_annulus():
