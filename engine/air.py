@@ -165,8 +165,9 @@ def breakdown_field(relative_density, reference_field_v_m: float = REFERENCE_BRE
     The linear scaling with relative air density is the air-density correction of
     IEC 60060-1 with exponent 1 (k1 = delta^m, m = 1), good at the pressures met at ground
     level. (Paschen's law is a law in p * d, pressure times gap: it is not what is applied
-    here.) Water vapour hardly changes the breakdown of air and raises it slightly, so no
-    humidity correction is applied. 3 MV/m is a uniform-field value for centimetre gaps;
+    here.) Water vapour hardly changes the breakdown of air and raises it slightly (the
+    humidity correction factor k2 of IEC 60060-1 grows with absolute humidity; from memory),
+    so no humidity correction is applied. 3 MV/m is a uniform-field value for centimetre gaps;
     over millimetre gaps air holds more (about 4.6 MV/m at 1 mm by the empirical
     uniform-field relation of the high-voltage textbooks), so a machine may give its own
     reference field.

@@ -666,7 +666,9 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
             marker={"color": colour, "symbol": "line-ew-open", "size": 44,
                     "line": {"color": colour, "width": 3}},
             hovertemplate=(f"Ceiling per revolution at relative air density {density:.3f}"
-                           "<br>%{y:.3g} nC"),
+                           f"<br>%{{y:.3g}} nC: {machine.units:g} unit"
+                           f"{'s' if machine.units != 1 else ''}"
+                           f"<br>{_escape(machine.unit_rule.rule)}<extra></extra>"),
         ))
     shown_flagged = flagged & np.isfinite(charge_nc)
     if show_flagged and shown_flagged.any():

@@ -261,15 +261,15 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
         "machine": [labels.get(machine, machine) for machine in findings["machine"]],
         "session": findings["session"].fillna("all"),
         "efficiency median [%]": findings["efficiency_median"] * 100,
+        "units delivered": [delivery_sentence(observed, expected, basis) for
+                            observed, expected, basis in zip(
+                                findings["observed_units"], findings["units"],
+                                findings["units_basis"], strict=True)],
         f"efficiency at {rh_text} [%]": findings["efficiency_at_reference_rh"] * 100,
         "humidity effect [% points per +10 % RH]": findings["humidity_slope_per_10pct"] * 100,
         "charge per revolution [nC]": findings["charge_per_rev_nC"],
         "95 % interval [nC]": [_interval_text(value) for value in
                                findings["charge_per_rev_ci_nC"]],
-        "units delivered": [delivery_sentence(observed, expected, basis) for
-                            observed, expected, basis in zip(
-                                findings["observed_units"], findings["units"],
-                                findings["units_basis"], strict=True)],
         "readings used": findings["readings_used"],
         "flagged": findings["readings_flagged"],
         "carrier": findings["carrier"].fillna("(not described)"),

@@ -768,23 +768,29 @@ def test_twenty_machines_of_every_kind_in_one_frame():
     np.testing.assert_allclose(table["logistic_rh_half_pct"], 70.0, atol=1.0)
 
 
-def test_a_difference_explained_by_humidity_is_said_so():
-    # Two sessions of one machine whose efficiency depends on humidity only (truth: no session
-    # effect), measured on a dry and a damp day.
-    rng = np.random.default_rng(7)
+def _compare_two_sessions(rng, rh, first_count, efficiency_of_rh, noise, names):
+    """Two sessions of one machine whose efficiency depends on humidity only (truth: no
+    session effect): the first ``first_count`` readings in session ``names[0]``."""
     machines = {"twin": make_machine("twin")}
-    rh = np.concatenate([rng.uniform(0.35, 0.45, 60), rng.uniform(0.62, 0.75, 60)])
-    efficiency = 0.6 - 0.5 * rh + rng.normal(0, 0.01, rh.size)
+    efficiency = efficiency_of_rh(rh) + rng.normal(0, noise, rh.size)
     speed = rng.uniform(2, 8, rh.size)
-    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh,
-                     session=np.repeat(["dry day", "damp day"], 60))
+    sessions = np.where(np.arange(rh.size) < first_count, names[0], names[1])
+    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh, session=sessions)
     ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
     readings[col.CURRENT_A] = efficiency * ceiling
-    result = compare_sessions(derive(readings, machines), "twin", "dry day", "damp day")
+    return compare_sessions(derive(readings, machines), "twin", *names)
+
+
+def test_a_difference_explained_by_humidity_is_said_so():
+    # Measured on a dry and a damp day whose humidity ranges do not overlap.
+    rng = np.random.default_rng(7)
+    rh = np.concatenate([rng.uniform(0.35, 0.45, 60), rng.uniform(0.62, 0.75, 60)])
+    result = _compare_two_sessions(rng, rh, 60, lambda rh: 0.6 - 0.5 * rh, 0.01,
+                                   ("dry day", "damp day"))
     assert result["raw_difference"] < -0.05  # the damp day looks worse
     assert result["verdict"].startswith("No clear difference")
-    # The two days' humidity ranges do not overlap: the adjustment extrapolates, and the
-    # verdict says that the data cannot tell the machine from the air.
+    # The adjustment extrapolates, and the verdict says that the data cannot tell the machine
+    # from the air.
     assert result["disjoint_conditions"] == ["humidity"]
     assert "cannot tell the machine from the conditions" in result["verdict"]
     assert "humidity ranges do not overlap" in result["verdict"]
@@ -793,15 +799,9 @@ def test_a_difference_explained_by_humidity_is_said_so():
 def test_a_difference_explained_by_overlapping_humidity_is_said_so():
     # As above, but the two days share a range of humidity: the adjustment interpolates.
     rng = np.random.default_rng(8)
-    machines = {"twin": make_machine("twin")}
     rh = np.concatenate([rng.uniform(0.30, 0.55, 80), rng.uniform(0.45, 0.75, 80)])
-    efficiency = 0.6 - 0.5 * rh + rng.normal(0, 0.01, rh.size)
-    speed = rng.uniform(2, 8, rh.size)
-    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh,
-                     session=np.repeat(["dry day", "damp day"], 80))
-    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
-    readings[col.CURRENT_A] = efficiency * ceiling
-    result = compare_sessions(derive(readings, machines), "twin", "dry day", "damp day")
+    result = _compare_two_sessions(rng, rh, 80, lambda rh: 0.6 - 0.5 * rh, 0.01,
+                                   ("dry day", "damp day"))
     assert result["disjoint_conditions"] == []
     assert result["verdict"].startswith("No clear difference")
     assert "comes from the sessions' different speed or humidity" in result["verdict"]
@@ -812,16 +812,10 @@ def test_a_wide_adjusted_interval_that_holds_the_raw_difference_cannot_tell():
     # and session and humidity move almost in step: the adjusted interval is wide and holds
     # zero and the plain difference alike, so the verdict must not blame the air.
     rng = np.random.default_rng(3)
-    machines = {"twin": make_machine("twin")}
     rh = np.concatenate([rng.uniform(0.449, 0.451, 14), [0.50], rng.uniform(0.549, 0.551, 14),
                          [0.50]])
-    efficiency = 0.40 - 0.6 * (rh - 0.5) + rng.normal(0, 0.015, rh.size)
-    speed = rng.uniform(2, 8, rh.size)
-    readings = frame("twin", np.ones(rh.size), speed_rev_s=speed, rh=rh,
-                     session=np.repeat(["before", "after"], 15))
-    ceiling = derive(readings, machines)[col.CEILING_A].to_numpy()
-    readings[col.CURRENT_A] = efficiency * ceiling
-    result = compare_sessions(derive(readings, machines), "twin", "before", "after")
+    result = _compare_two_sessions(rng, rh, 15, lambda rh: 0.40 - 0.6 * (rh - 0.5), 0.015,
+                                   ("before", "after"))
     low, high = result["adjusted_difference_ci"]
     raw_low, raw_high = result["raw_difference_ci"]
     assert result["disjoint_conditions"] == []

@@ -180,8 +180,12 @@ def test_the_machine_form_counts_a_disc_stack_the_trade_s_way(empty_lab):
     app.radio(key=f"{prefix}-disc-arrangement").set_value("disc-stack").run()
     app.number_input(key=f"{prefix}-disc-discs").set_value(8).run()
     app.radio(key=f"{prefix}-disc-collectors").set_value("split").run()
+    app.text_input(key="machines-speed").input("3000 rpm").run()
+    app.text_input(key="machines-field-(a new machine)").input("2.9986 MV/m").run()
     metrics = {metric.label: metric.value for metric in app.metric}
     assert metrics["Units"] == "28"
+    assert metrics["Ceiling at 3000 rpm"] == "924 µA"  # the trade's worked case: about 924 uA
+    assert "28 x 33 µA" in texts(app)  # one unit about 33 uA
     assert "2 outer discs x 2 + 6 inner discs x 4 = 28 units" in texts(app)
     assert len(charts(app)) == 2  # the disc to scale and the arrangement diagram
     app.button(key="machines-save-(a new machine)").click().run()

@@ -500,7 +500,9 @@ TOML_VALUES = st.one_of(
                      '"' + "x" * 600 + '"', '"=cmd|\' /C calc\'!A0"', '"0.5"', "0.5",
                      "2", '"disc"', '"belt"', '"cylinder"', '"custom"', '"<b>x</b>"',
                      "[" * 200 + "]" * 200, "1979-05-27T07:32:00Z", '"50 %"', '"3 MV/m"',
-                     '"0.12 m^2"', '"5 mm"', '"2 %"', '"1e-300 m"']),
+                     '"0.12 m^2"', '"5 mm"', '"2 %"', '"1e-300 m"', '"twin-disc"',
+                     '"disc-stack"', '"single-disc"', '"twin-disc-sectorless"', '"split"',
+                     '"fixed"', "8", "3"]),
     st.integers(-(2**63), 2**63 - 1).map(str),
     st.floats(allow_nan=False).map(lambda value: repr(value).replace("inf", "1e999")),
     st.text(_text_alphabet, max_size=30).map(lambda text: '"' + text.replace("\\", "")
@@ -510,7 +512,8 @@ TOML_KEYS = ["id", "label", "carrier", "outer_diameter", "inner_diameter", "oute
              "sector_fill", "carriers", "collection_factor", "breakdown_field", "width",
              "roller_diameter", "loop_length", "radius", "diameter", "active_length",
              "area_per_rev", "notes", "material", "altitude", "pressure", "temperature",
-             "speed", "current", "unknown_key", '"two\\nlines"', '"=cmd"']
+             "speed", "current", "unknown_key", '"two\\nlines"', '"=cmd"', "arrangement",
+             "collectors", "discs", "units"]
 
 
 @st.composite
@@ -554,7 +557,8 @@ def generated_machines_texts(draw):
         carrier = draw(st.sampled_from(sorted(SPEC_KEYS)))
         keys = draw(st.lists(st.sampled_from([*SPEC_KEYS[carrier], "carriers",
                                               "collection_factor", "breakdown_field",
-                                              "label", "notes", "material"]),
+                                              "label", "notes", "material", "arrangement",
+                                              "collectors", "discs", "units"]),
                              max_size=6, unique=True))
         lines = [f'id = "m{number}"', f'carrier = "{carrier}"']
         lines += [f"{key} = {draw(TOML_VALUES)}" for key in keys]
@@ -583,8 +587,13 @@ def test_machines_files_parse_or_say_why(text):
         machine.id for machine in machine_file.machines]
     for before, after in zip(machine_file.machines, again.machines, strict=True):
         assert after.carrier == before.carrier
-        assert math.isfinite(before.carrier.area_per_rev_m2) and \
-            before.carrier.area_per_rev_m2 > 0
+        assert after.units == before.units and math.isfinite(before.units) \
+            and before.units > 0
+        area = before.carrier.area_per_rev_m2
+        if area is None:  # a belt known by its width only: its speed is linear
+            assert before.kind == "belt"
+        else:
+            assert math.isfinite(area) and area > 0
     assert math.isfinite(machine_file.site.pressure_pa) and machine_file.site.pressure_pa > 0
 
 
@@ -770,7 +779,7 @@ def _machines_path() -> Path:
         folder = Path(tempfile.mkdtemp(prefix="fuzz-machines-"))
         _MACHINES_FILE = folder / "machines.toml"
         text = MACHINES_TEXT + "\n[[machine]]\nid = \"disc-a\"\ncarrier = \"disc\"\n" \
-            "outer_diameter = \"46 cm\"\n"
+            "outer_diameter = \"46 cm\"\ninner_diameter = \"20 cm\"\n"
         _MACHINES_FILE.write_text(text, encoding="utf-8")
     return _MACHINES_FILE
 

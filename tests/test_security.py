@@ -202,7 +202,7 @@ class _Tags(html.parser.HTMLParser):
 def _report_of(title, label, session, note, notes):
     machine_file = parse_machines_text(
         f"[[machine]]\nid = \"m1\"\nlabel = {_toml_text(label)}\ncarrier = \"disc\"\n"
-        f"outer_diameter = \"46 cm\"\nnotes = {_toml_text(note)}\n"
+        f"outer_diameter = \"46 cm\"\ninner_diameter = \"20 cm\"\nnotes = {_toml_text(note)}\n"
         f"material = {_toml_text(note)}\n", "report.toml")
     lines = ["machine,session,time,speed [rpm],current [uA],rh [%],note"]
     for number in range(12):
@@ -461,7 +461,8 @@ def _evaluate(tmp_path, machines_text: str, readings: bytes, suffix: str = ".csv
     return status, out.buffer.getvalue().decode("utf-8"), err.getvalue()
 
 
-GOOD_MACHINES = "[[machine]]\nid = \"d\"\ncarrier = \"disc\"\nouter_diameter = \"46 cm\"\n"
+GOOD_MACHINES = ("[[machine]]\nid = \"d\"\ncarrier = \"disc\"\nouter_diameter = \"46 cm\"\n"
+                 "inner_diameter = \"20 cm\"\n")
 GOOD_READINGS = b"machine,time,speed [rpm],current [uA]\nd,2026-02-03T09:00,300,5\n"
 
 
