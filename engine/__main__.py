@@ -6,6 +6,7 @@ ceiling    one ceiling from options given as quantity strings
 machines   the machines of a machines file, with their ceilings at a speed
 evaluate   every reading of a file with its derived columns (CSV, XLSX or JSON)
 summary    the findings per machine (or machine and session)
+spark      the breakdown voltage of an air gap, or the gap for a voltage
 
 Bad input exits with status 2 and one line on stderr starting with ``error:``.
 """
@@ -20,8 +21,8 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-from engine import analysis, columns, report
-from engine.air import REFERENCE_TEMPERATURE_K, site_pressure
+from engine import analysis, columns, report, sparks
+from engine.air import REFERENCE_TEMPERATURE_K, relative_air_density, site_pressure
 from engine.carriers import CARRIER_KINDS, ROTATION, carrier_from_spec
 from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
@@ -134,6 +135,10 @@ def _command_ceiling(args: argparse.Namespace) -> int:
                                       "--breakdown-field") if args.breakdown_field else None)
     if reference_field is not None and not reference_field > 0:
         raise InputError("--breakdown-field must be positive")
+    air_gap = _air_gap_option(args.air_gap)
+    if air_gap is not None and reference_field is not None:
+        raise InputError("give either --breakdown-field or --air-gap, not both; choose one "
+                         "(with --air-gap the breakdown field follows the gap)")
     machine = Machine(
         id="command-line",
         label=f"a {args.carrier} machine",
@@ -141,6 +146,8 @@ def _command_ceiling(args: argparse.Namespace) -> int:
         carriers=_positive_count(args.carriers, "--carriers"),
         collection_factor=_positive_number(args.collection_factor, "--collection-factor"),
         **({"reference_field_v_m": reference_field} if reference_field else {}),
+        air_gap_m=air_gap,
+        air_gap_text=args.air_gap or "",
     )
     speed, speed_kind = _speed_from_option(args.speed)
     pressure_pa, temperature_k = _air_from_options(args)
@@ -150,6 +157,19 @@ def _command_ceiling(args: argparse.Namespace) -> int:
     else:
         print(_format_summary(figures, machine.label))
     return 0
+
+
+def _air_gap_option(text: str | None) -> float | None:
+    if not text:
+        return None
+    gap = parse_quantity(text, "length", "--air-gap")
+    if not gap > 0:
+        raise InputError(f"--air-gap must be a length above zero, got '{text}'")
+    try:
+        sparks.uniform_field_breakdown_field(gap)
+    except InputError as error:
+        raise InputError(f"--air-gap: {error}") from None
+    return gap
 
 
 def _command_machines(args: argparse.Namespace) -> int:
@@ -164,6 +184,9 @@ def _command_machines(args: argparse.Namespace) -> int:
             "carriers": machine.carriers,
             "collection_factor": machine.collection_factor,
             "area_per_rev_m2": machine.carrier.area_per_rev_m2,
+            "breakdown_field_MV_m": float(machine.breakdown_field_at(relative_air_density(
+                machine_file.site.pressure_pa, machine_file.site.temperature_k))) / 1e6,
+            "air_gap_mm": None if machine.air_gap_m is None else machine.air_gap_m * 1e3,
         }
         if speed is not None:
             if speed[1] not in machine.carrier.speed_kinds:
@@ -336,6 +359,63 @@ def _format_finding(record: dict, reference_rh: float) -> str:
     return "\n".join([title] + [f"  {name:<30} {value}" for name, value in rows])
 
 
+def _command_spark(args: argparse.Namespace) -> int:
+    if (args.gap is None) == (args.voltage is None):
+        raise InputError("give either --gap (for its breakdown voltage) or --voltage (for the "
+                         "gap that breaks down at it)")
+    if args.electrodes == "spheres" and not args.sphere_diameter:
+        raise InputError("--electrodes spheres needs --sphere-diameter, e.g. '5 cm'")
+    if args.electrodes == "uniform" and args.sphere_diameter:
+        raise InputError("--sphere-diameter is for --electrodes spheres; add it or leave the "
+                         "diameter out")
+    diameter = None
+    if args.sphere_diameter:
+        diameter = parse_quantity(args.sphere_diameter, "length", "--sphere-diameter")
+        if not diameter > 0:
+            raise InputError(f"--sphere-diameter must be above zero, got '{args.sphere_diameter}'")
+    pressure_pa, temperature_k = _air_from_options(args)
+    density = float(relative_air_density(pressure_pa, temperature_k))
+    if args.voltage is not None:
+        voltage = parse_quantity(args.voltage, "voltage", "--voltage")
+        if not voltage > 0:
+            raise InputError(f"--voltage must be above zero, got '{args.voltage}'")
+        gap = sparks.gap_for_voltage(voltage, args.electrodes, diameter, density)
+    else:
+        gap = parse_quantity(args.gap, "length", "--gap")
+        if not gap > 0:
+            raise InputError(f"--gap must be a length above zero, got '{args.gap}'")
+    result = sparks.spark_breakdown(gap, args.electrodes, diameter, density)
+    figures = {
+        "gap_mm": gap * 1e3,
+        "electrodes": args.electrodes,
+        "sphere_diameter_cm": None if diameter is None else diameter * 1e2,
+        "breakdown_voltage_kV": float(result.breakdown_voltage_v) / 1e3,
+        "breakdown_field_MV_m": float(result.mean_field_v_m) / 1e6,
+        "relative_air_density": density,
+        "pressure_kPa": pressure_pa / 1e3,
+        "temperature_C": temperature_k - 273.15,
+        "model": result.model,
+        "valid_range": result.valid_range,
+    }
+    if args.json:
+        print(json.dumps(figures))
+        return 0
+    asked = (f"Gap that breaks down at {args.voltage}" if args.voltage is not None
+             else f"Breakdown of a {args.gap} gap")
+    print("\n".join([
+        f"{asked}, {args.electrodes}"
+        + (f" of {args.sphere_diameter}" if diameter is not None else ""),
+        f"  gap                   {figures['gap_mm']:.4g} mm",
+        f"  breakdown voltage     {figures['breakdown_voltage_kV']:.3g} kV",
+        f"  mean field in the gap {figures['breakdown_field_MV_m']:.3g} MV/m",
+        f"  air                   {figures['pressure_kPa']:.4g} kPa, "
+        f"{figures['temperature_C']:.1f} degC, relative density {density:.3f}",
+        f"  model                 {result.model}",
+        f"  valid for             {result.valid_range}",
+    ]))
+    return 0
+
+
 def _add_reading_options(command: argparse.ArgumentParser) -> None:
     command.add_argument("machines", help="machines file (TOML)")
     command.add_argument("readings", help="readings file (CSV or XLSX)")
@@ -380,6 +460,8 @@ def build_parser() -> argparse.ArgumentParser:
     ceiling.add_argument("--altitude", help="site altitude, used when no pressure is given")
     ceiling.add_argument("--breakdown-field", help="breakdown field of air at the reference "
                          "atmosphere (default '3.0 MV/m')")
+    ceiling.add_argument("--air-gap", help="distance from the carrier to the nearest conductor, "
+                         "e.g. '2 mm': the breakdown field then follows the gap")
     ceiling.add_argument("--json", action="store_true", help="print one JSON object")
     ceiling.set_defaults(run=_command_ceiling)
 
@@ -400,6 +482,22 @@ def build_parser() -> argparse.ArgumentParser:
                          help="relative humidity [%%] for the efficiency comparison (default 45)")
     summary.add_argument("--by-session", action="store_true", help="one finding per session")
     summary.set_defaults(run=_command_summary)
+
+    spark = commands.add_parser("spark", help="breakdown voltage of an air gap (or the gap for "
+                                "a voltage)")
+    spark.add_argument("--gap", help="spark length, e.g. '1 cm' (not with --voltage)")
+    spark.add_argument("--voltage", help="a voltage, e.g. '30 kV': prints the gap that breaks "
+                       "down at it (the inverse)")
+    spark.add_argument("--electrodes", choices=sparks.ELECTRODES, default="uniform",
+                       help="'uniform' (plates, or balls much larger than the gap; default) or "
+                       "'spheres' (two equal balls, one earthed)")
+    spark.add_argument("--sphere-diameter", help="ball diameter for --electrodes spheres, "
+                       "e.g. '5 cm'")
+    spark.add_argument("--pressure", help="air pressure, e.g. '97.2 kPa' (default 101.3 kPa)")
+    spark.add_argument("--altitude", help="site altitude, used when no pressure is given")
+    spark.add_argument("--temperature", help="air temperature, e.g. '20 degC' (default)")
+    spark.add_argument("--json", action="store_true", help="print one JSON object")
+    spark.set_defaults(run=_command_spark)
     return parser
 
 

@@ -446,7 +446,7 @@ def _machine_table(machines: Mapping[str, Machine]) -> _MachineTable:
              "accepts_linear", "carriers", "collection_factor", "reference_field_v_m",
              "current_relative", "current_absolute_a", "speed_relative",
              "speed_absolute_rev_s", "speed_absolute_m_s", "field_relative",
-             "area_relative_rotation", "area_relative_linear")
+             "area_relative_rotation", "area_relative_linear", "air_gap_m")
     values = {name: np.full(len(ids) + 1, np.nan) for name in names}
     values["accepts_rotation"] = np.zeros(len(ids) + 1, dtype=bool)
     values["accepts_linear"] = np.zeros(len(ids) + 1, dtype=bool)
@@ -465,6 +465,8 @@ def _machine_table(machines: Mapping[str, Machine]) -> _MachineTable:
         values["carriers"][index] = machine.carriers
         values["collection_factor"][index] = machine.collection_factor
         values["reference_field_v_m"][index] = machine.reference_field_v_m
+        values["air_gap_m"][index] = (math.nan if machine.air_gap_m is None
+                                      else machine.air_gap_m)
 
         current = tolerances.get("current")
         values["current_relative"][index] = _relative_part(current)
@@ -676,7 +678,8 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         delta = relative_air_density(pressure, temperature)
         sigma = charge_density_limit(breakdown_field(delta, table.take("reference_field_v_m",
-                                                                        codes)))
+                                                                        codes),
+                                                     table.take("air_gap_m", codes)))
         carriers = table.take("carriers", codes)
         ceiling = ceiling_current(sigma, swept, carriers, table.take("collection_factor", codes))
         efficiency = _divide(current, ceiling)
@@ -938,9 +941,7 @@ def _group_findings(machine_id: str, session: str | None, machine: Machine | Non
 def _speed_findings(row: dict, notes: list[str], machine: Machine, used: np.ndarray,
                     data: Mapping[str, np.ndarray]) -> None:
     current = data["current"][used]
-    reference_field = machine.reference_field_v_m
-    sigma = float(np.mean(charge_density_limit(breakdown_field(data["delta"][used],
-                                                                 reference_field))))
+    sigma = float(np.mean(charge_density_limit(machine.breakdown_field_at(data["delta"][used]))))
     row["charge_density_limit_uC_m2"] = sigma * 1e6
     area = machine.carrier.area_per_rev_m2
     if area is not None:
