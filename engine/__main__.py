@@ -320,6 +320,7 @@ def _command_summary(args: argparse.Namespace) -> int:
                               reference_rh=reference_rh / 100)
     records = [{key: _json_ready(value) for key, value in row.items()}
                for row in table.to_dict(orient="records")]
+    _add_load_lines(records, analysis.load_line_findings(derived, by_session=args.by_session))
     if args.json:
         print(json.dumps(records))
         return 0
@@ -329,6 +330,26 @@ def _command_summary(args: argparse.Namespace) -> int:
     for record in records:
         print(_format_finding(record, reference_rh))
     return 0
+
+
+#: Keys of the load line in every `summary` record (null where the readings carry no voltage).
+LOAD_LINE_KEYS = ("short_circuit_current_uA", "short_circuit_current_ci_uA",
+                  "leakage_resistance_GOhm", "leakage_resistance_ci_GOhm",
+                  "open_circuit_voltage_kV", "open_circuit_voltage_ci_kV", "max_output_power_W",
+                  "max_output_power_ci_W", "load_line_speed_rev_s", "load_line_curvature_p")
+
+
+def _add_load_lines(records: list[dict], load_lines) -> None:
+    """Put each group's load-line figures into its summary record; its notes into the notes."""
+    by_group = {(row["machine"], row["session"]): row
+                for row in load_lines.to_dict(orient="records")}
+    for record in records:
+        found = by_group.get((record["machine"], record.get("session")), {})
+        for key in LOAD_LINE_KEYS:
+            record[key] = _json_ready(found.get(key))
+        note = found.get("load_line_notes")
+        if note:
+            record["notes"] = "; ".join(text for text in (record.get("notes"), note) if text)
 
 
 def _number(value: object, pattern: str, unit: str = "", scale: float = 1.0) -> str:
@@ -354,6 +375,18 @@ def _format_finding(record: dict, reference_rh: float) -> str:
         (f"efficiency at {reference_rh:g} % RH",
          _number(record.get("efficiency_at_reference_rh"), ".1f", "%", 100)),
     ]
+    if record.get("short_circuit_current_uA") is not None:
+        rows += [
+            ("short-circuit current", _number(record.get("short_circuit_current_uA"), ".4g",
+                                              "uA") + _interval_text(record,
+                                                                     "short_circuit_current_ci_uA")),
+            ("leakage resistance", _number(record.get("leakage_resistance_GOhm"), ".3g", "GOhm")
+             + _interval_text(record, "leakage_resistance_ci_GOhm")),
+            ("open-circuit voltage", _number(record.get("open_circuit_voltage_kV"), ".3g", "kV")
+             + _interval_text(record, "open_circuit_voltage_ci_kV")),
+            ("largest output power", _number(record.get("max_output_power_W"), ".3g", "W")
+             + _interval_text(record, "max_output_power_ci_W")),
+        ]
     if record.get("notes"):
         rows.append(("notes", record["notes"]))
     return "\n".join([title] + [f"  {name:<30} {value}" for name, value in rows])
@@ -414,6 +447,14 @@ def _command_spark(args: argparse.Namespace) -> int:
         f"  valid for             {result.valid_range}",
     ]))
     return 0
+
+
+def _interval_text(record: dict, key: str) -> str:
+    interval = record.get(key)
+    if not interval:
+        return ""
+    low, high = ("unbounded" if value is None else format(value, ".3g") for value in interval)
+    return f" (95 % CI {low} to {high})"
 
 
 def _add_reading_options(command: argparse.ArgumentParser) -> None:

@@ -42,6 +42,9 @@ OPTIONAL_OUTPUT_COLUMNS: tuple[str, ...] = ("session", "note")
 #: file (to trace a flag back), the belt speed, the air, and the achieved surface density.
 TRACE_OUTPUT_COLUMNS: tuple[str, ...] = ("row", "belt_speed_m_s", "temperature_C",
                                          "pressure_kPa", "surface_density_uC_m2")
+#: The voltage side, appended last to every table: terminal voltage [kV] and the output power
+#: V I [W] of each reading (empty where the reading has no voltage).
+VOLTAGE_OUTPUT_COLUMNS: tuple[str, ...] = ("voltage_kV", "output_power_W")
 #: Leading characters that make a spreadsheet read a cell as a formula (OWASP, CSV injection).
 FORMULA_PREFIXES: tuple[str, ...] = ("=", "+", "-", "@", "\t", "\r")
 
@@ -130,7 +133,8 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
     pandas.DataFrame
         Columns :data:`OUTPUT_COLUMNS` in that order, then ``session`` and ``note`` and then
         :data:`TRACE_OUTPUT_COLUMNS` (source row, belt speed [m/s], temperature [degC],
-        pressure [kPa], surface density [uC/m^2]) when the input has them;
+        pressure [kPa], surface density [uC/m^2]) when the input has them, and last, always,
+        :data:`VOLTAGE_OUTPUT_COLUMNS` (terminal voltage [kV], output power V I [W]);
         rows in input order, index 0..n-1. Units: time as ISO text ("" when
         unknown), speed [rev/s], currents [uA], efficiency and its uncertainty as fractions,
         charge per revolution [nC], relative humidity [%], absolute humidity [g/m^3], dew
@@ -166,6 +170,9 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
             ("surface_density_uC_m2", col.SURFACE_DENSITY_C_M2, lambda values: values * 1e6)):
         if column in derived:
             out[name] = convert(_floats(derived, column))
+    voltage_v = _floats(derived, col.VOLTAGE_V)
+    out["voltage_kV"] = to_display(voltage_v, "voltage", "kV")
+    out["output_power_W"] = voltage_v * _floats(derived, col.CURRENT_A)
     return pd.DataFrame(out, index=pd.RangeIndex(len(derived)))
 
 
