@@ -1444,7 +1444,9 @@ def fit_load_line(current_a, voltage_v, speed_rev_s=None,
                   coefficients={"intercept": float(coefficients[0]),
                                 "speed": float(coefficients[1]) if with_speed else 0.0,
                                 "voltage": slope})
-    if slope < 0:
+    # A fall over the whole span below rounding of the currents is no fall at all.
+    flat = abs(slope) * span <= 1e-9 * max(float(np.max(np.abs(current))), 1e-300)
+    if slope < 0 and not flat:
         falling = -slope  # 1 / R_leak
         values["leakage_resistance_ohm"] = 1.0 / falling
         values["leakage_resistance_ci"] = (-1.0 / slope_ci[0],
