@@ -59,7 +59,8 @@ def test_load_line_matches_statsmodels_ols_and_its_intervals(speed_varies):
     for theta in fit.open_circuit_voltage_ci:
         contrast = point[0].copy()
         contrast[-1] = theta
-        assert abs(np.asarray(reference.t_test(contrast).tvalue).item()) == pytest.approx(critical, rel=1e-6)
+        statistic = np.asarray(reference.t_test(contrast).tvalue).item()
+        assert abs(statistic) == pytest.approx(critical, rel=1e-6)
     low, high = fit.open_circuit_voltage_ci
     assert low < fit.open_circuit_voltage_v < high
     assert fit.open_circuit_voltage_v == pytest.approx(

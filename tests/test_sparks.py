@@ -11,7 +11,6 @@ from engine import sparks
 from engine.air import breakdown_field, gap_breakdown_field, relative_air_density
 from engine.errors import InputError
 
-
 # --- uniform field ----------------------------------------------------------------------------
 
 @pytest.mark.parametrize(
