@@ -525,3 +525,21 @@ def thresholds_reached(capacitance_f: float, voltage_v: float) -> list[EnergyThr
                 threshold.energy_j is not None and energy > threshold.energy_j):
             reached.append(threshold)
     return reached
+
+
+def threshold_text(threshold: EnergyThreshold) -> str:
+    """A threshold's level in words, e.g. '0.35 J (above 15 kV)'."""
+    level = (f"{threshold.charge_c * 1e6:g} µC" if threshold.charge_c is not None
+             else f"{threshold.energy_j:g} J")
+    low, high = threshold.voltage_range_v
+    if math.isfinite(high):
+        return f"{level} (up to {high / 1e3:g} kV)"
+    if low > 0:
+        return f"{level} (above {low / 1e3:g} kV)"
+    return level
+
+
+def threshold_table() -> list[dict[str, str]]:
+    """The thresholds of :data:`ENERGY_THRESHOLDS` as rows for a table (level, meaning, source)."""
+    return [{"level": threshold_text(item), "meaning": item.meaning, "source": item.source}
+            for item in ENERGY_THRESHOLDS]
