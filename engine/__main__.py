@@ -156,6 +156,9 @@ def _command_ceiling(args: argparse.Namespace) -> int:
         print(json.dumps(figures))
     else:
         print(_format_summary(figures, machine.label))
+        if air_gap is not None:
+            print(f"  (breakdown field of a {args.air_gap} air gap by the uniform-field "
+                  "relation for air, not the flat 3 MV/m of centimetre gaps)")
     return 0
 
 
@@ -377,9 +380,9 @@ def _format_finding(record: dict, reference_rh: float) -> str:
     ]
     if record.get("short_circuit_current_uA") is not None:
         rows += [
-            ("short-circuit current", _number(record.get("short_circuit_current_uA"), ".4g",
-                                              "uA") + _interval_text(record,
-                                                                     "short_circuit_current_ci_uA")),
+            ("short-circuit current",
+             _number(record.get("short_circuit_current_uA"), ".4g", "uA")
+             + _interval_text(record, "short_circuit_current_ci_uA")),
             ("leakage resistance", _number(record.get("leakage_resistance_GOhm"), ".3g", "GOhm")
              + _interval_text(record, "leakage_resistance_ci_GOhm")),
             ("open-circuit voltage", _number(record.get("open_circuit_voltage_kV"), ".3g", "kV")

@@ -470,7 +470,8 @@ def _machines_table(machines: Mapping[str, Machine]) -> str:
             _esc(machine.id), _esc(machine.label), _esc(machine.kind), _esc(geometry),
             _esc(machine.carriers), _fmt(machine.collection_factor),
             _fmt(to_display(area, "area", "cm^2"), 4) if area is not None else "– (linear speed)",
-            _fmt(to_display(machine.reference_field_v_m, "electric_field", "MV/m")),
+            _fmt(to_display(machine.breakdown_field_at(1.0), "electric_field", "MV/m"))
+            + (f" (air gap {_esc(machine.air_gap_text)})" if machine.air_gap_text else ""),
             _esc(machine.material), _esc(machine.notes),
         ])
     return _table(header, rows)
