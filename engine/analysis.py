@@ -242,6 +242,8 @@ class LinearModel:
         n - p.
     confidence : float
         Confidence level [-].
+    covariance : numpy.ndarray or None
+        Shape (p, p): s^2 (X^T X)^-1, for figures derived from several coefficients.
     """
 
     names: tuple[str, ...]
@@ -251,6 +253,7 @@ class LinearModel:
     r_squared: float
     degrees_of_freedom: int
     confidence: float = CONFIDENCE
+    covariance: np.ndarray | None = None
 
     def coefficient(self, name: str) -> tuple[float, tuple[float, float]]:
         """One coefficient and its confidence interval, by name."""
@@ -319,6 +322,7 @@ def fit_linear_model(design, y, names: Sequence[str],
         r_squared=1.0 - _dot(residual, residual) / ss_tot if ss_tot > 0 else math.nan,
         degrees_of_freedom=dof,
         confidence=confidence,
+        covariance=variance * (r_inverse @ r_inverse.T),
     )
 
 
@@ -1311,20 +1315,6 @@ class LoadLine:
     notes: tuple[str, ...] = ()
 
 
-def _least_squares(design: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
-    """Coefficients, their covariance s^2 (X^T X)^-1 and the degrees of freedom, by QR."""
-    q, r = np.linalg.qr(design)
-    diagonal = np.abs(np.diag(r))
-    if diagonal.min() <= 1e-10 * max(diagonal.max(), 1e-300):
-        raise InputError("the load-line terms are collinear: speed and voltage move together")
-    coefficients = np.linalg.solve(r, q.T @ y)
-    residual = y - design @ coefficients
-    dof = design.shape[0] - design.shape[1]
-    r_inverse = np.linalg.inv(r)
-    covariance = _dot(residual, residual) / dof * (r_inverse @ r_inverse.T)
-    return coefficients, covariance, dof
-
-
 def fieller_interval(numerator: float, denominator: float, var_numerator: float,
                      var_denominator: float, covariance: float,
                      t_value: float) -> tuple[float, float]:
@@ -1426,10 +1416,16 @@ def fit_load_line(current_a, voltage_v, speed_rev_s=None,
             f"load line: the terminal voltages span too little ({voltage.min() / 1e3:.3g} to "
             f"{voltage.max() / 1e3:.3g} kV; at least {MIN_VOLTAGE_SPAN_FRACTION * 100:.0f} % of "
             "the largest is needed): charge the terminals to several voltages",))
-    columns_ = [np.ones_like(current)] + ([speed] if with_speed else []) + [voltage]
-    design = np.column_stack(columns_)
-    coefficients, covariance, dof = _least_squares(design, current)
-    t_value = float(t_critical(dof, confidence))
+    names = ["intercept"] + (["speed"] if with_speed else []) + ["voltage"]
+    design = np.column_stack([np.ones_like(current)] + ([speed] if with_speed else [])
+                             + [voltage])
+    try:
+        model = fit_linear_model(design, current, names, confidence)
+    except InputError:
+        return LoadLine(**empty, notes=("load line: speed and terminal voltage move together in "
+                                        "these readings, so their effects cannot be told apart",))
+    coefficients, covariance = model.coefficients, model.covariance
+    t_value = float(t_critical(model.degrees_of_freedom, confidence))
     gradient = np.array([1.0, reference_speed, 0.0] if with_speed else [1.0, 0.0])
     short = float(gradient @ coefficients)
     short_var = float(gradient @ covariance @ gradient)
@@ -1475,12 +1471,12 @@ def fit_load_line(current_a, voltage_v, speed_rev_s=None,
     if current.size > terms + 1:
         curved = np.column_stack([design, (voltage / largest) ** 2])
         try:
-            curved_coefficients, curved_covariance, curved_dof = _least_squares(curved, current)
+            bent = fit_linear_model(curved, current, [*names, "voltage_squared"], confidence)
         except InputError:
-            curved_dof = 0
-        if curved_dof > 0 and curved_covariance[-1, -1] > 0:
-            statistic = curved_coefficients[-1] / math.sqrt(curved_covariance[-1, -1])
-            p_value = float(2.0 * stats.t.sf(abs(statistic), curved_dof))
+            bent = None
+        if bent is not None and bent.standard_errors[-1] > 0:
+            statistic = bent.coefficients[-1] / bent.standard_errors[-1]
+            p_value = float(2.0 * stats.t.sf(abs(statistic), bent.degrees_of_freedom))
             values["curvature_p"] = p_value
             if p_value < CURVATURE_ALPHA:
                 notes.append(f"load line: the current bends away from a straight line (quadratic "

@@ -145,3 +145,19 @@ def test_load_line_findings_per_machine_and_session():
     assert table.iloc[2]["load_line_notes"] == ""
     pooled = load_line_findings(frame, by_session=False)
     assert list(pooled["session"]) == [None, None]
+
+
+def test_speed_and_voltage_moving_together_is_a_note_not_an_error():
+    speed = np.linspace(3.0, 5.0, 12)
+    voltage = speed * 4e3  # the terminals charge exactly in step with the speed
+    fit = fit_load_line(1e-6 + 0 * speed, voltage, speed)
+    assert math.isnan(fit.short_circuit_current_a)
+    assert "move together" in fit.notes[0]
+
+
+def test_linear_model_covariance_matches_statsmodels():
+    current, voltage, speed = _rows()
+    design = np.column_stack([np.ones_like(current), speed, voltage])
+    model = analysis.fit_linear_model(design, current, ["1", "f", "V"])
+    reference = sm.OLS(current, design).fit()  # statsmodels OLS covariance of the parameters
+    np.testing.assert_allclose(model.covariance, reference.cov_params(), rtol=1e-8)
