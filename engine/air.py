@@ -183,11 +183,11 @@ def breakdown_field(relative_density, reference_field_v_m=REFERENCE_BREAKDOWN_FI
     from_gap = np.full(gap.shape, np.nan)
     usable = has_gap & np.isfinite(delta) & (delta > 0)
     if usable.any():
-        from_gap[usable] = gap_breakdown_field(gap[usable], delta[usable])
+        from_gap[usable] = gap_breakdown_field(gap[usable], delta[usable], check_range=False)
     return np.where(has_gap, from_gap, flat)[()]
 
 
-def gap_breakdown_field(gap_m, relative_density=1.0):
+def gap_breakdown_field(gap_m, relative_density=1.0, check_range: bool = True):
     """Uniform-field breakdown field of air across a gap at an air density.
 
     Parameters
@@ -196,6 +196,9 @@ def gap_breakdown_field(gap_m, relative_density=1.0):
         Gap [m], from 0.1 mm to 10 cm at reference air density.
     relative_density : float or array_like, optional
         Relative air density delta [-].
+    check_range : bool, optional
+        Raise outside the relation's range (default); ``False`` for readings, whose air may
+        take a checked gap a little outside it.
 
     Returns
     -------
@@ -216,7 +219,7 @@ def gap_breakdown_field(gap_m, relative_density=1.0):
     """
     from engine.sparks import uniform_field_breakdown_field  # sparks builds on this module
 
-    return uniform_field_breakdown_field(gap_m, relative_density)
+    return uniform_field_breakdown_field(gap_m, relative_density, check_range)
 
 
 def charge_density_limit(breakdown_field_v_m):

@@ -171,7 +171,7 @@ def _uniform_voltage(gap_m: np.ndarray, relative_density: np.ndarray) -> np.ndar
     return (_UNIFORM_LINEAR_KV * pressure_gap + _UNIFORM_ROOT_KV * np.sqrt(pressure_gap)) * 1e3
 
 
-def uniform_field_breakdown_field(gap_m, relative_density=1.0):
+def uniform_field_breakdown_field(gap_m, relative_density=1.0, check_range: bool = True):
     """Mean breakdown field of air over a uniform-field gap, U / d.
 
     Parameters
@@ -180,6 +180,10 @@ def uniform_field_breakdown_field(gap_m, relative_density=1.0):
         Gap [m].
     relative_density : float or array_like, optional
         Relative air density delta [-].
+    check_range : bool, optional
+        Raise for delta * d outside :data:`UNIFORM_RANGE_M` (default). ``False`` serves
+        readings: a carrier gap checked at reference density when the machine was read may
+        then meet air a little outside the range, which must not stop a whole import.
 
     Returns
     -------
@@ -191,7 +195,9 @@ def uniform_field_breakdown_field(gap_m, relative_density=1.0):
     uniform_field_breakdown_voltage : the relation and its source.
     """
     gap_m, relative_density = _arrays(gap_m, relative_density)
-    return (uniform_field_breakdown_voltage(gap_m, relative_density) / gap_m)[()]
+    if check_range:
+        _check_uniform_range(gap_m, relative_density)
+    return (_uniform_voltage(gap_m, relative_density) / gap_m)[()]
 
 
 def sphere_field_factor(gap_m, sphere_diameter_m):

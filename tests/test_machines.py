@@ -191,3 +191,21 @@ def test_derive_and_ceiling_use_the_air_gap():
     assert with_gap / without == pytest.approx(4.589 / 3.0, rel=1e-3)
     direct = machine_ceiling(machines.machines[0], 5.0).ceiling_current_a
     assert float(direct) == pytest.approx(with_gap)
+
+
+def test_readings_in_thin_air_with_a_short_gap_are_derived_not_refused():
+    # 0.15 mm is inside the relation's range at reference density; at 60 kPa it is not, and
+    # the reading must still be derived (bad air never stops an import).
+    import pandas as pd
+
+    from engine import analysis
+    from engine import columns as col
+
+    machines = parse_machines_text(EXAMPLE.replace('breakdown_field = "3.0 MV/m"',
+                                                   'air_gap = "0.15 mm"'))
+    readings = pd.DataFrame({col.MACHINE: ["gallery-twin"] * 2, col.CURRENT_A: [5e-6] * 2,
+                             col.SPEED_REV_S: [5.0] * 2, col.PRESSURE_PA: [60e3, 101.3e3],
+                             col.TEMPERATURE_K: [293.15] * 2})
+    derived = analysis.derive(readings, machines)
+    assert derived[col.CEILING_A].notna().all()
+    assert derived[col.CEILING_A].iloc[0] < derived[col.CEILING_A].iloc[1]
