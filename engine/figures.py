@@ -1159,6 +1159,6 @@ def load_line_chart(derived: pd.DataFrame | None, machine_id: str,
     figure.update_xaxes(title_text=VOLTAGE_AXIS, rangemode="tozero")
     figure.update_yaxes(title_text=CURRENT_AXIS, rangemode="tozero", secondary_y=False)
     figure.update_yaxes(title_text=POWER_AXIS, rangemode="tozero", secondary_y=True,
-                        showgrid=False)
+                        showgrid=False, tickformat=".2~g")
     _add_notes(figure, notes)
     return figure

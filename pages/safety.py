@@ -76,7 +76,8 @@ st.markdown(
   carrier with charge on both faces or collected twice per turn shows up as a collection factor
   above 1.
 - The breakdown field depends on the gap and the electrode shape; 3 MV/m holds for uniform fields
-  over centimetre gaps. Sharp edges break down earlier, so real carriers stay below the ceiling.
+  over centimetre gaps (a machine may give its air gap instead: see the voltage side below).
+  Sharp edges break down earlier, so real carriers stay below the ceiling.
 - Scaling with air density is linear (Paschen similarity at fixed gap), good at ground-level
   pressures; it is not meant for vacuum or pressurised machines.
 - Humidity's effect is measured, not modelled: a steep drop above roughly 60-70 % RH is common

@@ -52,9 +52,13 @@ if one_session[col.VOLTAGE_V].notna().any():
                 ("Largest output power", "max_output_power", "W")), strict=True):
             value, interval = load_line[f"{key}_{unit}"], load_line[f"{key}_ci_{unit}"]
             shown_unit = {"uA": "µA", "GOhm": "GΩ"}.get(unit, unit)
-            column.metric(name, "n/a" if value != value else f"{value:.3g} {shown_unit}",
+            scale = 1.0
+            if unit == "W" and value == value and abs(value) < 1:
+                shown_unit, scale = "mW", 1e3
+            column.metric(name, "n/a" if value != value else f"{value * scale:.3g} {shown_unit}",
                           help=None if interval is None else
-                          f"95 % CI {interval[0]:.3g} to {interval[1]:.3g} {shown_unit}")
+                          f"95 % CI {interval[0] * scale:.3g} to {interval[1] * scale:.3g} "
+                          f"{shown_unit}")
     for note in filter(None, load_line["load_line_notes"].split("; ")):
         st.caption(note)
     st.caption("Fit: least squares I = q·f + I0 − V / R_leak over this session's clean readings "
