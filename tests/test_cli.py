@@ -356,11 +356,7 @@ def test_spark_help_works(capsys):
     ],
 )
 def test_spark_and_air_gap_bad_input(capsys, argv, message):
-    status, out, err = run(capsys, *argv)
-    assert status == 2 and out == ""
-    lines = err.strip().splitlines()
-    assert len(lines) == 1 and lines[0].startswith("error:")
-    assert message in lines[0]
+    test_bad_input_is_one_error_line_and_status_2(capsys, argv, message)
 
 
 def test_ceiling_with_an_air_gap_has_the_higher_field(capsys):
