@@ -6,6 +6,7 @@ ceiling    one ceiling from options given as quantity strings
 machines   the machines of a machines file, with their ceilings at a speed
 evaluate   every reading of a file with its derived columns (CSV, XLSX or JSON)
 summary    the findings per machine (or machine and session)
+spark      the breakdown voltage of an air gap, or the gap for a voltage
 
 Bad input exits with status 2 and one line on stderr starting with ``error:``.
 """
@@ -22,8 +23,8 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-from engine import analysis, columns, report
-from engine.air import REFERENCE_TEMPERATURE_K, site_pressure
+from engine import analysis, columns, report, sparks
+from engine.air import REFERENCE_TEMPERATURE_K, relative_air_density, site_pressure
 from engine.arrangements import ARRANGEMENTS, COLLECTORS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, ROTATION
 from engine.ceiling import ceiling_figures
@@ -122,7 +123,7 @@ def _format_summary(figures: dict[str, object], label: str) -> str:
 
 #: Machines-file keys that `ceiling` takes as options, besides the geometry.
 _MACHINE_OPTIONS = ("carriers", "collection_factor", "arrangement", "collectors", "discs",
-                    "units", "breakdown_field")
+                    "units", "breakdown_field", "air_gap")
 
 
 def _as_option_names(message: str) -> str:
@@ -162,7 +163,7 @@ def _command_ceiling(args: argparse.Namespace) -> int:
         table["units"] = _positive_number(args.units, "--units")
     if args.discs is not None:
         table["discs"] = _whole_number(args.discs, "--discs")
-    for key in ("arrangement", "collectors", "breakdown_field"):
+    for key in ("arrangement", "collectors", "breakdown_field", "air_gap"):
         if getattr(args, key) is not None:
             table[key] = getattr(args, key)
     try:
@@ -177,6 +178,9 @@ def _command_ceiling(args: argparse.Namespace) -> int:
         print(json.dumps(figures))
     else:
         print(_format_summary(figures, f"a {args.carrier} machine"))
+        if machine.air_gap_m is not None:
+            print(f"  (breakdown field of a {args.air_gap} air gap by the uniform-field "
+                  "relation for air, not the flat 3 MV/m of centimetre gaps)")
     return 0
 
 
@@ -198,6 +202,9 @@ def _command_machines(args: argparse.Namespace) -> int:
             "units": machine.units,
             "units_rule": machine.unit_rule.text,
             "area_per_rev_m2": machine.carrier.area_per_rev_m2,
+            "breakdown_field_MV_m": float(machine.breakdown_field_at(relative_air_density(
+                machine_file.site.pressure_pa, machine_file.site.temperature_k))) / 1e6,
+            "air_gap_mm": None if machine.air_gap_m is None else machine.air_gap_m * 1e3,
         }
         if speed is not None:
             if speed[1] not in machine.carrier.speed_kinds:
@@ -331,6 +338,7 @@ def _command_summary(args: argparse.Namespace) -> int:
                               reference_rh=reference_rh / 100)
     records = [{key: _json_ready(value) for key, value in row.items()}
                for row in table.to_dict(orient="records")]
+    _add_load_lines(records, analysis.load_line_findings(derived, by_session=args.by_session))
     if args.json:
         print(json.dumps(records))
         return 0
@@ -340,6 +348,26 @@ def _command_summary(args: argparse.Namespace) -> int:
     for record in records:
         print(_format_finding(record, reference_rh))
     return 0
+
+
+#: Keys of the load line in every `summary` record (null where the readings carry no voltage).
+LOAD_LINE_KEYS = ("short_circuit_current_uA", "short_circuit_current_ci_uA",
+                  "leakage_resistance_GOhm", "leakage_resistance_ci_GOhm",
+                  "open_circuit_voltage_kV", "open_circuit_voltage_ci_kV", "max_output_power_W",
+                  "max_output_power_ci_W", "load_line_speed_rev_s", "load_line_curvature_p")
+
+
+def _add_load_lines(records: list[dict], load_lines) -> None:
+    """Put each group's load-line figures into its summary record; its notes into the notes."""
+    by_group = {(row["machine"], row["session"]): row
+                for row in load_lines.to_dict(orient="records")}
+    for record in records:
+        found = by_group.get((record["machine"], record.get("session")), {})
+        for key in LOAD_LINE_KEYS:
+            record[key] = _json_ready(found.get(key))
+        note = found.get("load_line_notes")
+        if note:
+            record["notes"] = "; ".join(text for text in (record.get("notes"), note) if text)
 
 
 def _number(value: object, pattern: str, unit: str = "", scale: float = 1.0) -> str:
@@ -373,9 +401,86 @@ def _format_finding(record: dict, reference_rh: float) -> str:
          _number(record.get("efficiency_at_reference_rh"), ".1f", "%", 100)
          + (f" (from the {record['humidity_model']})" if record.get("humidity_model") else "")),
     ]
+    if record.get("short_circuit_current_uA") is not None:
+        rows += [
+            ("short-circuit current",
+             _number(record.get("short_circuit_current_uA"), ".4g", "uA")
+             + _interval_text(record, "short_circuit_current_ci_uA")),
+            ("leakage resistance", _number(record.get("leakage_resistance_GOhm"), ".3g", "GOhm")
+             + _interval_text(record, "leakage_resistance_ci_GOhm")),
+            ("open-circuit voltage", _number(record.get("open_circuit_voltage_kV"), ".3g", "kV")
+             + _interval_text(record, "open_circuit_voltage_ci_kV")),
+            ("largest output power", _number(record.get("max_output_power_W"), ".3g", "W")
+             + _interval_text(record, "max_output_power_ci_W")),
+        ]
     if record.get("notes"):
         rows.append(("notes", record["notes"]))
     return "\n".join([title] + [f"  {name:<30} {value}" for name, value in rows])
+
+
+def _command_spark(args: argparse.Namespace) -> int:
+    if (args.gap is None) == (args.voltage is None):
+        raise InputError("give either --gap (for its breakdown voltage) or --voltage (for the "
+                         "gap that breaks down at it)")
+    if args.electrodes == "spheres" and not args.sphere_diameter:
+        raise InputError("--electrodes spheres needs --sphere-diameter, e.g. '5 cm'")
+    if args.electrodes == "uniform" and args.sphere_diameter:
+        raise InputError("--sphere-diameter is for --electrodes spheres; add it or leave the "
+                         "diameter out")
+    diameter = None
+    if args.sphere_diameter:
+        diameter = parse_quantity(args.sphere_diameter, "length", "--sphere-diameter")
+        if not diameter > 0:
+            raise InputError(f"--sphere-diameter must be above zero, got '{args.sphere_diameter}'")
+    pressure_pa, temperature_k = _air_from_options(args)
+    density = float(relative_air_density(pressure_pa, temperature_k))
+    if args.voltage is not None:
+        voltage = parse_quantity(args.voltage, "voltage", "--voltage")
+        if not voltage > 0:
+            raise InputError(f"--voltage must be above zero, got '{args.voltage}'")
+        gap = sparks.gap_for_voltage(voltage, args.electrodes, diameter, density)
+    else:
+        gap = parse_quantity(args.gap, "length", "--gap")
+        if not gap > 0:
+            raise InputError(f"--gap must be a length above zero, got '{args.gap}'")
+    result = sparks.spark_breakdown(gap, args.electrodes, diameter, density)
+    figures = {
+        "gap_mm": gap * 1e3,
+        "electrodes": args.electrodes,
+        "sphere_diameter_cm": None if diameter is None else diameter * 1e2,
+        "breakdown_voltage_kV": float(result.breakdown_voltage_v) / 1e3,
+        "breakdown_field_MV_m": float(result.mean_field_v_m) / 1e6,
+        "relative_air_density": density,
+        "pressure_kPa": pressure_pa / 1e3,
+        "temperature_C": temperature_k - 273.15,
+        "model": result.model,
+        "valid_range": result.valid_range,
+    }
+    if args.json:
+        print(json.dumps(figures))
+        return 0
+    asked = (f"Gap that breaks down at {args.voltage}" if args.voltage is not None
+             else f"Breakdown of a {args.gap} gap")
+    print("\n".join([
+        f"{asked}, {args.electrodes}"
+        + (f" of {args.sphere_diameter}" if diameter is not None else ""),
+        f"  gap                   {figures['gap_mm']:.4g} mm",
+        f"  breakdown voltage     {figures['breakdown_voltage_kV']:.3g} kV",
+        f"  mean field in the gap {figures['breakdown_field_MV_m']:.3g} MV/m",
+        f"  air                   {figures['pressure_kPa']:.4g} kPa, "
+        f"{figures['temperature_C']:.1f} degC, relative density {density:.3f}",
+        f"  model                 {result.model}",
+        f"  valid for             {result.valid_range}",
+    ]))
+    return 0
+
+
+def _interval_text(record: dict, key: str) -> str:
+    interval = record.get(key)
+    if not interval:
+        return ""
+    low, high = ("unbounded" if value is None else format(value, ".3g") for value in interval)
+    return f" (95 % CI {low} to {high})"
 
 
 def _add_reading_options(command: argparse.ArgumentParser) -> None:
@@ -430,6 +535,8 @@ def build_parser() -> argparse.ArgumentParser:
     ceiling.add_argument("--altitude", help="site altitude, used when no pressure is given")
     ceiling.add_argument("--breakdown-field", help="breakdown field of air at the reference "
                          "atmosphere (default '3.0 MV/m')")
+    ceiling.add_argument("--air-gap", help="distance from the carrier to the nearest conductor, "
+                         "e.g. '2 mm': the breakdown field then follows the gap")
     ceiling.add_argument("--json", action="store_true", help="print one JSON object")
     ceiling.set_defaults(run=_command_ceiling)
 
@@ -450,6 +557,22 @@ def build_parser() -> argparse.ArgumentParser:
                          help="relative humidity [%%] for the efficiency comparison (default 45)")
     summary.add_argument("--by-session", action="store_true", help="one finding per session")
     summary.set_defaults(run=_command_summary)
+
+    spark = commands.add_parser("spark", help="breakdown voltage of an air gap (or the gap for "
+                                "a voltage)")
+    spark.add_argument("--gap", help="spark length, e.g. '1 cm' (not with --voltage)")
+    spark.add_argument("--voltage", help="a voltage, e.g. '30 kV': prints the gap that breaks "
+                       "down at it (the inverse)")
+    spark.add_argument("--electrodes", choices=sparks.ELECTRODES, default="uniform",
+                       help="'uniform' (plates, or balls much larger than the gap; default) or "
+                       "'spheres' (two equal balls, one earthed)")
+    spark.add_argument("--sphere-diameter", help="ball diameter for --electrodes spheres, "
+                       "e.g. '5 cm'")
+    spark.add_argument("--pressure", help="air pressure, e.g. '97.2 kPa' (default 101.3 kPa)")
+    spark.add_argument("--altitude", help="site altitude, used when no pressure is given")
+    spark.add_argument("--temperature", help="air temperature, e.g. '20 degC' (default)")
+    spark.add_argument("--json", action="store_true", help="print one JSON object")
+    spark.set_defaults(run=_command_spark)
     return parser
 
 

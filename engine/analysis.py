@@ -249,6 +249,8 @@ class LinearModel:
         n - p.
     confidence : float
         Confidence level [-].
+    covariance : numpy.ndarray or None
+        Shape (p, p): s^2 (X^T X)^-1, for figures derived from several coefficients.
     """
 
     names: tuple[str, ...]
@@ -258,6 +260,7 @@ class LinearModel:
     r_squared: float
     degrees_of_freedom: int
     confidence: float = CONFIDENCE
+    covariance: np.ndarray | None = None
 
     def coefficient(self, name: str) -> tuple[float, tuple[float, float]]:
         """One coefficient and its confidence interval, by name."""
@@ -326,6 +329,7 @@ def fit_linear_model(design, y, names: Sequence[str],
         r_squared=1.0 - _dot(residual, residual) / ss_tot if ss_tot > 0 else math.nan,
         degrees_of_freedom=dof,
         confidence=confidence,
+        covariance=variance * (r_inverse @ r_inverse.T),
     )
 
 
@@ -453,7 +457,7 @@ def _machine_table(machines: Mapping[str, Machine]) -> _MachineTable:
              "accepts_linear", "units", "reference_field_v_m",
              "current_relative", "current_absolute_a", "speed_relative",
              "speed_absolute_rev_s", "speed_absolute_m_s", "field_relative",
-             "area_relative_rotation", "area_relative_linear")
+             "area_relative_rotation", "area_relative_linear", "air_gap_m")
     values = {name: np.full(len(ids) + 1, np.nan) for name in names}
     values["accepts_rotation"] = np.zeros(len(ids) + 1, dtype=bool)
     values["accepts_linear"] = np.zeros(len(ids) + 1, dtype=bool)
@@ -471,6 +475,8 @@ def _machine_table(machines: Mapping[str, Machine]) -> _MachineTable:
         values["accepts_linear"][index] = LINEAR in carrier.speed_kinds
         values["units"][index] = machine.units
         values["reference_field_v_m"][index] = machine.reference_field_v_m
+        values["air_gap_m"][index] = (math.nan if machine.air_gap_m is None
+                                      else machine.air_gap_m)
 
         current = tolerances.get("current")
         values["current_relative"][index] = _relative_part(current)
@@ -691,7 +697,8 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         delta = relative_air_density(pressure, temperature)
         sigma = charge_density_limit(breakdown_field(delta, table.take("reference_field_v_m",
-                                                                        codes)))
+                                                                        codes),
+                                                     table.take("air_gap_m", codes)))
         units = table.take("units", codes)
         ceiling = ceiling_current(sigma, swept, units)
         efficiency = _divide(current, ceiling)
@@ -965,9 +972,7 @@ def _group_findings(machine_id: str, session: str | None, machine: Machine | Non
 def _speed_findings(row: dict, notes: list[str], machine: Machine, used: np.ndarray,
                     data: Mapping[str, np.ndarray]) -> None:
     current = data["current"][used]
-    reference_field = machine.reference_field_v_m
-    sigma = float(np.mean(charge_density_limit(breakdown_field(data["delta"][used],
-                                                                 reference_field))))
+    sigma = float(np.mean(charge_density_limit(machine.breakdown_field_at(data["delta"][used]))))
     row["charge_density_limit_uC_m2"] = sigma * 1e6
     area = machine.carrier.area_per_rev_m2
     if area is not None:
@@ -1325,3 +1330,325 @@ def _verdict(session_a: str, session_b: str, raw: float, raw_ci, adjusted: float
     direction = "more" if value > 0 else "less"
     return (f"The '{session_b}' session delivers {shown} ± {shown_half} % points {direction} "
             f"efficiency than '{session_a}' {condition} (± is the 95 % interval)." + caution)
+
+
+
+# --- load line: current against terminal voltage ---------------------------------------------
+
+#: Voltages must span at least this share of the largest terminal voltage for a load line [-].
+MIN_VOLTAGE_SPAN_FRACTION = 0.2
+#: Significance level of the curvature test of the load line [-].
+CURVATURE_ALPHA = 0.05
+
+LOAD_LINE_COLUMNS = (
+    "machine", "session", "load_line_readings", "load_line_speed_rev_s",
+    "short_circuit_current_uA", "short_circuit_current_ci_uA", "leakage_resistance_GOhm",
+    "leakage_resistance_ci_GOhm", "open_circuit_voltage_kV", "open_circuit_voltage_ci_kV",
+    "max_output_power_W", "max_output_power_ci_W", "load_line_curvature_p", "load_line_notes",
+)
+"""Columns of :func:`load_line_findings`, in order."""
+
+
+@dataclass(frozen=True)
+class LoadLine:
+    """The load line I = q_rev f + I_0 - V / R_leak of one machine and session (SI units).
+
+    Attributes
+    ----------
+    readings : int
+        Readings used.
+    reference_speed_rev_s : float
+        Median speed of those readings [rev/s] (NaN where no speed is known); the
+        short-circuit current and the open-circuit voltage are given at this speed.
+    short_circuit_current_a, short_circuit_current_ci : float, tuple
+        Current at zero terminal voltage [A], I_sc = q_rev f_med + I_0, with its interval.
+    voltage_slope_a_v : float
+        dI/dV = -1 / R_leak [A/V].
+    leakage_resistance_ohm, leakage_resistance_ci : float, tuple
+        R_leak [Ohm] and its interval (the slope's interval inverted; an upper limit of inf
+        when that interval reaches zero). NaN where the current does not fall with voltage.
+    open_circuit_voltage_v, open_circuit_voltage_ci : float, tuple
+        V_oc = I_sc R_leak [V], where the line reaches zero current, with Fieller's interval
+        for a ratio (unbounded, inf, when the slope is not significant).
+    max_output_power_w, max_output_power_ci : float, tuple
+        Largest V I along the line, I_sc V_oc / 4 [W], at V_oc / 2, with a delta-method
+        interval.
+    curvature_p : float
+        p-value of a quadratic term in V added to the line (NaN when too few readings).
+    coefficients : dict of str to float
+        The fitted ``intercept`` [A], ``speed`` [C] (q_rev, 0 when speed is constant) and
+        ``voltage`` [A/V].
+    notes : tuple of str
+        What the figures cannot say.
+    """
+
+    readings: int
+    reference_speed_rev_s: float
+    short_circuit_current_a: float
+    short_circuit_current_ci: tuple[float, float]
+    voltage_slope_a_v: float
+    leakage_resistance_ohm: float
+    leakage_resistance_ci: tuple[float, float]
+    open_circuit_voltage_v: float
+    open_circuit_voltage_ci: tuple[float, float]
+    max_output_power_w: float
+    max_output_power_ci: tuple[float, float]
+    curvature_p: float
+    coefficients: dict[str, float]
+    notes: tuple[str, ...] = ()
+
+
+def fieller_interval(numerator: float, denominator: float, var_numerator: float,
+                     var_denominator: float, covariance: float,
+                     t_value: float) -> tuple[float, float]:
+    """Fieller's confidence interval for a ratio of two estimates, numerator / denominator.
+
+    Parameters
+    ----------
+    numerator, denominator : float
+        Estimates a and b.
+    var_numerator, var_denominator, covariance : float
+        var(a), var(b), cov(a, b).
+    t_value : float
+        Critical value of Student's t for the confidence level.
+
+    Returns
+    -------
+    tuple of float
+        The set of theta with (a - theta b)^2 <= t^2 var(a - theta b); (-inf, inf) when b is not
+        significantly different from zero (b^2 <= t^2 var(b)), where the set is unbounded.
+
+    References
+    ----------
+    E. C. Fieller, Some problems in interval estimation, J. R. Stat. Soc. B 16 (1954) 175-185.
+    """
+    t2 = t_value**2
+    quadratic = denominator**2 - t2 * var_denominator
+    if not quadratic > 0:
+        return (-math.inf, math.inf)
+    linear = numerator * denominator - t2 * covariance
+    constant = numerator**2 - t2 * var_numerator
+    discriminant = max(linear**2 - quadratic * constant, 0.0)
+    root = math.sqrt(discriminant)
+    return ((linear - root) / quadratic, (linear + root) / quadratic)
+
+
+def fit_load_line(current_a, voltage_v, speed_rev_s=None,
+                  confidence: float = CONFIDENCE) -> LoadLine:
+    """Least-squares load line I = q_rev f + I_0 - V / R_leak with its derived figures.
+
+    Parameters
+    ----------
+    current_a : array_like
+        Measured currents [A].
+    voltage_v : array_like
+        Terminal voltages at the same readings [V].
+    speed_rev_s : array_like, optional
+        Speeds [rev/s]. When they vary, speed is a second regressor; when they are constant
+        (or not given), q_rev f + I_0 is one constant.
+    confidence : float, optional
+        Confidence level [-], default 0.95.
+
+    Returns
+    -------
+    LoadLine
+        Every figure NaN (and its interval None-like NaN pair) with a note where the data
+        cannot give it: fewer readings than terms plus one, voltages spanning less than
+        :data:`MIN_VOLTAGE_SPAN_FRACTION` of the largest, or a current that does not fall
+        with voltage (no finite open-circuit voltage).
+
+    Notes
+    -----
+    OLS with design [1, f, V] (or [1, V]); cov(b) = s^2 (X^T X)^-1. At the median speed
+    f_m: I_sc = b_0 + b_f f_m, its variance g^T cov g with g = (1, f_m, 0); R_leak = -1 / b_V,
+    whose interval inverts the t interval of b_V; V_oc = I_sc / (-b_V) with Fieller's
+    interval (:func:`fieller_interval`); P_max = I_sc^2 / (4 (-b_V)) = I_sc V_oc / 4 with
+    the delta method, var = J cov J^T for J = dP/d(I_sc, -b_V). Curvature: the t test of a
+    term (V / V_max)^2 added to the design, significant below p = 0.05.
+
+    References
+    ----------
+    Montgomery, Peck and Vining, Introduction to Linear Regression Analysis, 5th ed., 2012,
+    chapter 3 (OLS and its covariance); Fieller (1954) for the ratio; JCGM 100:2008, clause
+    5.1 (first-order propagation, the delta method).
+    """
+    from scipy import stats  # imported when first needed
+
+    current = np.asarray(current_a, dtype=float)
+    voltage = np.asarray(voltage_v, dtype=float)
+    speed = (np.full(current.shape, np.nan) if speed_rev_s is None
+             else np.asarray(speed_rev_s, dtype=float))
+    nan_pair = (math.nan, math.nan)
+    finite_speed = speed[np.isfinite(speed)]
+    reference_speed = float(np.median(finite_speed)) if finite_speed.size else math.nan
+    empty = dict(readings=int(current.size), reference_speed_rev_s=reference_speed,
+                 short_circuit_current_a=math.nan, short_circuit_current_ci=nan_pair,
+                 voltage_slope_a_v=math.nan, leakage_resistance_ohm=math.nan,
+                 leakage_resistance_ci=nan_pair, open_circuit_voltage_v=math.nan,
+                 open_circuit_voltage_ci=nan_pair, max_output_power_w=math.nan,
+                 max_output_power_ci=nan_pair, curvature_p=math.nan, coefficients={})
+    with_speed = finite_speed.size == current.size and _has_spread(speed)
+    terms = 3 if with_speed else 2
+    if current.size <= terms:
+        return LoadLine(**empty, notes=(f"load line: {current.size} readings with a terminal "
+                                        f"voltage; the fit needs at least {terms + 1}",))
+    largest = float(np.max(np.abs(voltage)))
+    span = float(np.ptp(voltage))
+    if not (largest > 0 and span >= MIN_VOLTAGE_SPAN_FRACTION * largest):
+        return LoadLine(**empty, notes=(
+            f"load line: the terminal voltages span too little ({voltage.min() / 1e3:.3g} to "
+            f"{voltage.max() / 1e3:.3g} kV; at least {MIN_VOLTAGE_SPAN_FRACTION * 100:.0f} % of "
+            "the largest is needed): charge the terminals to several voltages",))
+    names = ["intercept"] + (["speed"] if with_speed else []) + ["voltage"]
+    design = np.column_stack([np.ones_like(current)] + ([speed] if with_speed else [])
+                             + [voltage])
+    try:
+        model = fit_linear_model(design, current, names, confidence)
+    except InputError:
+        return LoadLine(**empty, notes=("load line: speed and terminal voltage move together in "
+                                        "these readings, so their effects cannot be told apart",))
+    coefficients, covariance = model.coefficients, model.covariance
+    t_value = float(t_critical(model.degrees_of_freedom, confidence))
+    gradient = np.array([1.0, reference_speed, 0.0] if with_speed else [1.0, 0.0])
+    short = float(gradient @ coefficients)
+    short_var = float(gradient @ covariance @ gradient)
+    short_half = t_value * math.sqrt(short_var)
+    slope = float(coefficients[-1])
+    slope_var = float(covariance[-1, -1])
+    slope_ci = (slope - t_value * math.sqrt(slope_var), slope + t_value * math.sqrt(slope_var))
+    notes: list[str] = []
+    values = dict(empty, short_circuit_current_a=short,
+                  short_circuit_current_ci=(short - short_half, short + short_half),
+                  voltage_slope_a_v=slope,
+                  coefficients={"intercept": float(coefficients[0]),
+                                "speed": float(coefficients[1]) if with_speed else 0.0,
+                                "voltage": slope})
+    # A fall over the whole span below rounding of the currents is no fall at all.
+    flat = abs(slope) * span <= 1e-9 * max(float(np.max(np.abs(current))), 1e-300)
+    if slope < 0 and not flat:
+        falling = -slope  # 1 / R_leak
+        values["leakage_resistance_ohm"] = 1.0 / falling
+        values["leakage_resistance_ci"] = (-1.0 / slope_ci[0],
+                                           -1.0 / slope_ci[1] if slope_ci[1] < 0 else math.inf)
+        values["open_circuit_voltage_v"] = short / falling
+        # cov(I_sc, -b_V) = -g^T cov[:, V]
+        cross = -float(gradient @ covariance[:, -1])
+        values["open_circuit_voltage_ci"] = fieller_interval(short, falling, short_var,
+                                                             slope_var, cross, t_value)
+        power = short**2 / (4.0 * falling)
+        jacobian = np.array([short / (2.0 * falling), -(short**2) / (4.0 * falling**2)])
+        joint = np.array([[short_var, cross], [cross, slope_var]])
+        power_half = t_value * math.sqrt(float(jacobian @ joint @ jacobian))
+        values["max_output_power_w"] = power
+        values["max_output_power_ci"] = (power - power_half, power + power_half)
+        if slope_ci[1] >= 0:
+            notes.append("load line: the fall of current with voltage is not significant "
+                         "(its 95 % interval reaches zero): the leakage resistance and the "
+                         "open-circuit voltage have no finite upper limit")
+        if short <= 0:
+            notes.append("load line: the short-circuit current is not above zero")
+    else:
+        notes.append("load line: the current does not fall with terminal voltage (slope "
+                     f"{slope * 1e9:+.3g} uA/kV): no finite open-circuit voltage, leakage "
+                     "resistance or output-power maximum")
+    if current.size > terms + 1:
+        curved = np.column_stack([design, (voltage / largest) ** 2])
+        try:
+            bent = fit_linear_model(curved, current, [*names, "voltage_squared"], confidence)
+        except InputError:
+            bent = None
+        if bent is not None and bent.standard_errors[-1] > 0:
+            statistic = bent.coefficients[-1] / bent.standard_errors[-1]
+            p_value = float(2.0 * stats.t.sf(abs(statistic), bent.degrees_of_freedom))
+            values["curvature_p"] = p_value
+            if p_value < CURVATURE_ALPHA:
+                notes.append(f"load line: the current bends away from a straight line (quadratic "
+                             f"term p = {p_value:.2g}), as corona above some voltage does; the "
+                             "straight-line figures are approximate")
+    return LoadLine(**values, notes=tuple(notes))
+
+
+def load_line_findings(derived: pd.DataFrame, by_session: bool = True) -> pd.DataFrame:
+    """The load line of every machine (or machine and session) whose readings carry a voltage.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings (``current_a``, ``voltage_v``, ``speed_rev_s``, ``flags``; SI units), for
+        example the output of :func:`derive`.
+    by_session : bool, optional
+        One row per machine and session (default) or one per machine.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns :data:`LOAD_LINE_COLUMNS`, one row per group with at least one reading, in
+        order of first appearance; ``session`` is None when not by session. Display units: uA,
+        GOhm, kV, W; intervals are 95 % (low, high) tuples, with inf where unbounded, or None
+        where the figure is NaN. Figures are NaN, with no note, for a group without voltages.
+        Readings with flags are left out, except those flagged only ``above_ceiling``.
+
+    See Also
+    --------
+    fit_load_line : the model and its intervals.
+    """
+    rows: list[dict[str, object]] = []
+    if derived is None or len(derived) == 0:
+        return pd.DataFrame({name: pd.Series(dtype=object) for name in LOAD_LINE_COLUMNS})
+    count = len(derived)
+
+    def floats(name: str) -> np.ndarray:
+        return (derived[name].to_numpy(dtype=float) if name in derived
+                else np.full(count, np.nan))
+
+    current, voltage, speed = floats(col.CURRENT_A), floats(col.VOLTAGE_V), floats(
+        col.SPEED_REV_S)
+    flags = _clean_flags(derived).to_numpy(dtype=object)
+    usable = ((flags == "") | (flags == "above_ceiling")) & np.isfinite(current) & np.isfinite(
+        voltage)
+    machines = derived[col.MACHINE].fillna("").astype(str)
+    keys = [machines]
+    if by_session:
+        keys.append(derived[col.SESSION].fillna("").astype(str) if col.SESSION in derived
+                    else pd.Series("", index=derived.index))
+    codes, uniques = pd.factorize(pd.MultiIndex.from_arrays(keys) if by_session
+                                  else keys[0])
+    for index, positions in enumerate(_group_positions(codes, len(uniques))):
+        label = uniques[index]
+        machine_id, session = (label if by_session else (label, None))
+        used = positions[usable[positions]]
+        row: dict[str, object] = {name: math.nan for name in LOAD_LINE_COLUMNS}
+        row.update(machine=machine_id, session=session, load_line_readings=int(used.size),
+                   load_line_notes="")
+        for name in LOAD_LINE_COLUMNS:
+            if name.endswith("_ci_uA") or "_ci_" in name:
+                row[name] = None
+        if used.size:
+            fit = fit_load_line(current[used], voltage[used], speed[used])
+            row.update(_load_line_row(fit))
+        rows.append(row)
+    return pd.DataFrame(rows, columns=list(LOAD_LINE_COLUMNS))
+
+
+def _interval_or_none(interval: tuple[float, float], factor: float):
+    if any(math.isnan(value) for value in interval):
+        return None
+    low, high = interval[0] * factor, interval[1] * factor
+    return (min(low, high), max(low, high))
+
+
+def _load_line_row(fit: LoadLine) -> dict[str, object]:
+    """A :class:`LoadLine` in the display units of :data:`LOAD_LINE_COLUMNS`."""
+    return {
+        "load_line_speed_rev_s": fit.reference_speed_rev_s,
+        "short_circuit_current_uA": fit.short_circuit_current_a * 1e6,
+        "short_circuit_current_ci_uA": _interval_or_none(fit.short_circuit_current_ci, 1e6),
+        "leakage_resistance_GOhm": fit.leakage_resistance_ohm / 1e9,
+        "leakage_resistance_ci_GOhm": _interval_or_none(fit.leakage_resistance_ci, 1e-9),
+        "open_circuit_voltage_kV": fit.open_circuit_voltage_v / 1e3,
+        "open_circuit_voltage_ci_kV": _interval_or_none(fit.open_circuit_voltage_ci, 1e-3),
+        "max_output_power_W": fit.max_output_power_w,
+        "max_output_power_ci_W": _interval_or_none(fit.max_output_power_ci, 1.0),
+        "load_line_curvature_p": fit.curvature_p,
+        "load_line_notes": "; ".join(fit.notes),
+    }

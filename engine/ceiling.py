@@ -17,7 +17,6 @@ import numpy as np
 from engine.air import (
     REFERENCE_PRESSURE_PA,
     REFERENCE_TEMPERATURE_K,
-    breakdown_field,
     charge_density_limit,
     relative_air_density,
 )
@@ -108,7 +107,7 @@ def machine_ceiling(machine: Machine, speed, speed_kind: str = ROTATION,
         When the speed kind does not suit the carrier (a disc given m/s).
     """
     delta = relative_air_density(pressure_pa, temperature_k)
-    field_v_m = breakdown_field(delta, machine.reference_field_v_m)
+    field_v_m = machine.breakdown_field_at(delta)
     sigma = charge_density_limit(field_v_m)
     swept = machine.carrier.swept_area_per_s_m2(speed, speed_kind)
     current = ceiling_current(sigma, swept, machine.units)
@@ -169,8 +168,7 @@ def ceiling_figures(machine: Machine, speed: float, speed_kind: str = ROTATION,
 
 def _limit_density(machine: Machine, pressure_pa, temperature_k):
     return charge_density_limit(
-        breakdown_field(relative_air_density(pressure_pa, temperature_k),
-                        machine.reference_field_v_m))
+        machine.breakdown_field_at(relative_air_density(pressure_pa, temperature_k)))
 
 
 def speed_for_current(machine: Machine, target_current_a: float, speed_kind: str = ROTATION,

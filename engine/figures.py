@@ -1150,3 +1150,113 @@ def arrangement_diagram(machine: Machine) -> go.Figure:
     figure.update_xaxes(visible=False, range=[-0.8, width - 0.2])
     figure.update_yaxes(visible=False, range=[-2.6, 1.7])
     return figure
+
+
+# --- the voltage side ------------------------------------------------------------------------
+
+VOLTAGE_AXIS = "Terminal voltage [kV]"
+POWER_AXIS = "Output power [W]"
+
+
+def load_line_chart(derived: pd.DataFrame | None, machine_id: str,
+                    load_line: Mapping[str, object] | None = None,
+                    machine: Machine | None = None, session: str | None = None,
+                    colours: Mapping[str, str] | None = None,
+                    label: str | None = None) -> go.Figure:
+    """Current against terminal voltage for one machine (and session), with its load line.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with derived columns (SI units), ``voltage_v`` among them.
+    machine_id : str
+        The machine to show.
+    load_line : mapping, optional
+        One row of :func:`engine.analysis.load_line_findings` (display units): the fitted line
+        I = I_sc - V / R_leak is drawn from zero to the open-circuit voltage (or to the largest
+        measured voltage when the line does not reach zero current).
+    machine : Machine, optional
+        For the ceiling at the load line's median speed, drawn dashed.
+    session : str, optional
+        Show only this session.
+    colours : mapping of str to str, optional
+        Colour per machine id.
+    label : str, optional
+        Machine label; default the id.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Current [uA] against terminal voltage [kV]; the output power V I [W] along the line on
+        a second axis. Flagged readings are grey x markers.
+    """
+    label = _escape(label or machine_id)
+    title = f"Load line: {label}" + (f", {_escape(session)}" if session else "")
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    rows = (_machine_column(derived) == str(machine_id)) & _session_rows(derived, session or "")
+    frame = derived[rows]
+    voltage_kv = to_display(_floats(frame, col.VOLTAGE_V), "voltage", "kV")
+    current_ua = _micro_amp(_floats(frame, col.CURRENT_A))
+    with_voltage = np.isfinite(voltage_kv) & np.isfinite(current_ua)
+    if not with_voltage.any():
+        return _empty_figure(title, "No readings with a terminal voltage")
+    flagged = _flagged(frame)
+    clean, marked = with_voltage & ~flagged, with_voltage & flagged
+    colour = _colours_for(colours, [str(machine_id)])[str(machine_id)]
+    figure = make_subplots(specs=[[{"secondary_y": True}]])
+    figure.add_trace(_scatter(
+        int(clean.sum()), x=voltage_kv[clean], y=current_ua[clean], mode="markers",
+        name="readings", marker={"color": colour, "size": 6, "opacity": 0.8},
+        hovertemplate="Voltage %{x:.3g} kV<br>Current %{y:.3g} µA<extra></extra>"),
+        secondary_y=False)
+    if marked.any():
+        figure.add_trace(_flagged_trace(frame[marked], voltage_kv[marked], current_ua[marked],
+                                        {}, "Voltage %{x:.3g} kV", "Current %{y:.3g} µA",
+                                        label=label), secondary_y=False)
+    notes: list[str] = []
+    line = dict(load_line or {})
+    short_ua = _number(line.get("short_circuit_current_uA"))
+    resistance = _number(line.get("leakage_resistance_GOhm"))
+    open_kv = _number(line.get("open_circuit_voltage_kV"))
+    top_kv = float(np.nanmax(voltage_kv[with_voltage]))
+    if math.isfinite(short_ua):
+        end_kv = open_kv if math.isfinite(open_kv) and open_kv > 0 else top_kv
+        line_kv = np.linspace(0.0, end_kv, 101)
+        # I [uA] = I_sc [uA] - V [kV] / R [GOhm]
+        line_ua = short_ua - (line_kv / resistance if math.isfinite(resistance) else 0.0)
+        figure.add_trace(go.Scatter(
+            x=line_kv, y=line_ua, mode="lines", name="fitted load line",
+            line={"color": colour, "width": 2},
+            hovertemplate=(f"Fit: I_sc = {short_ua:.3g} µA, R_leak = {resistance:.3g} GΩ"
+                           "<br>Voltage %{x:.3g} kV<br>Current %{y:.3g} µA<extra></extra>")),
+            secondary_y=False)
+        figure.add_trace(go.Scatter(
+            x=line_kv, y=line_kv * 1e3 * line_ua * 1e-6, mode="lines", name="output power",
+            line={"color": PALETTE[3], "dash": "dot", "width": 1.5},
+            hovertemplate="Voltage %{x:.3g} kV<br>Power %{y:.3g} W<extra></extra>"),
+            secondary_y=True)
+        if math.isfinite(open_kv) and open_kv > 0:
+            notes.append(f"Open-circuit voltage {open_kv:.3g} kV, short-circuit current "
+                         f"{short_ua:.3g} µA, leakage {resistance:.3g} GΩ")
+    if line.get("load_line_notes"):
+        notes.extend(_escape(text) for text in str(line["load_line_notes"]).split("; "))
+    speed = _number(line.get("load_line_speed_rev_s"))
+    if machine is not None and math.isfinite(speed):
+        ceiling = _ceiling_at_density(machine, speed, _median_density(frame[with_voltage]))
+        if ceiling is not None:
+            ceiling_ua = float(_micro_amp(ceiling))
+            end = max(top_kv, open_kv if math.isfinite(open_kv) else 0.0)
+            figure.add_trace(go.Scatter(
+                x=[0.0, end], y=[ceiling_ua, ceiling_ua], mode="lines",
+                name=f"ceiling at {float(_rpm(speed)):.0f} rpm",
+                line={"color": colour, "dash": "dash"},
+                hovertemplate="Ceiling %{y:.3g} µA<extra></extra>"), secondary_y=False)
+    figure.update_layout(title=title, template="plotly_white", hovermode="closest", height=500,
+                         legend={"orientation": "h", "x": 0, "y": -0.22, "yanchor": "top"})
+    figure.update_xaxes(title_text=VOLTAGE_AXIS, rangemode="tozero")
+    figure.update_yaxes(title_text=CURRENT_AXIS, rangemode="tozero", secondary_y=False)
+    figure.update_yaxes(title_text=POWER_AXIS, rangemode="tozero", secondary_y=True,
+                        showgrid=False, tickformat=".2~g")
+    _add_notes(figure, notes)
+    return figure

@@ -14,7 +14,7 @@ A machines file holds an optional ``[site]`` table and one ``[[machine]]`` table
     sector_fill = 0.55
     arrangement = "twin-disc"     # or carriers = 2 and collection_factor = 1.0 (N x k units)
     collectors = "fixed"
-    breakdown_field = "3.0 MV/m"
+    breakdown_field = "3.0 MV/m"  # or air_gap = "2 mm": the field then follows the gap
 
     [machine.tolerance]
     outer_diameter = "1 mm"
@@ -40,7 +40,13 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from engine.air import REFERENCE_BREAKDOWN_FIELD_V_M, REFERENCE_TEMPERATURE_K, site_pressure
+from engine.air import (
+    REFERENCE_BREAKDOWN_FIELD_V_M,
+    REFERENCE_TEMPERATURE_K,
+    breakdown_field,
+    gap_breakdown_field,
+    site_pressure,
+)
 from engine.arrangements import (
     ARRANGEMENTS,
     COLLECTORS,
@@ -67,7 +73,7 @@ MAX_MACHINES_FILE_BYTES = 2_000_000
 MAX_MACHINES = 1_000
 
 _COMMON_KEYS = ("id", "label", "carrier", "carriers", "collection_factor", "breakdown_field",
-                "material", "notes", "tolerance")
+                "material", "notes", "tolerance", "air_gap")
 #: Keys that only a disc machine takes: how its discs and collectors are arranged.
 _DISC_KEYS = ("arrangement", "collectors", "discs", "units")
 _TOLERANCE_EXTRA_KINDS = {
@@ -108,6 +114,13 @@ class Machine:
         Free text, optional.
     spec : mapping
         The geometry keys as the user wrote them ("46 cm"), kept for writing the file back.
+    air_gap_m : float or None
+        Distance from the carrier to the nearest conductor at the inductors or neutralisers
+        [m]; when given, the breakdown field follows the uniform-field relation at that gap
+        and the air density (:func:`engine.air.gap_breakdown_field`) instead of
+        ``reference_field_v_m``.
+    air_gap_text : str
+        ``air_gap`` as the user wrote it.
     """
 
     id: str
@@ -126,6 +139,12 @@ class Machine:
     collectors: str = ""
     discs: int | None = None
     units_given: float | None = None
+    air_gap_m: float | None = None
+    air_gap_text: str = ""
+
+    def breakdown_field_at(self, relative_density):
+        """Breakdown field at the carrier [V/m] at relative air densities (array_like)."""
+        return breakdown_field(relative_density, self.reference_field_v_m, self.air_gap_m)
 
     @property
     def kind(self) -> str:
@@ -176,6 +195,8 @@ class Machine:
             table["collection_factor"] = self.collection_factor
         if self.breakdown_field_text:
             table["breakdown_field"] = self.breakdown_field_text
+        if self.air_gap_text:
+            table["air_gap"] = self.air_gap_text
         if self.material:
             table["material"] = self.material
         if self.notes:
@@ -303,6 +324,10 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         reference_field = parse_quantity(field_text, "electric_field", f"{where}: breakdown_field")
         if not reference_field > 0:
             raise InputError(f"{where}: breakdown_field must be positive")
+    air_gap_text, air_gap = _air_gap(table, where)
+    if air_gap is not None and field_text:
+        raise InputError(f"{where}: give either breakdown_field or air_gap, not both; choose "
+                         "one (with air_gap the breakdown field follows the gap)")
 
     tolerance_table = table.get("tolerance", {})
     if not isinstance(tolerance_table, Mapping):
@@ -343,6 +368,8 @@ def machine_from_table(table: Mapping[str, object], where: str = "machine") -> M
         collectors=collectors,
         discs=discs,
         units_given=units_given,
+        air_gap_m=air_gap,
+        air_gap_text=air_gap_text,
     )
 
 
@@ -397,6 +424,23 @@ def _disc_arrangement(table: Mapping[str, object], carrier: Carrier, where: str
         except InputError as error:
             raise InputError(f"{where}: {error}") from None
     return arrangement, str(collectors) if arrangement else "", discs, units_given
+
+
+def _air_gap(table: Mapping[str, object], where: str) -> tuple[str, float | None]:
+    """The ``air_gap`` key: its text and its length [m], checked against the relation's range."""
+    text = table.get("air_gap", "")
+    if not isinstance(text, str):
+        raise InputError(f"{where}: air_gap needs a unit in quotes, e.g. \"2 mm\"")
+    if not text:
+        return "", None
+    gap = parse_quantity(text, "length", f"{where}: air_gap")
+    if not gap > 0:
+        raise InputError(f"{where}: air_gap must be a length above zero, e.g. \"2 mm\"")
+    try:
+        gap_breakdown_field(gap)
+    except InputError as error:
+        raise InputError(f"{where}: air_gap: {error}") from None
+    return text, gap
 
 
 def _check_speed_tolerance_kind(carrier: Carrier, text: str, where: str) -> None:

@@ -42,6 +42,9 @@ OPTIONAL_OUTPUT_COLUMNS: tuple[str, ...] = ("session", "note")
 #: file (to trace a flag back), the belt speed, the air, and the achieved surface density.
 TRACE_OUTPUT_COLUMNS: tuple[str, ...] = ("row", "belt_speed_m_s", "temperature_C",
                                          "pressure_kPa", "surface_density_uC_m2")
+#: The voltage side, appended last to every table: terminal voltage [kV] and the output power
+#: V I [W] of each reading (empty where the reading has no voltage).
+VOLTAGE_OUTPUT_COLUMNS: tuple[str, ...] = ("voltage_kV", "output_power_W")
 #: Leading characters that make a spreadsheet read a cell as a formula (OWASP, CSV injection).
 FORMULA_PREFIXES: tuple[str, ...] = ("=", "+", "-", "@", "\t", "\r")
 
@@ -130,13 +133,19 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
     pandas.DataFrame
         Columns :data:`OUTPUT_COLUMNS` in that order, then ``session`` and ``note`` and then
         :data:`TRACE_OUTPUT_COLUMNS` (source row, belt speed [m/s], temperature [degC],
-        pressure [kPa], surface density [uC/m^2]) when the input has them;
+        pressure [kPa], surface density [uC/m^2]) when the input has them, and last, always,
+        :data:`VOLTAGE_OUTPUT_COLUMNS` (terminal voltage [kV], output power V I [W]);
         rows in input order, index 0..n-1. Units: time as ISO text ("" when
         unknown), speed [rev/s], currents [uA], efficiency and its uncertainty as fractions,
         charge per revolution [nC], relative humidity [%], absolute humidity [g/m^3], dew
         point [degC], relative air density [-], flags as "code;code" ("" when clean).
     """
     times = derived[col.TIME] if col.TIME in derived else pd.Series(pd.NaT, index=derived.index)
+    with np.errstate(over="ignore", invalid="ignore"):  # absurd input gives inf, not a warning
+        return _output_columns(derived, times)
+
+
+def _output_columns(derived: pd.DataFrame, times: pd.Series) -> pd.DataFrame:
     out = {
         "machine": _texts(derived, col.MACHINE),
         "time": iso_text(times).to_numpy(dtype=object),  # ISO text, "" when unknown
@@ -166,6 +175,9 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
             ("surface_density_uC_m2", col.SURFACE_DENSITY_C_M2, lambda values: values * 1e6)):
         if column in derived:
             out[name] = convert(_floats(derived, column))
+    voltage_v = _floats(derived, col.VOLTAGE_V)
+    out["voltage_kV"] = to_display(voltage_v, "voltage", "kV")
+    out["output_power_W"] = voltage_v * _floats(derived, col.CURRENT_A)
     return pd.DataFrame(out, index=pd.RangeIndex(len(derived)))
 
 
@@ -463,7 +475,8 @@ def _machines_table(machines: Mapping[str, Machine]) -> str:
             _esc(machine.id), _esc(machine.label), _esc(machine.kind), _esc(geometry),
             _esc(f"{machine.units:g} ({machine.unit_rule.text})"),
             _fmt(to_display(area, "area", "cm^2"), 4) if area is not None else "– (linear speed)",
-            _fmt(to_display(machine.reference_field_v_m, "electric_field", "MV/m")),
+            _fmt(to_display(machine.breakdown_field_at(1.0), "electric_field", "MV/m"))
+            + (f" (air gap {_esc(machine.air_gap_text)})" if machine.air_gap_text else ""),
             _esc(machine.material), _esc(machine.notes),
         ])
     return _table(header, rows)

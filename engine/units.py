@@ -65,6 +65,7 @@ KINDS: dict[str, Kind] = {
     "electric_field": Kind("an electric field", "V/m", "3 MV/m"),
     "current": Kind("a current", "A", "12 uA"),
     "voltage": Kind("a voltage", "V", "80 kV"),
+    "capacitance": Kind("a capacitance", "F", "200 pF"),
     "linear_speed": Kind("a linear speed", "m/s", "6 m/s"),
     "duration": Kind("a duration", "s", "5 min"),
     "fraction": Kind("a plain number or a percentage", "", "2 %"),

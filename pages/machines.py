@@ -3,6 +3,7 @@
 import pandas as pd
 import streamlit as st
 
+from engine.air import relative_air_density
 from engine.carriers import SPEC_KEYS
 from engine.ceiling import ceiling_figures
 from engine.errors import InputError
@@ -80,6 +81,11 @@ with edit_tab:
     breakdown_text = field_column.text_input(
         "Breakdown field of air", current.breakdown_field_text if current else "",
         key=f"machines-field-{chosen}", placeholder="3.0 MV/m (the default)")
+    gap_text = field_column.text_input(
+        "or air gap to the nearest conductor", current.air_gap_text if current else "",
+        key=f"machines-air-gap-{chosen}", placeholder="e.g. 2 mm",
+        help="Distance from the carrier to the inductors or neutralisers: the breakdown field "
+             "then follows the gap (about 4.6 MV/m at 1 mm) instead of the flat 3 MV/m.")
     notes_text = notes_column.text_input("Notes", current.notes if current else "",
                                          key=f"machines-notes-{chosen}", max_chars=500)
     with st.expander("Tolerances (optional, one standard uncertainty)"):
@@ -96,6 +102,8 @@ with edit_tab:
                 tolerance[key] = text.strip()
     if breakdown_text.strip():
         table["breakdown_field"] = breakdown_text.strip()
+    if gap_text.strip():
+        table["air_gap"] = gap_text.strip()
     if notes_text.strip():
         table["notes"] = notes_text.strip()
     if label.strip():
@@ -124,6 +132,14 @@ with edit_tab:
             figures_column.caption("{:g} x {:.3g} µA, the ceiling of one carrier's charged "
                                    "area (one unit)".format(figures["units"],
                                                            figures["single_carrier_ceiling_uA"]))
+        field_mv_m = float(machine.breakdown_field_at(
+            relative_air_density(site.pressure_pa, site.temperature_k))) / 1e6
+        figures_column.metric("Breakdown field at the site", f"{field_mv_m:.3g} MV/m")
+        if machine.air_gap_m is not None:
+            figures_column.caption(
+                f"With an air gap of {machine.air_gap_text} the breakdown field follows the "
+                "uniform-field relation for air at that gap: short gaps hold more than the "
+                "3 MV/m of centimetre gaps, so the ceiling is higher (see Safety and method).")
         save_column, delete_column = st.columns(2)
         if save_column.button("Save machine", type="primary", key=f"machines-save-{chosen}"):
             if not machine_id.strip():

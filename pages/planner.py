@@ -7,10 +7,19 @@ from engine.air import (
     REFERENCE_TEMPERATURE_K,
     pressure_for_relative_density,
     pressure_from_altitude,
+    relative_air_density,
 )
 from engine.ceiling import SIZES_HELD, ceiling_figures, size_for_current, speed_for_current
 from engine.errors import InputError
 from engine.figures import planner_curve
+from engine.sparks import (
+    DISCHARGE_ADVICE,
+    gap_for_voltage,
+    spark_breakdown,
+    stored_energy,
+    threshold_text,
+    thresholds_reached,
+)
 from engine.units import parse_quantity, parse_speed, to_display
 from pages import _shared as shared
 
@@ -103,3 +112,60 @@ if machine is not None:
                              f"({SIZES_HELD[machine.kind]}).")
     except InputError as error:
         shared.show_error(error)
+
+st.header("Spark length, voltage and stored energy")
+st.caption("The breakdown voltage of an air gap by a named, published model, held to its range; "
+           "and the energy your terminals and jars store at that voltage.")
+site_density = float(relative_air_density(machine_file.site.pressure_pa,
+                                          machine_file.site.temperature_k))
+voltage_v = None
+try:
+    ask = st.radio("Ask for", ["the voltage of a spark length", "the spark length for a voltage"],
+                   horizontal=True, key="planner-spark-ask")
+    kind = st.radio("Electrodes", ["uniform field (plates, or balls much larger than the gap)",
+                                   "two equal balls"], horizontal=True,
+                    key="planner-spark-electrodes")
+    electrodes = "spheres" if kind == "two equal balls" else "uniform"
+    diameter = (parse_quantity(st.text_input("Ball diameter", "5 cm",
+                                             key="planner-spark-diameter"),
+                               "length", "ball diameter") if electrodes == "spheres" else None)
+    if ask == "the voltage of a spark length":
+        gap = parse_quantity(st.text_input("Spark length", "1 cm", key="planner-spark-gap"),
+                             "length", "spark length")
+    else:
+        wanted = parse_quantity(st.text_input("Voltage", "30 kV", key="planner-spark-voltage"),
+                                "voltage", "voltage")
+        gap = gap_for_voltage(wanted, electrodes, diameter, site_density)
+    spark = spark_breakdown(gap, electrodes, diameter, site_density)
+    voltage_v = float(spark.breakdown_voltage_v)
+    left, middle, right = st.columns(3)
+    left.metric("Spark length", f"{gap * 1e3:.3g} mm")
+    middle.metric("Breakdown voltage", f"{voltage_v / 1e3:.3g} kV")
+    right.metric("Mean field in the gap", f"{float(spark.mean_field_v_m) / 1e6:.3g} MV/m")
+    st.caption(f"Air of the lab's site: relative density {site_density:.3f}. "
+               f"Model: {spark.model}. Valid for {spark.valid_range}.")
+except InputError as error:
+    shared.show_error(error)
+
+st.subheader("Stored energy")
+try:
+    capacitance = parse_quantity(st.text_input("Capacitance of terminals and jars", "200 pF",
+                                               key="planner-capacitance"),
+                                 "capacitance", "capacitance")
+    voltage_text = st.text_input("At the voltage", f"{voltage_v / 1e3:.3g} kV" if voltage_v
+                                 else "30 kV", key="planner-energy-voltage",
+                                 help="Defaults to the breakdown voltage above.")
+    at_voltage = parse_quantity(voltage_text, "voltage", "voltage")
+    energy = float(stored_energy(capacitance, at_voltage))
+    st.metric("Stored energy ½ C V²", f"{energy:.3g} J",
+              help=f"Charge C V = {capacitance * at_voltage * 1e6:.3g} µC")
+    reached = thresholds_reached(capacitance, at_voltage)
+    for threshold in reached:
+        st.warning(f"Above {threshold_text(threshold)}: {threshold.meaning} "
+                   f"({threshold.source}).")
+    if not reached:
+        st.info("Below the thresholds listed on the Safety and method page; a discharge still "
+                "startles, and a startled person falls or drops things.")
+    st.warning(DISCHARGE_ADVICE)
+except InputError as error:
+    shared.show_error(error)

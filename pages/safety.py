@@ -1,7 +1,9 @@
 """Safety and method: the cautions, how to measure, the model, its references and its limits."""
 
+import pandas as pd
 import streamlit as st
 
+from engine.sparks import DISCHARGE_ADVICE, threshold_table
 from pages import _shared as shared
 
 st.title("Safety and method")
@@ -99,7 +101,8 @@ st.markdown(
   which the arrangement (or the units you give) accounts for.
 - The breakdown field depends on the gap and the electrode shape; 3 MV/m holds for uniform fields
   over centimetre gaps, and higher fields hold over millimetre gaps, so a carrier close to a
-  conductor can carry more than the flat ceiling. Sharp edges break down earlier, so real
+  conductor can carry more than the flat ceiling (a machine may give its air gap: see the
+  voltage side below). Sharp edges break down earlier, so real
   carriers stay below the ceiling.
 - Scaling with air density is the IEC 60060-1 correction with exponent 1 (the breakdown field
   proportional to the relative air density), good at ground-level pressures; it is not meant
@@ -108,5 +111,61 @@ st.markdown(
   practice, with no published source.
 - Tolerances in the machines file are taken as one standard uncertainty; efficiency uncertainty
   is first-order propagation of geometry, speed, meter and breakdown-field uncertainty.
+"""
+)
+
+st.header("The voltage side")
+st.subheader("Stored energy: when a discharge is dangerous")
+st.markdown("Terminals and Leyden jars store W = ½ C V². The levels below are those the tool "
+            "warns about (the Planner computes the energy of yours):")
+st.dataframe(pd.DataFrame(threshold_table()), hide_index=True, key="safety-thresholds")
+st.warning(DISCHARGE_ADVICE)
+st.subheader("Breakdown voltage of a gap")
+st.markdown(
+    """
+- **Uniform fields** (plates, or balls much larger than the gap): the empirical relation for
+  air of the high-voltage textbooks, U = 24.36 (p d) + 6.72 √(p d) kV with p in bar at 20 °C
+  and d in cm (about 4.6 kV for 1 mm, 31 kV for 1 cm). It depends on p d, that is on the air's
+  density times the gap, so the tool uses p = 1.013 bar · δ. Used for gaps of 0.1 mm to 10 cm
+  at reference density.
+- **Two equal balls, one earthed**: the field-utilisation method. The largest field on the live
+  ball follows from Kelvin's image charges; the gap breaks down when it reaches the larger of
+  Peek's gradient for spheres, 27.2 δ (1 + 0.54 / √(δ r)) kV/cm, and the uniform-field
+  gradient of the same gap. Balls of 2 cm to 2 m, gaps up to half the diameter; within about
+  5 % of the standard sphere-gap table up to 0.3 D and about 10 % low at 0.5 D.
+- **Outside both** (a 20 cm spark between 2 cm balls) the tool gives no number: such sparks
+  depend on corona and polarity.
+- **Air gap of a carrier.** A machine may give `air_gap`, the distance from the carrier to the
+  nearest conductor; its breakdown field is then the uniform-field field U / d at that gap and
+  the air density instead of the flat 3 MV/m. Millimetre gaps hold more (about 4.6 MV/m at
+  1 mm), which explains machines that seem to exceed the flat ceiling.
+"""
+)
+st.subheader("Load line")
+st.markdown(
+    """
+Where readings carry the terminal voltage, the tool fits per machine and session, by least
+squares, I = q_rev f + I_0 − V / R_leak (speed as a second term when it varies). It reports the
+short-circuit current at the session's median speed, the leakage resistance, the open-circuit
+voltage I_sc R_leak (95 % interval by Fieller's method for a ratio), and the largest output power
+I_sc V_oc / 4 (interval by first-order propagation). A quadratic term in V tested at the 5 %
+level flags curvature (corona above some voltage); voltages spanning less than a fifth of the
+largest give a note instead of numbers; a current that does not fall with voltage has no finite
+open-circuit voltage, and the tool says so.
+"""
+)
+st.subheader("References for the voltage side")
+st.markdown(
+    """
+- E. Kuffel, W. S. Zaengl and J. Kuffel, High Voltage Engineering: Fundamentals, 2nd ed.,
+  Newnes, 2000, section 5.8: the uniform-field relation for air (coefficients from memory).
+- F. W. Peek, Dielectric Phenomena in High Voltage Engineering, 3rd ed., McGraw-Hill, 1929:
+  breakdown gradient at spheres (from memory).
+- IEC 60052:2002, Voltage measurement by means of standard air gaps: the sphere-gap table used
+  to check the sphere method (values from memory).
+- J. C. Maxwell, A Treatise on Electricity and Magnetism, 1891, chapter XI: electrical images.
+- IEC 61010-1, Safety requirements for electrical equipment for measurement, control and
+  laboratory use: limits of stored charge and energy (from memory).
+- E. C. Fieller, Some problems in interval estimation, J. R. Stat. Soc. B 16 (1954) 175-185.
 """
 )

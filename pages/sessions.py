@@ -35,6 +35,37 @@ if not flagged.empty:
         st.dataframe(flagged[[col.ROW, col.TIME, col.FLAGS, col.NOTE]], hide_index=True,
                      key="sessions-flagged")
 
+if one_session[col.VOLTAGE_V].notna().any():
+    st.subheader("Load line: current against terminal voltage")
+    load_line = analysis.load_line_findings(one_session).iloc[0].to_dict()
+    st.plotly_chart(figures.load_line_chart(one_session, machine_id, load_line,
+                                            machine_file.by_id().get(machine_id), session,
+                                            shared.colours_for(machine_file),
+                                            label=labels.get(machine_id)),
+                    key="sessions-load-line")
+    if load_line["short_circuit_current_uA"] == load_line["short_circuit_current_uA"]:
+        shown = st.columns(4)
+        for column, (name, key, unit) in zip(shown, (
+                ("Short-circuit current", "short_circuit_current", "uA"),
+                ("Leakage resistance", "leakage_resistance", "GOhm"),
+                ("Open-circuit voltage", "open_circuit_voltage", "kV"),
+                ("Largest output power", "max_output_power", "W")), strict=True):
+            value, interval = load_line[f"{key}_{unit}"], load_line[f"{key}_ci_{unit}"]
+            shown_unit = {"uA": "µA", "GOhm": "GΩ"}.get(unit, unit)
+            scale = 1.0
+            if unit == "W" and value == value and abs(value) < 1:
+                shown_unit, scale = "mW", 1e3
+            column.metric(name, "n/a" if value != value else f"{value * scale:.3g} {shown_unit}",
+                          help=None if interval is None else
+                          f"95 % CI {interval[0] * scale:.3g} to {interval[1] * scale:.3g} "
+                          f"{shown_unit}")
+    for note in filter(None, load_line["load_line_notes"].split("; ")):
+        st.caption(note)
+    st.caption("Fit: least squares I = q·f + I0 − V / R_leak over this session's clean readings "
+               "(speed a second term when it varies); the open-circuit voltage's interval is "
+               "Fieller's, the power's by first-order propagation. Where the line bends, corona "
+               "takes a share that grows with voltage.")
+
 st.subheader("Two sessions compared")
 if len(sessions) < 2:
     st.write("This machine has one session. Import another (for example after restoration) to "

@@ -283,3 +283,127 @@ def test_evaluate_and_summary_bad_input(capsys, argv, message):
     assert status == 2
     lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("error:") and message in lines[0]
+
+
+# --- spark, --air-gap, and the voltage side of evaluate and summary ----------------------------
+
+def test_spark_uniform_gap_names_its_model(capsys):
+    figures = run_json(capsys, "spark", "--gap", "1 cm")
+    # U = 24.36 * 1.013 + 6.72 * sqrt(1.013) = 31.44 kV (Kuffel, Zaengl and Kuffel, 2000,
+    # section 5.8, coefficients from memory; "about 31 kV for 1 cm")
+    assert figures["breakdown_voltage_kV"] == pytest.approx(31.44, rel=1e-3)
+    assert figures["breakdown_field_MV_m"] == pytest.approx(3.144, rel=1e-3)
+    assert figures["relative_air_density"] == pytest.approx(1.0)
+    assert "Kuffel" in figures["model"] and "10 cm" in figures["valid_range"]
+    status, out, _ = run(capsys, "spark", "--gap", "10 mm")
+    assert status == 0 and "31.4 kV" in out and "model" in out
+
+
+def test_spark_options_air_and_spheres(capsys):
+    thin = run_json(capsys, "spark", "--gap", "1 cm", "--altitude", "1500 m")
+    # ICAO pressure at 1500 m, 84 559.7 Pa (ambiance): delta 0.834745 at 20 degC
+    assert thin["relative_air_density"] == pytest.approx(0.834745, rel=1e-5)
+    assert thin["breakdown_voltage_kV"] < 31.44
+    hot = run_json(capsys, "spark", "--gap", "1 cm", "--pressure", "101.3 kPa",
+                   "--temperature", "40 degC")
+    assert hot["relative_air_density"] == pytest.approx(293.15 / 313.15)
+    balls = run_json(capsys, "spark", "--gap", "5 mm", "--electrodes", "spheres",
+                     "--sphere-diameter", "2 cm")
+    # IEC 60052 table, 2 cm spheres, 0.5 cm gap: 17.4 kV (from memory)
+    assert balls["breakdown_voltage_kV"] == pytest.approx(17.4, rel=0.05)
+    assert "Peek" in balls["model"] and balls["sphere_diameter_cm"] == pytest.approx(2.0)
+
+
+def test_spark_inverse_gives_the_gap_for_a_voltage(capsys):
+    figures = run_json(capsys, "spark", "--voltage", "31.44 kV")
+    assert figures["gap_mm"] == pytest.approx(10.0, rel=1e-3)
+    assert figures["breakdown_voltage_kV"] == pytest.approx(31.44, rel=1e-6)
+    balls = run_json(capsys, "spark", "--voltage", "17.4 kV", "--electrodes", "spheres",
+                     "--sphere-diameter", "20 mm")
+    assert balls["gap_mm"] == pytest.approx(5.0, rel=0.05)
+
+
+def test_spark_help_works(capsys):
+    with pytest.raises(SystemExit) as done:
+        main(["spark", "--help"])
+    assert done.value.code == 0
+    assert "--sphere-diameter" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    ("argv", "message"),
+    [
+        (["spark", "--gap", "-1 cm"], "above zero"),
+        (["spark", "--gap", "0 mm"], "above zero"),
+        (["spark", "--gap", "20 cm", "--electrodes", "spheres", "--sphere-diameter", "2 cm"],
+         "outside the models"),
+        (["spark", "--gap", "50 cm"], "outside the models"),
+        (["spark", "--gap", "1 cm", "--electrodes", "spheres"], "needs --sphere-diameter"),
+        (["spark", "--gap", "1 cm", "--sphere-diameter", "5 cm"], "is for --electrodes spheres"),
+        (["spark", "--gap", "1 cm", "--electrodes", "spheres", "--sphere-diameter", "0 cm"],
+         "above zero"),
+        (["spark", "--gap", "1 kg"], "length"),
+        (["spark"], "either --gap"),
+        (["spark", "--gap", "1 cm", "--voltage", "30 kV"], "either --gap"),
+        (["spark", "--voltage", "5 MV"], "outside what the model covers"),
+        (["spark", "--voltage", "-3 kV"], "above zero"),
+        (["spark", "--gap", "1 cm", "--pressure", "90 kPa", "--altitude", "300 m"], "not both"),
+        (["spark", "--gap", "1 cm", "--electrodes", "points"], "invalid choice"),
+        ([*DISC, "--speed", "5 rpm", "--air-gap", "1 mm", "--breakdown-field", "3 MV/m"],
+         "choose one"),
+        ([*DISC, "--speed", "5 rpm", "--air-gap", "-1 mm"], "above zero"),
+        ([*DISC, "--speed", "5 rpm", "--air-gap", "1 m"], "outside"),
+    ],
+)
+def test_spark_and_air_gap_bad_input(capsys, argv, message):
+    test_bad_input_is_one_error_line_and_status_2(capsys, argv, message)
+
+
+def test_ceiling_with_an_air_gap_has_the_higher_field(capsys):
+    flat = run_json(capsys, *DISC, "--speed", "300 rpm")
+    gap = run_json(capsys, *DISC, "--speed", "300 rpm", "--air-gap", "1 mm")
+    assert flat["breakdown_field_MV_m"] == pytest.approx(3.0)
+    # 4.607 MV/m over 1 mm (uniform-field relation, hand-evaluated above)
+    assert gap["breakdown_field_MV_m"] == pytest.approx(4.607, rel=1e-3)
+    assert gap["ceiling_current_uA"] == pytest.approx(flat["ceiling_current_uA"] * 4.607 / 3.0,
+                                                      rel=1e-3)
+
+
+def test_machines_json_has_the_breakdown_field_in_every_case(capsys, tmp_path):
+    path = tmp_path / "machines.toml"
+    path.write_text(EXAMPLE.replace('breakdown_field = "3.0 MV/m"', 'air_gap = "1 mm"'),
+                    encoding="utf-8")
+    for argv in ([str(path)], [str(path), "--speed", "300 rpm"]):
+        rows = run_json(capsys, "machines", *argv)
+        assert all(row["breakdown_field_MV_m"] > 0 for row in rows)
+        # at 350 m (delta 0.959434) the 1 mm gap holds less than 4.607 MV/m, more than 3
+        assert 3.0 < rows[0]["breakdown_field_MV_m"] < 4.607
+        assert rows[0]["air_gap_mm"] == pytest.approx(1.0)
+        assert rows[1]["breakdown_field_MV_m"] == pytest.approx(3.0 * 97_190.66 / 101_300,
+                                                                rel=1e-5)
+
+
+def test_evaluate_and_summary_carry_the_voltage_side(capsys, tmp_path):
+    from tests.voltage_data import LEAKAGE_OHM, write_voltage_readings
+
+    readings = write_voltage_readings(tmp_path / "charged.csv")
+    rows = run_json(capsys, "evaluate", MACHINES, readings)
+    assert rows[0]["voltage_kV"] > 0
+    assert rows[0]["output_power_W"] == pytest.approx(
+        rows[0]["voltage_kV"] * 1e3 * rows[0]["current_uA"] * 1e-6)
+    plain = run_json(capsys, "evaluate", MACHINES, TWIN)
+    assert plain[0]["voltage_kV"] is None and plain[0]["output_power_W"] is None
+    records = run_json(capsys, "summary", MACHINES, readings, "--by-session")
+    record = records[0]
+    low, high = record["leakage_resistance_ci_GOhm"]
+    assert low < LEAKAGE_OHM / 1e9 < high
+    for key in ("short_circuit_current_uA", "open_circuit_voltage_kV", "max_output_power_W"):
+        assert record[key] > 0
+        low, high = record[key.replace("_uA", "_ci_uA").replace("_kV", "_ci_kV")
+                           .replace("_W", "_ci_W")]
+        assert low < record[key] < high
+    status, out, _ = run(capsys, "summary", MACHINES, readings)
+    assert status == 0 and "open-circuit voltage" in out and "GOhm" in out
+    without = run_json(capsys, "summary", MACHINES, TWIN)
+    assert without[0]["open_circuit_voltage_kV"] is None
+    assert "short_circuit_current_ci_uA" in without[0]

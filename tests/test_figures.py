@@ -557,3 +557,47 @@ def test_a_very_large_trace_is_thinned_evenly_but_keeps_its_ends():
     np.testing.assert_allclose(trace.y, 2 * np.asarray(trace.x))  # x and y stay paired
     small = _scatter(100, x=x[:100], y=x[:100])
     assert len(small.x) == 100
+
+
+# --- load line ----------------------------------------------------------------------------------
+
+def test_load_line_chart_draws_readings_line_ceiling_and_power():
+    from engine.analysis import load_line_findings
+    from engine.figures import load_line_chart
+
+    rng = np.random.default_rng(11)
+    voltage = rng.uniform(2e3, 20e3, 25)
+    speed = np.full(25, 4.0)
+    current = 0.7e-6 - voltage / 40e9 + rng.normal(0, 0.02e-6, 25)
+    frame = pd.DataFrame({col.MACHINE: "m", col.SESSION: "s", col.CURRENT_A: current,
+                          col.VOLTAGE_V: voltage, col.SPEED_REV_S: speed, col.FLAGS: "",
+                          col.RELATIVE_AIR_DENSITY: 1.0})
+    frame.loc[0, col.FLAGS] = "negative"
+    machine = machine_from_table({"id": "m", "carrier": "disc", "outer_diameter": "40 cm",
+                                "inner_diameter": "0 cm"})
+    line = load_line_findings(frame).iloc[0].to_dict()
+    figure = load_line_chart(frame, "m", line, machine, "s")
+    names = [trace.name for trace in figure.data]
+    assert names[:2] == ["readings", "flagged readings"]
+    assert "fitted load line" in names and "output power" in names
+    assert any(name.startswith("ceiling at 240 rpm") for name in names)
+    fitted = next(trace for trace in figure.data if trace.name == "fitted load line")
+    # the line runs from zero to the open-circuit voltage, where the current is zero
+    assert fitted.x[-1] == pytest.approx(line["open_circuit_voltage_kV"])
+    assert fitted.y[-1] == pytest.approx(0.0, abs=1e-9)
+    power = next(trace for trace in figure.data if trace.name == "output power")
+    assert max(power.y) == pytest.approx(line["max_output_power_W"], rel=1e-3)
+    ceiling = next(trace for trace in figure.data if trace.name.startswith("ceiling"))
+    expected = float(machine_ceiling(machine, 4.0).ceiling_current_a) * 1e6
+    assert ceiling.y[0] == pytest.approx(expected)
+    assert figure.layout.xaxis.title.text == "Terminal voltage [kV]"
+
+
+def test_load_line_chart_without_voltages_says_so():
+    from engine.figures import load_line_chart
+
+    frame = pd.DataFrame({col.MACHINE: ["m"], col.CURRENT_A: [1e-6], col.VOLTAGE_V: [np.nan],
+                          col.FLAGS: [""]})
+    figure = load_line_chart(frame, "m")
+    assert "No readings with a terminal voltage" in figure.layout.annotations[0].text
+    assert NO_READINGS in load_line_chart(None, "m").layout.annotations[0].text

@@ -623,13 +623,14 @@ UNITS_BY_KIND = {
     "electric_field": ["V/m", "MV/m", "kV/cm"],
     "current": ["A", "uA", "µA", "nA", "mA"],
     "voltage": ["V", "kV", "mV"],
+    "capacitance": ["F", "pF", "nF", "uF"],
     "linear_speed": ["m/s", "km/h", "ft/min"],
     "duration": ["s", "min", "h", "ms"],
     "fraction": ["%", "percent", ""],
     "rotation_rate": ["rpm", "rev/s", "Hz", "1/min", "rad/s"],
     # pint accepts all of these; none makes sense for any field here (radian, steradian,
     # percent and count are dimensionless in pint, so "rad*m" would pass for a length).
-    "other": ["kg", "g", "J", "W", "ohm", "mol", "N", "C", "lb", "F", "T", "kg/m^3", "rad",
+    "other": ["kg", "g", "J", "W", "ohm", "mol", "N", "C", "lb", "T", "kg/m^3", "rad",
               "rad*m", "%/s", "sr/s", "rad**2/s", "rpm*rad", "rpm/rad", "count/s", "% m",
               "deg", "Bq"],
 }

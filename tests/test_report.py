@@ -16,6 +16,7 @@ from engine.report import (
     FORMULA_PREFIXES,
     OUTPUT_COLUMNS,
     TRACE_OUTPUT_COLUMNS,
+    VOLTAGE_OUTPUT_COLUMNS,
     html_report,
     iso_text,
     neutralise_formula,
@@ -60,11 +61,13 @@ def test_output_columns_are_the_agreed_list_in_order():
         "relative_air_density", "flags",
     )
     out = output_frame(frame_of(one_reading()))
-    assert list(out.columns) == [*OUTPUT_COLUMNS, "session", "note", *TRACE_OUTPUT_COLUMNS]
+    assert list(out.columns) == [*OUTPUT_COLUMNS, "session", "note", *TRACE_OUTPUT_COLUMNS,
+                                 *VOLTAGE_OUTPUT_COLUMNS]
     without = frame_of(one_reading()).drop(columns=[col.SESSION, col.NOTE])
-    assert list(output_frame(without).columns) == [*OUTPUT_COLUMNS, *TRACE_OUTPUT_COLUMNS]
+    assert list(output_frame(without).columns) == [*OUTPUT_COLUMNS, *TRACE_OUTPUT_COLUMNS,
+                                                   *VOLTAGE_OUTPUT_COLUMNS]
     bare = frame_of(one_reading())[[col.MACHINE, col.TIME, col.CURRENT_A, col.FLAGS]]
-    assert list(output_frame(bare).columns) == list(OUTPUT_COLUMNS)
+    assert list(output_frame(bare).columns) == [*OUTPUT_COLUMNS, *VOLTAGE_OUTPUT_COLUMNS]
 
 
 def test_output_frame_unit_conversions_hand_worked():

@@ -181,7 +181,8 @@ def test_machine_ids_and_sessions_with_tab_and_return_are_neutralised():
     rows = list(csv.reader(io.StringIO(report.to_csv_bytes(
         report.output_frame(derived)).decode("utf-8"), newline="")))
     assert [row[0] for row in rows[1:]] == ["'\tm", "'\rm"]
-    assert [row[-2] for row in rows[1:]] == ["'\ts", "'\rs"]
+    session = rows[0].index("session")
+    assert [row[session] for row in rows[1:]] == ["'\ts", "'\rs"]
 
 
 # --- the HTML report ----------------------------------------------------------------------------
