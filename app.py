@@ -3,17 +3,13 @@ each page is a short script in pages/."""
 
 import streamlit as st
 
-from engine.demo import load_demo
 from pages import _shared as shared
 
 st.set_page_config(page_title="Ceiling Lab", page_icon=":material/bolt:", layout="wide")
 
+# On a first start (an empty lab of the user's own) the app opens on the demonstration lab, a
+# store of its own: see shared.active_lab.
 store = shared.store()
-# The demo comes on first start only: not again once the user has removed it.
-if (store.is_empty() and store.setting("demo") != "removed"
-        and not st.session_state.get("demo-declined")):
-    with st.spinner("First start: loading the demonstration lab..."):
-        load_demo(store)
 
 navigation = st.navigation(
     [
@@ -29,12 +25,13 @@ navigation = st.navigation(
 )
 
 with st.sidebar:
+    shared.lab_switch()
     counts = store.counts()
-    st.markdown(f"**Ceiling Lab** · {counts['machines']} machines · {counts['readings']:,} "
-                "readings")
-    if store.has_demo():
-        st.caption("The demonstration lab is loaded (invented data). Remove it on the Overview "
-                   "page when you start your own.")
+    st.markdown(f"**{shared.LAB_NAMES[shared.active_lab()]}** · {counts['machines']} machines "
+                f"· {counts['readings']:,} readings")
+    if shared.active_lab() == "demo":
+        st.caption("Invented data to explore, kept apart from your own lab. Switch to "
+                   "**My lab** above to start yours; the demonstration lab stays here.")
     st.caption(shared.SAFETY_SHORT)
 
 navigation.run()

@@ -14,6 +14,7 @@ from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.errors import InputError
 from engine.figures import PALETTE
 from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
+from engine.demo import demo_lab_path, open_demo_lab
 from engine.store import Store, default_store_path, open_store
 
 # A page opened by a direct link as the first request after the server starts is run by
@@ -75,14 +76,73 @@ FIELD_HELP = {
 CARRIER_LABELS = {"disc": "disc (twin-disc, multi-disc stack, single disc)",
                   "belt": "belt", "cylinder": "cylinder", "custom": "custom (area given)"}
 
+#: Session key of the lab that is open: "own" (the user's) or "demo" (the demonstration lab).
+LAB_KEY = "lab"
+LAB_NAMES = {"own": "My lab", "demo": "Demonstration lab (invented)"}
+
+
 @st.cache_resource(show_spinner=False)
 def _open_store(path: str) -> Store:
     return open_store(path)
 
 
+@st.cache_resource(show_spinner="Opening the demonstration lab...")
+def _open_demo_store(path: str) -> Store:
+    return open_demo_lab(path)
+
+
+def active_lab() -> str:
+    """Which lab is open: the one chosen in the sidebar; on a first start with an empty lab of
+    the user's own, the demonstration lab."""
+    chosen = st.session_state.get(LAB_KEY)
+    if chosen in LAB_NAMES:
+        return chosen
+    if st.session_state.get("demo-declined"):
+        return "own"
+    own = _open_store(str(default_store_path()))
+    return "demo" if own.is_empty() and own.setting("lab-opened") != "yes" else "own"
+
+
+def lab_path() -> Path:
+    """The store file of the open lab."""
+    own = default_store_path()
+    return demo_lab_path(own) if active_lab() == "demo" else own
+
+
 def store() -> Store:
-    """The lab's store (one shared, thread-safe connection per database file)."""
+    """The open lab's store (one shared, thread-safe connection per database file)."""
+    if active_lab() == "demo":
+        return _open_demo_store(str(lab_path()))
     return _open_store(str(default_store_path()))
+
+
+def open_lab(name: str) -> None:
+    """Open a lab ("own" or "demo") from now on in this browser session; once the user has
+    opened their own lab, later starts open it too, even while it is still empty."""
+    st.session_state[LAB_KEY] = name
+    if name == "own":
+        own = _open_store(str(default_store_path()))
+        if own.setting("lab-opened") != "yes":
+            own.save_setting("lab-opened", "yes")
+
+
+def _switched() -> None:
+    open_lab(st.session_state["lab-switch"])
+
+
+def lab_switch() -> None:
+    """The sidebar's choice of lab."""
+    # A lab opened by a button elsewhere: the switch follows it.
+    st.session_state["lab-switch"] = active_lab()
+    st.radio("Lab", list(LAB_NAMES), format_func=LAB_NAMES.get, key="lab-switch",
+             on_change=_switched, help="The demonstration lab is invented data kept apart from "
+             "yours: switching to it or away never touches your machines.")
+
+
+def clear_widgets(marker: str) -> None:
+    """Forget the values of the widgets whose key contains ``marker`` (a form starts clean)."""
+    for key in [key for key in st.session_state if isinstance(key, str) and marker in key]:
+        del st.session_state[key]
 
 
 def form_fields(kind: str) -> list[str]:
@@ -207,7 +267,7 @@ def derived_readings(path: str, signature: tuple) -> pd.DataFrame:  # noqa: ARG0
 
 def load_derived() -> pd.DataFrame:
     """Derived readings of the whole store, from the cache when nothing changed."""
-    return derived_readings(str(default_store_path()), store_signature())
+    return derived_readings(str(lab_path()), store_signature())
 
 
 def show_error(error: Exception) -> None:
@@ -242,7 +302,7 @@ def _findings(path: str, signature: tuple, by_session: bool,  # noqa: ARG001 - c
 
 def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.DataFrame:
     """Findings of the whole store (cached until the store changes)."""
-    return _findings(str(default_store_path()), store_signature(), by_session, reference_rh)
+    return _findings(str(lab_path()), store_signature(), by_session, reference_rh)
 
 
 def _interval_text(interval, scale: float = 1.0) -> str:

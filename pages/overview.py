@@ -20,19 +20,37 @@ columns[1].metric("Imports", counts["imports"])
 columns[2].metric("Sessions", counts["sessions"])
 columns[3].metric("Readings", f"{counts['readings']:,}")
 
-if store.has_demo():
+if shared.active_lab() == "demo":
     st.info("You are looking at the **demonstration lab**: an invented science centre, school, "
-            "workshop and open day. Explore it, then remove it to start your own.")
-    if st.button("Remove the demonstration data", key="overview-remove-demo"):
-        try:
-            removed = store.remove_demo()
-            store.save_setting("demo", "removed")
-        except InputError as error:
-            shared.show_error(error)
-            st.stop()
-        shared.flash(f"Removed the demonstration data ({removed.get('readings', 0):,} "
-                     "readings).")
-        st.rerun()
+            "workshop and open day, kept apart from your own lab. Explore it, then start your "
+            "own; the demonstration lab stays available in the sidebar.")
+    st.button("Start my own lab", type="primary", key="overview-own-lab",
+              on_click=shared.open_lab, args=("own",))
+elif store.has_demo():
+    # Demonstration data that an earlier version loaded into the user's own lab.
+    st.info("Your lab also holds demonstration data loaded by an earlier version of Ceiling Lab "
+            "(marked as demo). The demonstration lab now lives apart, in the sidebar.")
+    if st.button("Remove the demonstration data from my lab", key="overview-remove-demo"):
+        st.session_state["overview-confirm-remove-demo"] = True
+    if st.session_state.get("overview-confirm-remove-demo"):
+        st.warning("This removes the machines, imports and readings marked as demo from your "
+                   "lab; your own stay as they are. The demonstration lab in the sidebar keeps "
+                   "its copy.")
+        yes, no = st.columns(2)
+        if yes.button("Yes, remove them", key="overview-remove-demo-yes"):
+            st.session_state.pop("overview-confirm-remove-demo", None)
+            try:
+                removed = store.remove_demo()
+                store.save_setting("demo", "removed")
+            except InputError as error:
+                shared.show_error(error)
+                st.stop()
+            shared.flash(f"Removed the demonstration data ({removed.get('readings', 0):,} "
+                         "readings); the demonstration lab is still in the sidebar.")
+            st.rerun()
+        if no.button("Keep them", key="overview-remove-demo-no"):
+            st.session_state.pop("overview-confirm-remove-demo", None)
+            st.rerun()
 
 st.subheader("Next steps")
 steps = st.columns(3)

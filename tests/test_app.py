@@ -7,7 +7,7 @@ import pytest
 import streamlit as st
 from streamlit.testing.v1 import AppTest
 
-from engine.demo import load_demo
+from engine.demo import demo_lab_path, load_demo
 from engine.store import open_store
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -31,9 +31,11 @@ def _fresh_caches():
 
 @pytest.fixture
 def demo_lab(tmp_path, monkeypatch, demo_store_file):
-    path = tmp_path / "lab.sqlite3"
+    """The demonstration lab, opened as on a first start; yields its store file."""
+    own = tmp_path / "lab.sqlite3"
+    path = demo_lab_path(own)
     shutil.copy(demo_store_file, path)
-    monkeypatch.setenv("CEILING_LAB_DB", str(path))
+    monkeypatch.setenv("CEILING_LAB_DB", str(own))
     _fresh_caches()
     yield path
     _fresh_caches()
@@ -96,22 +98,50 @@ def test_every_page_renders_on_an_empty_store(empty_lab, page):
         assert store.is_empty()
 
 
-def test_first_start_loads_the_demo_and_it_can_be_removed(empty_lab):
+def test_first_start_opens_the_demonstration_lab_apart_from_the_user_s(empty_lab):
     app = open_page()
-    assert "demonstration lab" in texts(app)
-    with open_store(empty_lab) as store:
-        assert store.has_demo() and store.counts()["machines"] == 4
-    app.button(key="overview-remove-demo").click().run()
+    assert "You are looking at the **demonstration lab**" in texts(app)
+    assert app.radio(key="lab-switch").value == "demo"
+    with open_store(demo_lab_path(empty_lab)) as demo:
+        assert demo.counts()["machines"] == 4
+        assert demo.machines().site.spec == {"altitude": "240 m"}
+    with open_store(empty_lab) as own:
+        assert own.is_empty() and own.machines().site.spec == {}  # nothing mixes in
+    app.button(key="overview-own-lab").click().run()
     assert not app.exception
-    assert "Removed the demonstration data" in texts(app)
-    with open_store(empty_lab) as store:
-        assert store.is_empty()
-    # A restart (a new session) does not bring the demo back.
+    # (AppTest draws the sidebar of a script's first run only: the lab is read from the state.)
+    assert app.session_state["lab"] == "own"
+    assert "You are looking at the **demonstration lab**" not in texts(app)
+    assert "No readings yet" in texts(app)
+    # A restart opens the user's own lab, empty as it is; the demonstration lab stays there
+    # and can be opened again from the sidebar.
     _fresh_caches()
-    again = open_page()
-    assert "demonstration lab" not in texts(again)
-    with open_store(empty_lab) as store:
+    again = AppTest.from_file(str(ROOT / "app.py"), default_timeout=120).run()
+    assert again.radio(key="lab-switch").value == "own"
+    assert "My lab" in " ".join(item.value for item in again.sidebar.markdown)
+    again.radio(key="lab-switch").set_value("demo").run()
+    assert not again.exception
+    assert "You are looking at the **demonstration lab**" in texts(again)
+    with open_store(empty_lab) as own:
+        assert own.is_empty()
+
+
+def test_demo_data_of_an_earlier_version_is_removed_only_when_confirmed(tmp_path, monkeypatch,
+                                                                          demo_store_file):
+    own = tmp_path / "lab.sqlite3"
+    shutil.copy(demo_store_file, own)  # an own lab that an earlier version filled with the demo
+    monkeypatch.setenv("CEILING_LAB_DB", str(own))
+    _fresh_caches()
+    app = open_page()
+    app.button(key="overview-remove-demo").click().run()
+    with open_store(own) as store:
+        assert store.has_demo()  # nothing gone on one click
+    assert "This removes the machines, imports and readings marked as demo" in texts(app)
+    app.button(key="overview-remove-demo-yes").click().run()
+    assert "Removed the demonstration data" in texts(app)
+    with open_store(own) as store:
         assert store.is_empty()
+    _fresh_caches()
 
 
 def test_overview_shows_the_findings_of_every_machine(demo_lab):
