@@ -11,10 +11,10 @@ import streamlit as st
 from engine import analysis
 from engine.arrangements import ARRANGEMENT_LABELS, COLLECTOR_LABELS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
+from engine.demo import demo_lab_path, open_demo_lab
 from engine.errors import InputError
 from engine.figures import PALETTE
 from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
-from engine.demo import demo_lab_path, open_demo_lab
 from engine.store import Store, default_store_path, open_store
 
 # A page opened by a direct link as the first request after the server starts is run by
