@@ -5,6 +5,8 @@ Pages call these and the engine; nothing here computes physics.
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import pandas as pd
 import streamlit as st
 
