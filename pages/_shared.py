@@ -16,7 +16,14 @@ from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.demo import demo_lab_path, open_demo_lab
 from engine.errors import InputError
 from engine.figures import PALETTE
-from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
+from engine.air import relative_air_density
+from engine.machines import (
+    Machine,
+    MachineFile,
+    dump_machines,
+    machine_from_table,
+    site_from_table,
+)
 from engine.store import Store, default_store_path, open_store
 
 # A page opened by a direct link as the first request after the server starts is run by
@@ -242,13 +249,77 @@ def sketch_machine(table: dict, machine_id: str = "sketch") -> Machine:
 
 
 def colours_for(machine_file: MachineFile) -> dict[str, str]:
-    """One colour per machine id, the same on every chart and after adding a machine.
+    """One colour per machine id for life: the same on every chart, after adding, removing or
+    putting back a machine.
 
-    Colours follow the order the machines were added, so a new machine takes the next colour
-    and the others keep theirs.
+    A machine takes the first colour no other machine of the lab holds when it is first drawn,
+    and the lab remembers it (a setting per machine id).
     """
-    return {machine.id: PALETTE[number % len(PALETTE)]
-            for number, machine in enumerate(machine_file.machines)}
+    current = store()
+    colours: dict[str, str] = {}
+    taken: set[int] = set()
+    unassigned = []
+    for machine in machine_file.machines:
+        stored = current.setting(f"colour:{machine.id}")
+        if stored is not None and stored.isdigit():
+            colours[machine.id] = PALETTE[int(stored) % len(PALETTE)]
+            taken.add(int(stored) % len(PALETTE))
+        else:
+            unassigned.append(machine.id)
+    for machine_id in unassigned:
+        free = [index for index in range(len(PALETTE)) if index not in taken]
+        index = free[0] if free else len(colours) % len(PALETTE)
+        taken.add(index)
+        colours[machine_id] = PALETTE[index]
+        try:
+            current.save_setting(f"colour:{machine_id}", str(index))
+        except Exception:  # noqa: BLE001 - a lab that cannot be written keeps them for this run
+            pass
+    return colours
+
+
+def site_words(site) -> str:
+    """The air that the lab's ceilings use, in words."""
+    where = ", ".join(f"{key} {value}" for key, value in site.spec.items())
+    return (f"Air for these ceilings: {site.pressure_pa / 1e3:.4g} kPa, "
+            f"{site.temperature_k - 273.15:.1f} °C ("
+            + (f"the lab's site: {where})." if where else
+               "the reference atmosphere: no site given yet).")
+            + " Readings with their own pressure and temperature use theirs.")
+
+
+def site_form(current_store: Store, site) -> None:
+    """The form for the lab's air: altitude or barometer reading, and temperature."""
+    st.markdown("The ceiling scales with the density of the air. Give where the lab is; "
+                "readings that carry their own pressure and temperature use theirs.")
+    spec = dict(site.spec)
+    by = st.radio("Give the lab's", ["altitude", "pressure"], horizontal=True,
+                  index=1 if "pressure" in spec else 0, key="site-by",
+                  format_func={"altitude": "altitude above sea level",
+                               "pressure": "barometer reading (absolute pressure)"}.get)
+    left, right = st.columns(2)
+    value = left.text_input("Altitude" if by == "altitude" else "Pressure",
+                            spec.get(by, ""), key=f"site-{by}",
+                            placeholder="e.g. 350 m" if by == "altitude" else "e.g. 97.2 kPa")
+    temperature = right.text_input("Usual room temperature", spec.get("temperature", ""),
+                                   key="site-temperature", placeholder="e.g. 20 degC (default)")
+    new_spec = {}
+    if value.strip():
+        new_spec[by] = value.strip()
+    if temperature.strip():
+        new_spec["temperature"] = temperature.strip()
+    try:
+        preview = site_from_table(new_spec, "the lab's air")
+        st.caption(f"That is {preview.pressure_pa / 1e3:.4g} kPa and "
+                   f"{preview.temperature_k - 273.15:.1f} °C: a relative air density of "
+                   f"{relative_air_density(preview.pressure_pa, preview.temperature_k):.3f} "
+                   "against the reference atmosphere (101.3 kPa, 20 °C).")
+        if st.button("Save the lab's air", key="site-save", disabled=new_spec == spec):
+            current_store.save_site(new_spec)
+            flash("Saved the lab's air; every ceiling now uses it.")
+            st.rerun()
+    except InputError as error:
+        show_error(error)
 
 
 def store_signature() -> tuple:

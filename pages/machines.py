@@ -3,6 +3,7 @@
 import pandas as pd
 import streamlit as st
 
+from engine import columns as col
 from engine.air import relative_air_density
 from engine.carriers import SPEC_KEYS
 from engine.ceiling import ceiling_figures
@@ -48,17 +49,46 @@ if machine_file.machines:
     st.dataframe(pd.DataFrame(rows), hide_index=True, key="machines-table",
                  column_config={"area per rev [cm²]": st.column_config.NumberColumn(format="%.1f"),
                                 "ceiling [µA]": st.column_config.NumberColumn(format="%.3g")})
-    st.caption(f"Air for these ceilings: {site.pressure_pa / 1e3:.4g} kPa, "
-               f"{site.temperature_k - 273.15:.1f} °C (the lab's site). A blank ceiling means "
-               "the machine needs the other kind of speed (rpm or m/s).")
+    st.caption(f"{shared.site_words(site)} A blank ceiling means the machine needs the "
+               "other kind of speed (rpm or m/s).")
 else:
     st.info("No machines yet. Add one below, or import a machines file (TOML).")
+if not site.spec and shared.active_lab() == "own":
+    st.warning("**Where is your lab?** The ceiling depends on the air. Give the lab's altitude "
+               "(or its barometer reading) in the tab **The lab's air** below; until then the "
+               "reference atmosphere, 101.3 kPa and 20 °C, is used.")
 
-edit_tab, file_tab = st.tabs(["Add or edit a machine", "Machines file (TOML)"])
+edit_tab, site_tab, file_tab = st.tabs(["Add or edit a machine", "The lab's air",
+                                        "Machines file (TOML)"])
+
+with site_tab:
+    shared.site_form(store, site)
+
+NEW = "(a new machine)"
+
+
+def _delete(machine) -> None:
+    """Delete a machine (its readings stay) and keep it for the undo button."""
+    store.delete_machine(machine.id)
+    st.session_state["machines-undo"] = machine
+    st.session_state.pop("machines-confirm-delete", None)
+    st.session_state["machines-edit"] = NEW
+
 
 with edit_tab:
     existing = {machine.id: machine for machine in machine_file.machines}
-    chosen = st.selectbox("Machine", ["(a new machine)"] + list(existing), key="machines-edit")
+    undo = st.session_state.get("machines-undo")
+    if undo is not None:
+        note, put_back = st.columns([3, 1])
+        note.info(f"Deleted machine '{undo.id}'. Its readings stay in the lab.")
+        if put_back.button(f"Undo: put '{undo.id}' back", key="machines-undo-button"):
+            store.save_machine(undo)
+            st.session_state.pop("machines-undo", None)
+            shared.flash(f"Put machine '{undo.id}' back.")
+            st.rerun()
+    chosen = st.selectbox("Machine", [NEW] + list(existing), key="machines-edit",
+                          format_func=lambda key: ("(a new machine)" if key == NEW else
+                                                   f"{existing[key].label} ({key}): edit"))
     current = existing.get(chosen)
     kinds = list(SPEC_KEYS)
     kind = st.selectbox("Carrier", kinds, key=f"machines-kind-{chosen}",
@@ -67,9 +97,10 @@ with edit_tab:
     left, right = st.columns(2)
     machine_id = left.text_input("Id (letters, digits, '-' and '_')",
                                  current.id if current else "", key=f"machines-id-{chosen}",
-                                 disabled=current is not None)
-    label = right.text_input("Label", current.label if current else "",
-                             key=f"machines-label-{chosen}")
+                                 disabled=current is not None, placeholder="e.g. gallery-twin")
+    label = right.text_input("Name shown on charts", current.label if current else "",
+                             key=f"machines-label-{chosen}",
+                             placeholder="e.g. Gallery twin-disc machine")
     table = shared.machine_form_table(kind, f"machines-{chosen}",
                                       dict(current.spec) if current and current.kind == kind
                                       else None)
@@ -140,17 +171,34 @@ with edit_tab:
                 f"With an air gap of {machine.air_gap_text} the breakdown field follows the "
                 "uniform-field relation for air at that gap: short gaps hold more than the "
                 "3 MV/m of centimetre gaps, so the ceiling is higher (see Safety and method).")
+        taken = current is None and machine_id.strip() in existing
+        if taken:
+            st.error(f"A machine with the id '{machine_id.strip()}' is already in the lab. Give "
+                     "the new machine another id, or choose that machine above to edit it.")
         save_column, delete_column = st.columns(2)
-        if save_column.button("Save machine", type="primary", key=f"machines-save-{chosen}"):
+        if save_column.button("Save changes" if current else "Add this machine", type="primary",
+                              key=f"machines-save-{chosen}", disabled=taken):
             if not machine_id.strip():
                 raise InputError("give the machine an id first, e.g. 'school-belt'")
             store.save_machine(machine)
             shared.flash(f"Saved machine '{machine.id}'.")
+            if current is None:
+                shared.clear_widgets(NEW)  # the next new machine starts from a clean form
             st.rerun()
-        if current and delete_column.button("Delete machine", key=f"machines-delete-{chosen}"):
-            store.delete_machine(current.id)
-            shared.flash(f"Deleted machine '{current.id}'.")
-            st.rerun()
+        if current and delete_column.button("Delete machine…", key=f"machines-delete-{chosen}"):
+            st.session_state["machines-confirm-delete"] = current.id
+        if current and st.session_state.get("machines-confirm-delete") == current.id:
+            derived = shared.load_derived()
+            readings = int((derived[col.MACHINE] == current.id).sum())
+            what = (f"its {readings:,} readings stay in the lab, shown as readings of a machine "
+                    "that is not described" if readings else "it has no readings")
+            st.warning(f"Delete machine '{current.id}' ({current.label})? Its description goes; "
+                       f"{what}. You can undo this right after.")
+            yes, no = st.columns(2)
+            yes.button("Yes, delete it", key=f"machines-delete-yes-{chosen}",
+                       on_click=_delete, args=(current,))
+            no.button("Keep it", key=f"machines-delete-no-{chosen}",
+                      on_click=st.session_state.pop, args=("machines-confirm-delete", None))
     except InputError as error:
         shared.show_error(error)
 

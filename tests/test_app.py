@@ -233,6 +233,59 @@ def test_the_machine_form_counts_a_disc_stack_the_trade_s_way(empty_lab):
                                                        "machines-stack-eight-disc-k"}
 
 
+def test_a_new_machine_never_replaces_one_of_the_same_id(demo_lab):
+    app = open_page("pages/machines.py")
+    app.selectbox(key="machines-kind-(a new machine)").set_value("cylinder").run()
+    app.text_input(key="machines-id-(a new machine)").input("centre-twin-disc").run()
+    assert any("is already in the lab" in item.value for item in app.error)
+    assert app.button(key="machines-save-(a new machine)").disabled
+    with open_store(demo_lab) as store:
+        assert store.machines().by_id()["centre-twin-disc"].kind == "disc"
+
+
+def test_the_form_starts_clean_after_adding_a_machine(demo_lab):
+    app = open_page("pages/machines.py")
+    app.selectbox(key="machines-kind-(a new machine)").set_value("cylinder").run()
+    app.text_input(key="machines-id-(a new machine)").input("bench-drum").run()
+    app.text_input(key="machines-label-(a new machine)").input("Bench drum").run()
+    app.text_input(key="machines-material-(a new machine)").input("acrylic").run()
+    app.button(key="machines-save-(a new machine)").click().run()
+    assert "Saved machine 'bench-drum'" in texts(app)
+    assert app.text_input(key="machines-id-(a new machine)").value == ""
+    assert app.text_input(key="machines-label-(a new machine)").value == ""
+    assert app.text_input(key="machines-material-(a new machine)").value == ""
+
+
+def test_deleting_a_machine_asks_first_and_can_be_undone(demo_lab):
+    app = open_page("pages/machines.py")
+    app.selectbox(key="machines-edit").set_value("school-belt").run()
+    app.button(key="machines-delete-school-belt").click().run()
+    warning = " ".join(item.value for item in app.warning)
+    assert "Delete machine 'school-belt'" in warning and "240 readings stay" in warning
+    with open_store(demo_lab) as store:
+        assert "school-belt" in store.machines().by_id()  # nothing gone on one click
+    app.button(key="machines-delete-yes-school-belt").click().run()
+    with open_store(demo_lab) as store:
+        assert "school-belt" not in store.machines().by_id()
+    app.button(key="machines-undo-button").click().run()
+    assert "Put machine 'school-belt' back" in texts(app)
+    with open_store(demo_lab) as store:
+        assert store.machines().by_id()["school-belt"].carrier.width_m == pytest.approx(0.05)
+
+
+def test_the_lab_s_air_is_asked_for_and_saved(empty_lab):
+    app = open_page("pages/machines.py", empty=True)
+    assert "Where is your lab?" in texts(app)
+    app.text_input(key="site-altitude").input("1500 m").run()
+    # ICAO standard atmosphere at 1500 m: 84.56 kPa (ambiance; ICAO Doc 7488/3)
+    assert "84.56 kPa" in texts(app)
+    app.button(key="site-save").click().run()
+    assert "Saved the lab's air" in texts(app)
+    with open_store(empty_lab) as store:
+        assert store.machines().site.spec == {"altitude": "1500 m"}
+    assert "Where is your lab?" not in texts(app)
+
+
 def test_findings_say_units_delivered_the_trade_s_way(demo_lab):
     app = open_page("pages/compare.py")
     table = table_with(app, "units delivered")
