@@ -1,0 +1,232 @@
+"""The two public readers: a readings file and an environment (humidity) log."""
+
+from __future__ import annotations
+
+import os
+from typing import BinaryIO
+
+import numpy as np
+import pandas as pd
+
+from engine.columns import (
+    BELT_SPEED_M_S,
+    CURRENT_A,
+    ELAPSED_S,
+    ENVIRONMENT_COLUMNS,
+    FLAG_CODES,
+    FLAGS,
+    MACHINE,
+    NOTE,
+    PRESSURE_PA,
+    READING_COLUMNS,
+    RH,
+    ROW,
+    SESSION,
+    SPEED_REV_S,
+    TEMPERATURE_K,
+    TIME,
+    VOLTAGE_V,
+)
+from engine.errors import InputError
+from engine.readings.flags import (
+    _duplicated,
+    _flag_summary,
+    _range_masks,
+    _row_list,
+    flags_from_masks,
+)
+from engine.readings.formats import _read_table
+from engine.readings.numbers import _column_si, _text
+from engine.readings.options import ENVIRONMENT_FIELDS, READING_FIELDS, ReadOptions, ReadResult
+from engine.readings.times import _parse_times
+
+
+# --- Public readers --------------------------------------------------------------------------
+def read_readings(
+    source: str | os.PathLike | bytes | BinaryIO,
+    options: ReadOptions | None = None,
+    name: str | None = None,
+) -> ReadResult:
+    """Read a readings file (CSV or XLSX) into SI units, with a flags column.
+
+    Parameters
+    ----------
+    source : path, bytes or binary file-like
+        The file. A file-like object's ``.name`` (e.g. an upload) names it in messages.
+    options : ReadOptions, optional
+        Overrides of what is detected, and the machine and session for files without them.
+    name : str, optional
+        Name of the file in messages and in the result.
+
+    Returns
+    -------
+    ReadResult
+        ``frame`` holds :data:`engine.columns.READING_COLUMNS`: speed in [rev/s] or belt speed
+        in [m/s], current [A], RH as a fraction [-], temperature [K], pressure [Pa],
+        voltage [V]; one row per data row of the file, in file order.
+
+    Raises
+    ------
+    InputError
+        For a file that cannot be read at all: empty, binary, not a workbook, no speed or
+        current column, no machine column and no machine given, an unknown unit in a header,
+        more than ``options.max_rows`` rows. The message names the file and says why.
+    """
+    inp, options, table = _read_table(source, options, name, READING_FIELDS)
+    source_name = inp.name
+    length = table.rows
+    messages = table.messages
+    decimal = str(table.format["decimal"] or ".")
+    units_used: dict[str, str] = {}
+
+    if "machine" in table.columns:
+        machine = _text(table.data["machine"], length, fill=options.machine or "")
+        blank = int((machine == "").sum())
+        if blank:
+            messages.append(
+                f"{source_name}: {blank} row(s) have no machine"
+                + (f"; given machine '{options.machine}' used" if options.machine else
+                   "; they will show as an unknown machine"))
+    elif options.machine:
+        machine = _text(None, length, fill=options.machine)
+        messages.append(f"{source_name}: no machine column; all readings are of "
+                        f"'{options.machine}'")
+    else:
+        raise InputError(
+            f"{source_name}: has no machine column; add one (header 'machine') or choose the "
+            "machine these readings belong to when importing the file")
+    session = _text(table.data.get("session"), length, fill=options.session or "")
+    note = _text(table.data.get("note"), length, strip=False)
+
+    masks: dict[str, np.ndarray] = {}
+    values: dict[str, np.ndarray] = {}
+    not_number = np.zeros(length, dtype=bool)
+    speed, speed_text, speed_kind = _column_si(
+        "speed", table, options, source_name, decimal, units_used, messages)
+    current, current_text, _ = _column_si(
+        "current", table, options, source_name, decimal, units_used, messages)
+    not_number |= speed_text | current_text
+    for field_name in ("rh", "temperature", "pressure", "voltage"):
+        if field_name in table.columns:
+            values[field_name], text_mask, _ = _column_si(
+                field_name, table, options, source_name, decimal, units_used, messages)
+            not_number |= text_mask
+        else:
+            values[field_name] = np.full(length, np.nan)
+
+    times = _parse_times(table.data.get("time"), table.data.get("date"), table, options,
+                         decimal, source_name, units_used, messages)
+
+    masks["not_a_number"] = not_number
+    masks["missing_value"] = (np.isnan(speed) & ~speed_text) | (np.isnan(current) & ~current_text)
+    masks["negative"] = (speed < 0) | (current < 0)
+    masks["zero_speed"] = speed == 0
+    masks.update(_range_masks(values["rh"], values["temperature"], values["pressure"]))
+    key = times.time if times.absolute else pd.Series(times.elapsed_s)
+    # Sessions may restart their clock (elapsed time from 0): a duplicate is the same machine,
+    # the same session and the same time.
+    session_codes, session_names = pd.factorize(pd.Series(session))
+    machine_codes, _machine_names = pd.factorize(pd.Series(machine))
+    group = pd.Series(machine_codes.astype(np.int64) * (len(session_names) + 1) + session_codes)
+    masks["duplicate_time"] = _duplicated(group, key)
+    masks["bad_time"] = times.bad
+
+    frame = pd.DataFrame({
+        ROW: np.arange(1, length + 1, dtype=np.int64),
+        MACHINE: machine,
+        SESSION: session,
+        TIME: times.time,
+        ELAPSED_S: times.elapsed_s,
+        SPEED_REV_S: speed if speed_kind == "rotation" else np.full(length, np.nan),
+        BELT_SPEED_M_S: speed if speed_kind == "linear" else np.full(length, np.nan),
+        CURRENT_A: current,
+        RH: values["rh"],
+        TEMPERATURE_K: values["temperature"],
+        PRESSURE_PA: values["pressure"],
+        VOLTAGE_V: values["voltage"],
+        NOTE: note,
+        FLAGS: flags_from_masks(masks, length),
+    }, columns=list(READING_COLUMNS))
+    messages.append(
+        f"{source_name}: speed read as "
+        + ("a rotation rate" if speed_kind == "rotation" else "a linear (belt) speed")
+        + f" in {units_used['speed']}")
+    messages.extend(_flag_summary(masks, length, source_name))
+    file_format = {**table.format, "time_format": times.label, "day_first": times.day_first}
+    mapping = {name: column.header for name, column in table.columns.items()}
+    return ReadResult(frame, source_name, file_format, mapping, units_used, messages)
+
+
+def read_environment(
+    source: str | os.PathLike | bytes | BinaryIO,
+    options: ReadOptions | None = None,
+    name: str | None = None,
+) -> ReadResult:
+    """Read an environment log (time, humidity, temperature, pressure) into SI units.
+
+    Parameters
+    ----------
+    source : path, bytes or binary file-like
+        The log file, CSV or XLSX.
+    options : ReadOptions, optional
+        Overrides of what is detected (``machine``, ``session`` are not used).
+    name : str, optional
+        Name of the file in messages and in the result.
+
+    Returns
+    -------
+    ReadResult
+        ``frame`` holds :data:`engine.columns.ENVIRONMENT_COLUMNS`: RH as a fraction [-],
+        temperature [K], pressure [Pa]; columns absent from the log are NaN. Values that are
+        not numbers are NaN and counted in the messages; out-of-range values are kept (the
+        merge flags the readings that receive them).
+
+    Raises
+    ------
+    InputError
+        For a log that cannot be read at all, or has no time column or no air column.
+    """
+    inp, options, table = _read_table(source, options, name, ENVIRONMENT_FIELDS)
+    source_name = inp.name
+    length = table.rows
+    messages = table.messages
+    decimal = str(table.format["decimal"] or ".")
+    units_used: dict[str, str] = {}
+    values: dict[str, np.ndarray] = {}
+    for field_name in ("rh", "temperature", "pressure"):
+        if field_name in table.columns:
+            values[field_name], not_number, _ = _column_si(
+                field_name, table, options, source_name, decimal, units_used, messages)
+            if not_number.any():
+                messages.append(
+                    f"{source_name}: {int(not_number.sum())} {field_name} value(s) are not "
+                    f"numbers (rows {_row_list(not_number)}); they were left empty")
+        else:
+            values[field_name] = np.full(length, np.nan)
+    times = _parse_times(table.data.get("time"), table.data.get("date"), table, options,
+                         decimal, source_name, units_used, messages)
+    unreadable = times.bad | (~times.time.notna().to_numpy(dtype=bool) & np.isnan(
+        times.elapsed_s))
+    if unreadable.any():
+        messages.append(
+            f"{source_name}: {int(unreadable.sum())} log row(s) have no readable time (rows "
+            f"{_row_list(unreadable)}); no reading can be matched to them")
+    out_of_range = _range_masks(values["rh"], values["temperature"], values["pressure"])
+    for code, mask in out_of_range.items():
+        if mask.any():
+            messages.append(
+                f"{source_name}: {int(mask.sum())} log row(s) have {FLAG_CODES[code]} (rows "
+                f"{_row_list(mask)}); readings that receive them will be flagged {code}")
+    frame = pd.DataFrame({
+        ROW: np.arange(1, length + 1, dtype=np.int64),
+        TIME: times.time,
+        ELAPSED_S: times.elapsed_s,
+        RH: values["rh"],
+        TEMPERATURE_K: values["temperature"],
+        PRESSURE_PA: values["pressure"],
+    }, columns=list(ENVIRONMENT_COLUMNS))
+    file_format = {**table.format, "time_format": times.label, "day_first": times.day_first}
+    mapping = {name: column.header for name, column in table.columns.items()}
+    return ReadResult(frame, source_name, file_format, mapping, units_used, messages)
+
+
