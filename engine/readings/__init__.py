@@ -70,7 +70,6 @@ from engine.readings.options import (
     MAX_ROWS,
     MAX_SHEET_CELLS,
     MAX_SHEET_COLUMNS,
-    NUMERIC_NA_TEXTS,
     PRESSURE_RANGE_PA,
     READING_FIELDS,
     RH_RANGE,
@@ -83,7 +82,7 @@ from engine.readings.readers import read_environment, read_readings
 
 __all__ = [
     "ALIASES", "DEFAULT_TOLERANCE_S", "DEFAULT_UNITS", "ENVIRONMENT_FIELDS", "HEADER_SEARCH_ROWS",
-    "MAX_ROWS", "MAX_SHEET_CELLS", "MAX_SHEET_COLUMNS", "NUMERIC_NA_TEXTS", "PRESSURE_RANGE_PA",
+    "MAX_ROWS", "MAX_SHEET_CELLS", "MAX_SHEET_COLUMNS", "PRESSURE_RANGE_PA",
     "READING_FIELDS", "RH_RANGE", "SAMPLE_BYTES", "TEMPERATURE_RANGE_K", "ReadOptions",
     "ReadResult", "add_flags", "flags_from_masks", "map_columns", "merge_environment",
     "read_environment", "read_readings", "split_header",

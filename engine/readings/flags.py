@@ -82,12 +82,19 @@ def add_flags(flags: pd.Series, masks: Mapping[str, np.ndarray]) -> pd.Series:
     return _bits_to_flags(bits, index=flags.index)
 
 
-def _duplicated(machine: pd.Series, key: pd.Series) -> np.ndarray:
-    """Second and later rows of the same machine at the same (present) time."""
+def _duplicated(machine: pd.Series, key: pd.Series, *values: np.ndarray) -> np.ndarray:
+    """Second and later rows of the same machine at the same (present) time.
+
+    With ``values`` (speed, current), only rows whose values are the same too: readings
+    written to the minute share a time and are still separate readings.
+    """
     machine_codes, _machines = pd.factorize(machine)
     key_codes, key_values = pd.factorize(key)
-    combined = machine_codes.astype(np.int64) * (len(key_values) + 1) + key_codes
-    return pd.Series(combined).duplicated(keep="first").to_numpy() & (key_codes >= 0)
+    combined = pd.DataFrame({"machine": machine_codes, "key": key_codes})
+    for position, column in enumerate(values):
+        # NaN compares equal here: two empty speeds at one time are the same row twice.
+        combined[f"value{position}"] = np.where(np.isnan(column), np.inf, column)
+    return combined.duplicated(keep="first").to_numpy() & (key_codes >= 0)
 
 
 def _range_masks(rh: np.ndarray, temperature_k: np.ndarray, pressure_pa: np.ndarray
@@ -103,20 +110,23 @@ def _range_masks(rh: np.ndarray, temperature_k: np.ndarray, pressure_pa: np.ndar
     }
 
 
-def _row_list(mask: np.ndarray, most: int = 5) -> str:
+def _row_list(mask: np.ndarray, lines: np.ndarray | None = None, most: int = 5) -> str:
+    """The first rows of a mask as the file counts them (its lines or sheet rows)."""
     rows = np.flatnonzero(mask)
-    shown = ", ".join(str(row + 1) for row in rows[:most])
+    numbers = (rows + 1) if lines is None or len(lines) != len(mask) else np.asarray(lines)[rows]
+    shown = ", ".join(str(int(number)) for number in numbers[:most])
     return shown + (", ..." if len(rows) > most else "")
 
 
-def _flag_summary(masks: Mapping[str, np.ndarray], length: int, source: str) -> list[str]:
+def _flag_summary(masks: Mapping[str, np.ndarray], length: int, source: str,
+                  lines: np.ndarray | None = None, what: str = "line") -> list[str]:
     flagged = np.zeros(length, dtype=bool)
     for mask in masks.values():
         flagged |= mask
     if not flagged.any():
         return [f"{source}: {length} rows, none flagged"]
     parts = [
-        f"{code} {int(mask.sum())} (rows {_row_list(mask)})"
+        f"{code} {int(mask.sum())} ({what}s {_row_list(mask, lines)})"
         for code, mask in ((code, masks[code]) for code in FLAG_CODES if code in masks)
         if mask.any()
     ]
@@ -124,5 +134,3 @@ def _flag_summary(masks: Mapping[str, np.ndarray], length: int, source: str) -> 
         f"{source}: {int(flagged.sum())} of {length} rows flagged and left out of fits (they "
         f"are kept and shown): " + "; ".join(parts)
     ]
-
-

@@ -7,7 +7,6 @@ import unicodedata
 from collections.abc import Iterable, Mapping, Sequence
 
 from engine.errors import InputError
-from engine.readings.numbers import _unit_fits
 from engine.readings.options import (
     _IMPLIED_UNITS,
     _NUMERIC_FIELDS,
@@ -19,6 +18,7 @@ from engine.readings.options import (
     _Column,
     _quoted,
 )
+from engine.readings.quantities import _unit_fits
 
 
 def _key(text: str) -> str:

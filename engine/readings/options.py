@@ -5,6 +5,7 @@ from __future__ import annotations
 import codecs
 from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
 from engine.columns import (
@@ -17,6 +18,7 @@ from engine.columns import (
 from engine.errors import InputError
 from engine.units import one_line
 
+#: Most data rows read from one file; a larger file is refused with a clear message.
 MAX_ROWS = 5_000_000
 #: Bytes at the start of a CSV file from which encoding, separator, decimal mark, header and
 #: units row are detected.
@@ -106,10 +108,6 @@ _FIELD_COLUMN = {
     "current": CURRENT_A, "rh": RH, "temperature": TEMPERATURE_K, "pressure": PRESSURE_PA,
     "voltage": VOLTAGE_V,
 }
-#: Cell texts read as an empty value in numeric columns.
-NUMERIC_NA_TEXTS = (
-    "", "NA", "N/A", "n/a", "na", "NaN", "nan", "-", "--", "null", "NULL", "None", "#N/A",
-)
 _SEPARATOR_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}
 # --- Options and result ----------------------------------------------------------------------
 @dataclass
@@ -176,7 +174,15 @@ class ReadResult:
     units : dict of str to str
         Field -> unit text used.
     messages : list of str
-        Notes for the user: what was detected or assumed, columns not used, rows flagged.
+        Notes for the user: what was detected or assumed, columns not used, rows flagged
+        (the decisions among them).
+    decisions : list of str
+        Every decision the reader took, one sentence each: encoding, separator, decimal
+        mark, header row, sheet, number notation and units per column, date order, joined
+        dates, summary lines and repeated headers skipped.
+    lines : numpy.ndarray of int
+        For each row of ``frame``, the line of the file as an editor counts it (1-based,
+        header and notes included), or the row of the sheet for a workbook.
     """
 
     frame: pd.DataFrame
@@ -185,6 +191,8 @@ class ReadResult:
     mapping: dict[str, str]
     units: dict[str, str]
     messages: list[str] = field(default_factory=list)
+    decisions: list[str] = field(default_factory=list)
+    lines: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
 
 def _check_options(options: ReadOptions) -> ReadOptions:
     separator = options.separator
@@ -235,6 +243,14 @@ class _Table:
     format: dict[str, object]
     messages: list[str]
     rows: int
+    #: Physical line (CSV, 1-based as an editor counts) or sheet row of each data row.
+    lines: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    #: What the reader decided about the file, one sentence each (also in ``messages``).
+    decisions: list[str] = field(default_factory=list)
+    #: Lines above the header (a logger's metadata), as text cells.
+    preamble: list[list[str]] = field(default_factory=list)
+    #: First line of the preamble (1-based) for messages.
+    preamble_first_line: int = 1
 
 
 def _quoted(header: object, most: int = 60) -> str:

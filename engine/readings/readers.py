@@ -36,8 +36,8 @@ from engine.readings.flags import (
     flags_from_masks,
 )
 from engine.readings.formats import _read_table
-from engine.readings.numbers import _column_si, _text
 from engine.readings.options import ENVIRONMENT_FIELDS, READING_FIELDS, ReadOptions, ReadResult
+from engine.readings.quantities import _column_si, _text
 from engine.readings.times import _parse_times
 
 
@@ -93,24 +93,30 @@ def read_readings(
                         f"'{options.machine}'")
     else:
         raise InputError(
-            f"{source_name}: has no machine column; add one (header 'machine') or choose the "
-            "machine these readings belong to when importing the file")
+            f"{source_name}: has no machine column; add one (header 'machine'), or say which "
+            "machine the readings belong to: --machine ID on the command line, 'Machine' on "
+            "the Readings page")
     session = _text(table.data.get("session"), length, fill=options.session or "")
     note = _text(table.data.get("note"), length, strip=False)
 
     masks: dict[str, np.ndarray] = {}
     values: dict[str, np.ndarray] = {}
     not_number = np.zeros(length, dtype=bool)
-    speed, speed_text, speed_kind = _column_si(
-        "speed", table, options, source_name, decimal, units_used, messages)
-    current, current_text, _ = _column_si(
-        "current", table, options, source_name, decimal, units_used, messages)
+    unit_mismatch = np.zeros(length, dtype=bool)
+    decisions = table.decisions
+    speed, speed_text, speed_unit, speed_kind = _column_si(
+        "speed", table, options, source_name, decimal, units_used, messages, decisions)
+    current, current_text, current_unit, _ = _column_si(
+        "current", table, options, source_name, decimal, units_used, messages, decisions)
     not_number |= speed_text | current_text
+    unit_mismatch |= speed_unit | current_unit
     for field_name in ("rh", "temperature", "pressure", "voltage"):
         if field_name in table.columns:
-            values[field_name], text_mask, _ = _column_si(
-                field_name, table, options, source_name, decimal, units_used, messages)
+            values[field_name], text_mask, unit_mask, _ = _column_si(
+                field_name, table, options, source_name, decimal, units_used, messages,
+                decisions)
             not_number |= text_mask
+            unit_mismatch |= unit_mask
         else:
             values[field_name] = np.full(length, np.nan)
 
@@ -118,8 +124,12 @@ def read_readings(
                          decimal, source_name, units_used, messages)
 
     masks["not_a_number"] = not_number
-    masks["missing_value"] = (np.isnan(speed) & ~speed_text) | (np.isnan(current) & ~current_text)
-    masks["negative"] = (speed < 0) | (current < 0)
+    masks["unit_mismatch"] = unit_mismatch
+    masks["missing_value"] = ((np.isnan(speed) & ~speed_text & ~speed_unit)
+                              | (np.isnan(current) & ~current_text & ~current_unit))
+    # Only a negative speed is wrong in itself; a negative current is judged later against
+    # the meter's tolerance (engine.analysis), as a reading near zero may be slightly below.
+    masks["negative"] = speed < 0
     masks["zero_speed"] = speed == 0
     masks.update(_range_masks(values["rh"], values["temperature"], values["pressure"]))
     key = times.time if times.absolute else pd.Series(times.elapsed_s)
@@ -128,7 +138,13 @@ def read_readings(
     session_codes, session_names = pd.factorize(pd.Series(session))
     machine_codes, _machine_names = pd.factorize(pd.Series(machine))
     group = pd.Series(machine_codes.astype(np.int64) * (len(session_names) + 1) + session_codes)
-    masks["duplicate_time"] = _duplicated(group, key)
+    masks["duplicate_time"] = _duplicated(group, key, speed, current)
+    shared = _duplicated(group, key) & ~masks["duplicate_time"]
+    if shared.any():
+        decisions.append(
+            f"{source_name}: {int(shared.sum())} reading(s) share their time with another "
+            "reading of the same machine but have other values: the times are coarse (written "
+            "to the minute or second), so these are separate readings and are kept")
     masks["bad_time"] = times.bad
 
     frame = pd.DataFrame({
@@ -151,10 +167,17 @@ def read_readings(
         f"{source_name}: speed read as "
         + ("a rotation rate" if speed_kind == "rotation" else "a linear (belt) speed")
         + f" in {units_used['speed']}")
-    messages.extend(_flag_summary(masks, length, source_name))
+    messages.extend(decision for decision in decisions if decision not in messages)
+    messages.extend(_flag_summary(masks, length, source_name, table.lines, _what(table)))
     file_format = {**table.format, "time_format": times.label, "day_first": times.day_first}
     mapping = {name: column.header for name, column in table.columns.items()}
-    return ReadResult(frame, source_name, file_format, mapping, units_used, messages)
+    return ReadResult(frame, source_name, file_format, mapping, units_used, messages,
+                      list(decisions), np.asarray(table.lines, dtype=np.int64))
+
+
+def _what(table) -> str:
+    """How a data row is named in messages: a line of a text file, a row of a sheet."""
+    return "row" if table.format.get("file_type") == "xlsx" else "line"
 
 
 def read_environment(
@@ -195,12 +218,15 @@ def read_environment(
     values: dict[str, np.ndarray] = {}
     for field_name in ("rh", "temperature", "pressure"):
         if field_name in table.columns:
-            values[field_name], not_number, _ = _column_si(
-                field_name, table, options, source_name, decimal, units_used, messages)
-            if not_number.any():
+            values[field_name], not_number, unit_mask, _ = _column_si(
+                field_name, table, options, source_name, decimal, units_used, messages,
+                table.decisions)
+            if not_number.any() or unit_mask.any():
+                bad = not_number | unit_mask
                 messages.append(
-                    f"{source_name}: {int(not_number.sum())} {field_name} value(s) are not "
-                    f"numbers (rows {_row_list(not_number)}); they were left empty")
+                    f"{source_name}: {int(bad.sum())} {field_name} value(s) are not "
+                    f"numbers of {field_name} ({_what(table)}s "
+                    f"{_row_list(bad, table.lines)}); they were left empty")
         else:
             values[field_name] = np.full(length, np.nan)
     times = _parse_times(table.data.get("time"), table.data.get("date"), table, options,
@@ -209,14 +235,16 @@ def read_environment(
         times.elapsed_s))
     if unreadable.any():
         messages.append(
-            f"{source_name}: {int(unreadable.sum())} log row(s) have no readable time (rows "
-            f"{_row_list(unreadable)}); no reading can be matched to them")
+            f"{source_name}: {int(unreadable.sum())} log row(s) have no readable time "
+            f"({_what(table)}s {_row_list(unreadable, table.lines)}); no reading can be "
+            "matched to them")
     out_of_range = _range_masks(values["rh"], values["temperature"], values["pressure"])
     for code, mask in out_of_range.items():
         if mask.any():
             messages.append(
-                f"{source_name}: {int(mask.sum())} log row(s) have {FLAG_CODES[code]} (rows "
-                f"{_row_list(mask)}); readings that receive them will be flagged {code}")
+                f"{source_name}: {int(mask.sum())} log row(s) have {FLAG_CODES[code]} "
+                f"({_what(table)}s {_row_list(mask, table.lines)}); readings that receive "
+                f"them will be flagged {code}")
     frame = pd.DataFrame({
         ROW: np.arange(1, length + 1, dtype=np.int64),
         TIME: times.time,
@@ -225,8 +253,10 @@ def read_environment(
         TEMPERATURE_K: values["temperature"],
         PRESSURE_PA: values["pressure"],
     }, columns=list(ENVIRONMENT_COLUMNS))
+    messages.extend(decision for decision in table.decisions if decision not in messages)
     file_format = {**table.format, "time_format": times.label, "day_first": times.day_first}
     mapping = {name: column.header for name, column in table.columns.items()}
-    return ReadResult(frame, source_name, file_format, mapping, units_used, messages)
+    return ReadResult(frame, source_name, file_format, mapping, units_used, messages,
+                      list(table.decisions), np.asarray(table.lines, dtype=np.int64))
 
 

@@ -12,8 +12,8 @@ import numpy as np
 import pandas as pd
 
 from engine.errors import InputError
-from engine.readings.numbers import _numbers, _scaled, _text
 from engine.readings.options import ReadOptions, _quoted, _Table
+from engine.readings.quantities import _numbers, _scaled, _text
 from engine.units import unit_conversion
 
 # --- Times ------------------------------------------------------------------------------------
