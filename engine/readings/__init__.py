@@ -60,7 +60,7 @@ Layout of the package (one module per concern, one contract: ``read_readings`` a
 
 from engine.readings.flags import add_flags, flags_from_masks
 from engine.readings.headers import map_columns, split_header
-from engine.readings.merge import merge_environment
+from engine.readings.merge import LogClock, check_log_clock, merge_environment
 from engine.readings.options import (
     ALIASES,
     DEFAULT_TOLERANCE_S,
@@ -81,9 +81,28 @@ from engine.readings.options import (
 from engine.readings.readers import read_environment, read_readings
 
 __all__ = [
-    "ALIASES", "DEFAULT_TOLERANCE_S", "DEFAULT_UNITS", "ENVIRONMENT_FIELDS", "HEADER_SEARCH_ROWS",
-    "MAX_ROWS", "MAX_SHEET_CELLS", "MAX_SHEET_COLUMNS", "PRESSURE_RANGE_PA",
-    "READING_FIELDS", "RH_RANGE", "SAMPLE_BYTES", "TEMPERATURE_RANGE_K", "ReadOptions",
-    "ReadResult", "add_flags", "flags_from_masks", "map_columns", "merge_environment",
-    "read_environment", "read_readings", "split_header",
+    "ALIASES",
+    "DEFAULT_TOLERANCE_S",
+    "DEFAULT_UNITS",
+    "ENVIRONMENT_FIELDS",
+    "HEADER_SEARCH_ROWS",
+    "LogClock",
+    "MAX_ROWS",
+    "MAX_SHEET_CELLS",
+    "MAX_SHEET_COLUMNS",
+    "PRESSURE_RANGE_PA",
+    "READING_FIELDS",
+    "RH_RANGE",
+    "ReadOptions",
+    "ReadResult",
+    "SAMPLE_BYTES",
+    "TEMPERATURE_RANGE_K",
+    "add_flags",
+    "check_log_clock",
+    "flags_from_masks",
+    "map_columns",
+    "merge_environment",
+    "read_environment",
+    "read_readings",
+    "split_header",
 ]

@@ -217,8 +217,10 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
     records = _records(text, separator)
     header_index = _find_header_row(records, wanted, options.mapping)
     headers = [cell.strip() for cell in records[header_index]] if records else []
-    columns = _columns_of(headers, options.mapping, wanted, inp.name)
-    _check_usable(inp.name, headers, columns, wanted)
+    column_notes: list[str] = []
+    columns = _columns_of(headers, options.mapping, wanted, inp.name, column_notes)
+    _check_usable(inp.name, headers, columns, wanted, column_notes)
+    decisions.extend(column_notes)
     units_row = options.units_row
     below = records[header_index + 1] if len(records) > header_index + 1 else None
     if units_row is None:
@@ -369,9 +371,11 @@ def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tab
     records = _sheet_records(raw.head(HEADER_SEARCH_ROWS + 2))
     header_index = _find_header_row(records, wanted, options.mapping)
     headers = records[header_index]
+    column_notes: list[str] = []
     try:
-        columns = _columns_of(headers, options.mapping, wanted, inp.name)
-        _check_usable(inp.name, headers, columns, wanted)
+        columns = _columns_of(headers, options.mapping, wanted, inp.name, column_notes)
+        _check_usable(inp.name, headers, columns, wanted, column_notes)
+        decisions.extend(column_notes)
     except InputError as error:
         if len(sheets) > 1:
             raise InputError(

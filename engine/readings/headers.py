@@ -19,6 +19,7 @@ from engine.readings.options import (
     _quoted,
 )
 from engine.readings.quantities import _unit_fits
+from engine.units import one_line, unit_conversion
 
 
 def _key(text: str) -> str:
@@ -43,6 +44,7 @@ _ALIAS_INDEX = _build_alias_index()
 # --- Headers and units ------------------------------------------------------------------------
 _BRACKET_UNIT = re.compile(r"^(.*?)\s*[\[(]\s*([^\[\]()]*?)\s*[\])]\s*$")
 _PERCENT_UNIT = re.compile(r"^(.*?\S)\s*%$")
+_LEADING_PERCENT = re.compile(r"^%\s*([A-Za-z].*)$")
 _TRAILING_UNIT = re.compile(r"^(.*?\S)[\s_]+(\S+)$")
 
 
@@ -66,6 +68,9 @@ def split_header(header: object) -> tuple[str, str | None]:
     match = _PERCENT_UNIT.match(text)
     if match:
         return match.group(1), "%"
+    match = _LEADING_PERCENT.match(text)
+    if match:
+        return match.group(1), "%"
     return text, None
 
 
@@ -87,7 +92,36 @@ def _match_header(header: str, wanted: Iterable[str]) -> tuple[str, str | None] 
             if (field_name in wanted and field_name in _NUMERIC_FIELDS
                     and _unit_fits(field_name, match.group(2))):
                 return field_name, match.group(2)
+        if "/" in name and not name.startswith("/"):
+            # The printed-table convention: quantity / unit (I/uA, n/rpm, t/s, T/°C).
+            left, right = (part.strip() for part in name.split("/", 1))
+            found = _match_header(f"{left} [{right}]", wanted) if left and right else None
+            if found and found[1] is not None and _slash_unit_fits(found[0], found[1]):
+                return found
     return None
+
+
+def _slash_unit_fits(field_name: str, unit: str) -> bool:
+    if field_name in _NUMERIC_FIELDS:
+        return _unit_fits(field_name, unit)
+    if field_name == "time":
+        try:
+            unit_conversion(unit, "duration", "time")
+        except InputError:
+            return False
+        return True
+    return False
+
+
+def _field_by_unit(header: str, wanted: Iterable[str]) -> list[str]:
+    """The numeric fields whose unit a header of no known name carries (``CH1 (rpm)``)."""
+    name, unit = split_header(header)
+    if unit is None and "/" in name:
+        name, _slash, unit = name.partition("/")
+    if not unit or not name.strip():
+        return []
+    return [field_name for field_name in _NUMERIC_FIELDS
+            if field_name in wanted and _unit_fits(field_name, unit.strip())]
 
 
 def _columns_of(
@@ -95,6 +129,7 @@ def _columns_of(
     mapping: Mapping[str, str | None] | None,
     wanted: Sequence[str],
     source: str,
+    notes: list[str] | None = None,
 ) -> dict[str, _Column]:
     columns: dict[str, _Column] = {}
     claimed: set[int] = set()
@@ -127,6 +162,38 @@ def _columns_of(
         match = _match_header(header, wanted)
         if match and match[0] not in columns:
             columns[match[0]] = _Column(position, header, match[1])
+            claimed.add(position)
+        elif match:
+            claimed.add(position)
+    # Headers of no known name (a logger's channels, CH1 (rpm)) are matched by their unit
+    # when exactly one of them carries a unit of a field still missing.
+    by_field: dict[str, list[int]] = {}
+    for position, header in enumerate(headers):
+        if position in claimed or not str(header).strip():
+            continue
+        for field_name in _field_by_unit(header, wanted):
+            if field_name not in columns:
+                by_field.setdefault(field_name, []).append(position)
+    for field_name, positions in by_field.items():
+        if len(positions) == 1 and all(
+                positions[0] not in other for name, other in by_field.items()
+                if name != field_name):
+            position = positions[0]
+            name, unit = split_header(headers[position])
+            if unit is None:
+                unit = name.partition("/")[2].strip()
+            columns[field_name] = _Column(position, headers[position], unit)
+            if notes is not None:
+                notes.append(
+                    f"{source}: column {_quoted(headers[position])} taken as the {field_name} "
+                    f"by its unit ({one_line(unit)}); if that is wrong, say which column is "
+                    f"which with --column {field_name}=HEADER ('Columns' on the Readings page)")
+        elif notes is not None:
+            shown = " and ".join(_quoted(headers[position]) for position in positions[:4])
+            notes.append(
+                f"{source}: columns {shown} could each be the {field_name} (same kind of "
+                f"unit); say which with --column {field_name}=HEADER (on the Readings page: "
+                f"'column for {field_name}')")
     return columns
 
 
@@ -223,7 +290,8 @@ def _find_header_row(
 
 
 def _check_usable(
-    source: str, headers: Sequence[str], columns: Mapping[str, _Column], wanted: Sequence[str]
+    source: str, headers: Sequence[str], columns: Mapping[str, _Column], wanted: Sequence[str],
+    notes: Sequence[str] = (),
 ) -> None:
     if set(wanted) == set(ENVIRONMENT_FIELDS):
         needed_ok = ("time" in columns or "date" in columns) and any(
@@ -239,8 +307,11 @@ def _check_usable(
         raise InputError(
             f"{source}: no usable columns: it needs {needed}. Its header is "
             f"{shown or '(empty)'}" + (f"; recognised: {found}" if found else "")
-            + ". Rename the headers (e.g. 'speed [rpm]', 'current [uA]') or give a column "
-            "mapping"
+            + ". Rename the headers (e.g. 'speed [rpm]', 'current [uA]') or say which column "
+            "is which with --column FIELD=HEADER (e.g. --column speed=CH1; 'Columns' on the "
+            "Readings page)"
+            + "".join(f". {note.removeprefix(source + ': ')}" for note in notes
+                      if "could each be" in note)
         )
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -24,7 +25,8 @@ from engine.readings.options import DEFAULT_TOLERANCE_S
 
 # --- Environment merge -------------------------------------------------------------------------
 def merge_environment(
-    readings: pd.DataFrame, environment: pd.DataFrame, tolerance_s: float = DEFAULT_TOLERANCE_S
+    readings: pd.DataFrame, environment: pd.DataFrame, tolerance_s: float = DEFAULT_TOLERANCE_S,
+    log_offset_s: float = 0.0,
 ) -> pd.DataFrame:
     """Put the air of an environment log onto readings, by nearest time within a tolerance.
 
@@ -36,6 +38,9 @@ def merge_environment(
         A log with :data:`engine.columns.ENVIRONMENT_COLUMNS`.
     tolerance_s : float
         Largest time between a reading and the log entry used for it [s]; default 300.
+    log_offset_s : float
+        Added to the log's times before matching [s]: ``3600`` for a log whose clock is an
+        hour behind the readings' (see :func:`check_log_clock`, which finds it). Default 0.
 
     Returns
     -------
@@ -73,7 +78,14 @@ def merge_environment(
             "cannot merge: missing columns "
             + ", ".join([*(f"readings.{c}" for c in missing),
                          *(f"log.{c}" for c in missing_log)]))
+    try:
+        offset = float(log_offset_s)
+    except (TypeError, ValueError):
+        raise InputError(f"log offset {log_offset_s!r} is not a number of seconds") from None
+    if not math.isfinite(offset):
+        raise InputError(f"log offset must be a finite number of seconds, got {log_offset_s!r}")
     reading_key, log_key = _merge_keys(readings, environment)
+    log_key = log_key + offset
     length = len(readings)
     result = readings.copy()
     log_values = {column: np.full(length, np.nan) for column in (RH, TEMPERATURE_K, PRESSURE_PA)}
@@ -102,7 +114,10 @@ def merge_environment(
         filled[column] = fill
         result[column] = np.where(fill, log_column, own)
     final_rh = result[RH].to_numpy(dtype=float)
-    masks["no_environment"] = own_rh_missing & np.isnan(final_rh)
+    matched = ~np.isnan(log_values[RH]) | ~np.isnan(log_values[TEMPERATURE_K]) | ~np.isnan(
+        log_values[PRESSURE_PA])
+    # A log that reaches no reading at all is said once (check_log_clock), not on every row.
+    masks["no_environment"] = own_rh_missing & np.isnan(final_rh) & bool(matched.any())
     ranges = _range_masks(final_rh, result[TEMPERATURE_K].to_numpy(dtype=float),
                           result[PRESSURE_PA].to_numpy(dtype=float))
     masks["rh_out_of_range"] = ranges["rh_out_of_range"] & filled[RH]
@@ -152,3 +167,107 @@ def _merge_keys(readings: pd.DataFrame, environment: pd.DataFrame
 def _seconds_since_epoch(times: pd.Series) -> np.ndarray:
     epoch = pd.Timestamp("1970-01-01", tz="UTC" if times.dt.tz is not None else None)
     return ((times - epoch) / pd.Timedelta(seconds=1)).to_numpy(dtype=float, na_value=np.nan)
+
+
+#: Whole-hour clock offsets tried between a log and the readings [h].
+LOG_OFFSETS_H = tuple(range(-12, 13))
+
+
+@dataclass
+class LogClock:
+    """How a log's clock lines up with the readings'.
+
+    Attributes
+    ----------
+    matched : int
+        Readings with a log entry within the tolerance, as the clocks stand.
+    suggested_offset_s : float or None
+        A whole number of hours [s] to add to the log's times that matches clearly more
+        readings (a logger left on winter time), or ``None``.
+    matched_with_offset : int
+        Readings matched with the suggested offset.
+    messages : list of str
+        What the user should know: the offset to give, or that the log does not overlap.
+    """
+
+    matched: int
+    suggested_offset_s: float | None
+    matched_with_offset: int
+    messages: list[str]
+
+
+def check_log_clock(
+    readings: pd.DataFrame, environment: pd.DataFrame,
+    tolerance_s: float = DEFAULT_TOLERANCE_S, source: str = "the log",
+) -> LogClock:
+    """Whether a log's clock is off from the readings' by whole hours, or misses them.
+
+    Parameters
+    ----------
+    readings : pandas.DataFrame
+        Readings with :data:`engine.columns.READING_COLUMNS`.
+    environment : pandas.DataFrame
+        A log with :data:`engine.columns.ENVIRONMENT_COLUMNS`.
+    tolerance_s : float
+        The merge's tolerance [s].
+    source : str
+        The log's name, for messages.
+
+    Returns
+    -------
+    LogClock
+        The readings matched now and with the best whole-hour offset, and the messages.
+        Nothing is applied: the caller offers the offset (``--log-offset``, the Readings
+        page) and passes it to :func:`merge_environment`.
+
+    Notes
+    -----
+    For each whole-hour offset from -12 h to +12 h the readings with a log entry within the
+    tolerance are counted (a sorted search per offset). An offset is suggested when it
+    matches at least 90 % of the readings and more than the clocks as they stand.
+    """
+    reading_key, log_key = _merge_keys(readings, environment)
+    reading_key = reading_key[~np.isnan(reading_key)]
+    log_key = np.sort(log_key[~np.isnan(log_key)])
+    if reading_key.size == 0 or log_key.size == 0:
+        return LogClock(0, None, 0, [])
+    tolerance = float(tolerance_s)
+
+    def matched(offset_s: float) -> int:
+        shifted = log_key + offset_s
+        position = np.clip(np.searchsorted(shifted, reading_key), 1, len(shifted) - 1)
+        if len(shifted) == 1:
+            nearest = np.abs(reading_key - shifted[0])
+        else:
+            nearest = np.minimum(np.abs(reading_key - shifted[position - 1]),
+                                 np.abs(reading_key - shifted[position]))
+        return int((nearest <= tolerance).sum())
+
+    counts = {hours: matched(hours * 3600.0) for hours in LOG_OFFSETS_H}
+    now = counts[0]
+    best = max(LOG_OFFSETS_H, key=lambda hours: (counts[hours], -abs(hours)))
+    messages: list[str] = []
+    suggested = None
+    if best != 0 and counts[best] > now and counts[best] >= 0.9 * reading_key.size:
+        suggested = best * 3600.0
+        behind = "behind" if best > 0 else "ahead of"
+        messages.append(
+            f"{source}: its clock seems {abs(best)} hour(s) {behind} the readings' (daylight "
+            f"saving?): as the clocks stand {now} of {reading_key.size} readings find a log "
+            f"entry, with {best:+d} h {counts[best]}. Not applied: to use it, give "
+            f"--log-offset '{best:+d} h' on the command line, or choose it on the Readings page")
+    if now == 0:
+        messages.append(
+            f"{source}: the log does not overlap the readings (log "
+            f"{_span(environment, log_key)}, readings {_span(readings, reading_key)}): no "
+            "reading gets its air from it" + ("" if suggested is not None else
+                                               "; check that it is the log of this session"))
+    return LogClock(now, suggested, counts[best] if suggested is not None else now, messages)
+
+
+def _span(frame: pd.DataFrame, keys: np.ndarray) -> str:
+    """First and last time of a frame's keys, as the user wrote them (clock or elapsed)."""
+    times = pd.to_datetime(frame[TIME], errors="coerce").dropna()
+    if not times.empty:
+        return f"{times.min():%Y-%m-%d %H:%M} to {times.max():%Y-%m-%d %H:%M}"
+    return f"{np.nanmin(keys):g} s to {np.nanmax(keys):g} s"

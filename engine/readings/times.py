@@ -25,6 +25,8 @@ _DMY_RE = (r"^(\d{1,2})([./-])(\d{1,2})[./-](\d{4}|\d{2})"
 _CLOCK_RE = r"^(\d{1,2}):(\d{2})(?::(\d{2})(?:[.,](\d{1,6}))?)?$"
 _NUMBER_RE = r"^[+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][+-]?\d+)?$"
 _SAMPLE_TIMES = 2000
+_DATE_ORDER_FIX = ("If that is wrong, choose the order: --day-first or --month-first on the "
+                   "command line, 'Dates such as 03/04/2026' on the Readings page")
 
 
 @dataclass
@@ -166,14 +168,13 @@ def _parse_numeric_dates(
             day_first = True
             messages.append(
                 f"{source}: some dates have the day first and others the month first; read "
-                "day first, the others are bad_time. Set day_first if that is wrong")
+                f"day first, the others are bad_time. {_DATE_ORDER_FIX}")
         else:
             day_first = True
             example = text[present].iloc[0]
             messages.append(
-                f"{source}: dates such as '{example}' are ambiguous (no day above 12); "
-                "read day first (day/month/year). If they are month first, say so (option "
-                "day_first = false)")
+                f"{source}: dates such as '{example}' are ambiguous (no day above 12 in the "
+                f"whole column); read day first (day/month/year). {_DATE_ORDER_FIX}")
     else:
         messages.append(
             f"{source}: dates read {'day' if day_first else 'month'} first, as asked")
@@ -229,6 +230,17 @@ def _parse_times(
     raw: pd.Series | None, raw_date: pd.Series | None, table: _Table, options: ReadOptions,
     decimal: str, source: str, units_used: dict[str, str], messages: list[str],
 ) -> _Times:
+    """Times of the rows; every note on how they were read is also a decision."""
+    before = len(messages)
+    times = _read_times(raw, raw_date, table, options, decimal, source, units_used, messages)
+    table.decisions.extend(messages[before:])
+    return times
+
+
+def _read_times(
+    raw: pd.Series | None, raw_date: pd.Series | None, table: _Table, options: ReadOptions,
+    decimal: str, source: str, units_used: dict[str, str], messages: list[str],
+) -> _Times:
     length = table.rows
     nothing = np.zeros(length, dtype=bool)
     if raw is None and raw_date is None:
@@ -248,9 +260,12 @@ def _parse_times(
                 f"{source}: the units row gives {_quoted(table.unit_cells[time_field])} for the "
                 "time; not a duration, a time zone or a date layout, so it was not used")
     kind, hint = _time_hint(unit, source, column.header)
+    rollover = False
     day_first = options.day_first
     if kind == "format" and day_first is None:
         day_first = hint  # type: ignore[assignment]
+    if raw is not None and table.format.get("file_type") == "xlsx" and kind != "duration":
+        raw = _day_fractions_as_clock(raw, source, messages)
     if raw is not None and raw_date is not None:
         date_text = _text(raw_date, length).str.replace(r"[ T]00:00:00$", "", regex=True)
         time_text = _text(raw, length)
@@ -288,6 +303,19 @@ def _parse_times(
         elapsed, overflow = _scaled(values, float(scale))  # type: ignore[arg-type]
         return _Times(_empty_times(length), elapsed, not_number | overflow, "elapsed seconds",
                       None, False)
+    if family == "clock" and raw_date is None:
+        found = _preamble_date(table)
+        if found is not None:
+            date_text, line = found
+            messages.append(
+                f"{source}: the rows give only a time of day; joined with the date "
+                f"'{date_text}' from line {line} above the header (times that go back past "
+                "midnight are on the next day)")
+            joined = (date_text + " " + text).where(present)
+            family = _classify(joined[present].head(_SAMPLE_TIMES))
+            text = joined
+            if family in ("iso", "numeric_date"):
+                rollover = True
     if family == "clock":
         elapsed = _parse_clock(text)
         messages.append(
@@ -317,7 +345,50 @@ def _parse_times(
             f"{source}: the times are in no common format; each was read on its own. "
             "ISO 8601 (2024-03-01 14:05:00) is safer")
     bad = (present & times.isna().to_numpy(dtype=bool)) | bad_zone
+    if rollover:
+        times = _past_midnight(pd.Series(times).reset_index(drop=True))
     return _finish_times(times, bad, label, used_day_first, kind, hint, source, messages)
+
+
+def _past_midnight(times: pd.Series) -> pd.Series:
+    """Times of day joined with one date: a step back of more than 12 h is the next day."""
+    steps = times.diff().fillna(pd.Timedelta(0))
+    backwards = (steps < -pd.Timedelta(hours=12)).to_numpy(dtype=np.int64)
+    days = np.cumsum(backwards)
+    if not days.any():
+        return times
+    return times + pd.to_timedelta(days, unit="D")
+
+
+_PREAMBLE_DATE = re.compile(
+    r"(?<!\d)(\d{4}-\d{2}-\d{2}|\d{1,2}[./-]\d{1,2}[./-](?:\d{4}|\d{2}))(?![\d:])")
+
+
+def _preamble_date(table: _Table) -> tuple[str, int] | None:
+    """The first date written in the lines above the header, and its line."""
+    for offset, record in enumerate(table.preamble):
+        for cell in record:
+            found = _PREAMBLE_DATE.search(str(cell))
+            if found:
+                return found.group(1), table.preamble_first_line + offset
+    return None
+
+
+def _day_fractions_as_clock(raw: pd.Series, source: str, messages: list[str]) -> pd.Series:
+    """Spreadsheet times stored as fractions of a day (0.4375 = 10:30) as clock text."""
+    values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    numbers = np.isfinite(values)
+    if not numbers.any() or numbers.sum() < raw.notna().sum():
+        return raw
+    if values[numbers].min() < 0 or values[numbers].max() >= 1:
+        return raw
+    seconds = np.round(values * 86_400.0, 6)
+    clock = (pd.Timestamp("2000-01-01") + pd.to_timedelta(seconds, unit="s"))
+    text = pd.Series(clock).dt.strftime("%H:%M:%S.%f").where(numbers)
+    messages.append(
+        f"{source}: the times are spreadsheet fractions of a day (0.5 = 12:00): read as "
+        "times of day")
+    return text.set_axis(raw.index)
 
 
 def _finish_times(
