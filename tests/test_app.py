@@ -190,7 +190,11 @@ def test_import_readings_with_a_humidity_log(empty_lab):
     mapping = table_with(app, "column in the file")
     assert {"machine", "time", "speed", "current"} <= set(mapping["field"])
     flag_counts = table_with(app, "meaning")
-    assert set(flag_counts["flag"]) >= {"missing_value", "negative", "duplicate_time"}
+    # (a negative current is judged by analysis, not flagged by the reader; the sample's
+    # repeated time stamps carry other values: coarse times, not duplicates)
+    assert set(flag_counts["flag"]) >= {"missing_value"}
+    decisions = table_with(app, "decision")["decision"].tolist()
+    assert any("read as CSV" in text and "day.csv" in text for text in decisions)
     app.text_input(key="readings-name").input("damp day").run()
     app.button(key="readings-save").click().run()
     assert "Saved 1,152 readings as 'damp day'" in texts(app)

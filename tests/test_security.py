@@ -473,7 +473,7 @@ GOOD_READINGS = b"machine,time,speed [rpm],current [uA]\nd,2026-02-03T09:00,300,
     (GOOD_MACHINES.replace("46 cm", "46 kg"), GOOD_READINGS, ".csv", "needs a length"),
     (GOOD_MACHINES.replace("46 cm", "46 cm)"), GOOD_READINGS, ".csv", "not a unit"),
     (GOOD_MACHINES, GOOD_READINGS.replace(b"[uA]", b"[kg]"), ".csv", "does not fit"),
-    (GOOD_MACHINES, GOOD_READINGS.decode().encode("utf-16"), ".csv", "UTF-16"),
+    (GOOD_MACHINES, GOOD_READINGS.decode().encode("utf-32"), ".csv", "binary data"),
     (GOOD_MACHINES, far_cell_workbook(1_048_576, 16_384), ".xlsx", "beyond column"),
     (GOOD_MACHINES, b"PK\x03\x04" + bytes(200), ".xlsx", "not a readable XLSX"),
 ])

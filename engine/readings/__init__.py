@@ -59,6 +59,7 @@ Layout of the package (one module per concern, one contract: ``read_readings`` a
 """
 
 from engine.readings.flags import add_flags, flags_from_masks
+from engine.readings.formats import workbook_sheets
 from engine.readings.headers import map_columns, split_header
 from engine.readings.merge import LogClock, check_log_clock, merge_environment
 from engine.readings.options import (
@@ -105,4 +106,5 @@ __all__ = [
     "read_environment",
     "read_readings",
     "split_header",
+    "workbook_sheets",
 ]

@@ -220,7 +220,6 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
     column_notes: list[str] = []
     columns = _columns_of(headers, options.mapping, wanted, inp.name, column_notes)
     _check_usable(inp.name, headers, columns, wanted, column_notes)
-    decisions.extend(column_notes)
     units_row = options.units_row
     below = records[header_index + 1] if len(records) > header_index + 1 else None
     if units_row is None:
@@ -286,6 +285,7 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
         + (" (the lines above it are notes, not readings)" if header_index else "")
         + (f", units on line {header_index + 2}" if units_row else "")
     )
+    decisions.extend(column_notes)
     file_format = {
         "file_type": "csv", "separator": separator, "decimal": decimal, "encoding": encoding,
         "units_row": bool(units_row), "sheet": None, "header_row": header_index + 1,
@@ -375,7 +375,6 @@ def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tab
     try:
         columns = _columns_of(headers, options.mapping, wanted, inp.name, column_notes)
         _check_usable(inp.name, headers, columns, wanted, column_notes)
-        decisions.extend(column_notes)
     except InputError as error:
         if len(sheets) > 1:
             raise InputError(
@@ -399,6 +398,7 @@ def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tab
         + (" (the rows above it are titles or notes, not readings)" if header_index else "")
         + (", units in the row below it" if units_row else "")
     )
+    decisions.extend(column_notes)
     file_format = {
         "file_type": "xlsx", "separator": None, "decimal": options.decimal, "encoding": None,
         "units_row": bool(units_row), "sheet": sheet,
@@ -410,6 +410,35 @@ def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tab
                   messages + decisions + found.decisions + found.messages, len(found.lines),
                   found.lines, decisions + found.decisions, records[:header_index],
                   int(row_numbers[0]) if len(row_numbers) else 1)
+
+
+def workbook_sheets(source: str | os.PathLike | bytes | BinaryIO, name: str | None = None
+                    ) -> list[str]:
+    """The sheet names of an XLSX workbook, in order; ``[]`` for a file that is not one.
+
+    Parameters
+    ----------
+    source : path, bytes or binary file-like
+        The file.
+    name : str, optional
+        Its name (a name ending in ``.xlsx`` marks a workbook).
+
+    Returns
+    -------
+    list of str
+        The sheets, for a choice of sheet; ``[]`` for CSV text or an unreadable workbook.
+    """
+    try:
+        inp = _load(source, name)
+    except InputError:
+        return []
+    if not inp.sample.startswith(b"PK\x03\x04"):
+        return []
+    try:
+        with pd.ExcelFile(inp.open(), engine="openpyxl") as book:
+            return [str(sheet) for sheet in book.sheet_names]
+    except Exception:  # noqa: BLE001 - a damaged workbook is refused when it is read
+        return []
 
 
 def _sheet_records(head: pd.DataFrame) -> list[list[str]]:

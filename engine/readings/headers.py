@@ -283,6 +283,10 @@ def _find_header_row(
         found = {match[0] for match in (_match_header(cell, wanted) for cell in record) if match}
         if len(found) >= 2:
             return index
+        # A logger's channels (Time, CH1 (rpm), CH2 (uA)) are named by their units only.
+        if len(found) + len(record) >= 3 and len(
+                _columns_of([str(cell) for cell in record], None, wanted, "")) >= 2:
+            return index
     for index, record in enumerate(records):
         if record:
             return index

@@ -17,7 +17,7 @@ from engine.readings.options import (
     _quoted,
     _Table,
 )
-from engine.units import one_line, speed_unit_conversion, unit_conversion
+from engine.units import is_unit, one_line, speed_unit_conversion, unit_conversion
 
 _TEMPERATURE_UNITS = {
     "c": "degC", "degc": "degC", "degreec": "degC", "degreesc": "degC", "celsius": "degC",
@@ -139,8 +139,7 @@ def parse_numbers(series: pd.Series, decimal_hint: str = ".") -> ParsedNumbers:
     if series.dtype == object:
         inferred = pd.api.types.infer_dtype(series, skipna=True)
         if inferred in ("floating", "integer", "mixed-integer-float", "decimal", "empty"):
-            values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float,
-                                                                     na_value=np.nan)
+            values = _to_float(series)
             return _finite_only(ParsedNumbers(values, not_number, unit))
         if inferred != "string":
             lengths = series.map(lambda value: len(value) if isinstance(value, str) else None)
@@ -148,7 +147,7 @@ def parse_numbers(series: pd.Series, decimal_hint: str = ".") -> ParsedNumbers:
         # Mixed cells (a workbook): real numbers as they are, text through the notation rules.
         is_text = lengths.notna().to_numpy(dtype=bool)
         others = series.where(~is_text)
-        numeric = pd.to_numeric(others, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+        numeric = _to_float(others)
         not_number |= others.notna().to_numpy(dtype=bool) & np.isnan(numeric)
         values = np.array(numeric, dtype=float)
         text = series.where(is_text).astype("str")
@@ -162,6 +161,12 @@ def parse_numbers(series: pd.Series, decimal_hint: str = ".") -> ParsedNumbers:
     parts = cells.str.extract(_CELL)
     matched = parts["number"].notna().to_numpy(dtype=bool)
     number = parts["number"].fillna("").str.replace("\u2212", "-", regex=False)
+    # Spaces inside a number group its thousands, three digits each ('1 056,5'), or it is text.
+    spaced = number.str.contains(f"[{_GROUP_SPACES}]", regex=True).to_numpy(dtype=bool)
+    spaced_ok = number.str.fullmatch(
+        rf"[+-]?\d{{1,3}}(?:[{_GROUP_SPACES}]\d{{3}})+(?:[.,]\d*)?(?:[eE][+-]?\d{{1,3}})?"
+    ).to_numpy(dtype=bool)
+    matched = matched & (~spaced | spaced_ok)
     number = number.str.replace(f"[{_GROUP_SPACES}]", "", regex=True)
     exponent = number.str.extract(f"({_EXPONENT})", expand=False).fillna("")
     mantissa = number.str.replace(_EXPONENT, "", regex=True)
@@ -186,6 +191,15 @@ def parse_numbers(series: pd.Series, decimal_hint: str = ".") -> ParsedNumbers:
     if thousands is None and bool(grouped.to_numpy(dtype=bool)[usable].any()):
         thousands = group
     return _finite_only(ParsedNumbers(values, not_number, unit, decimal, thousands, ambiguous))
+
+
+def _to_float(series: pd.Series) -> np.ndarray:
+    """Floats of cells that are numbers already; an integer too large for a float is inf."""
+    try:
+        converted = pd.to_numeric(series, errors="coerce")
+    except (OverflowError, TypeError, ValueError):
+        converted = pd.to_numeric(series.astype("str").where(series.notna()), errors="coerce")
+    return np.array(converted.to_numpy(dtype=float, na_value=np.nan), dtype=float)
 
 
 def _decide_decimal(mantissa: pd.Series, hint: str) -> tuple[str, str | None, bool]:
@@ -340,6 +354,10 @@ def _column_si(
             except InputError:
                 kind = "unfit"
             unit_kind.append(kind)
+        # Text after a number that is no unit at all ('12 abc') is text, not a number.
+        no_unit = np.asarray([kind == "unfit" and not is_unit(_clean_unit(field_name, cell_unit))
+                              for cell_unit, kind in zip(cell_units, unit_kind, strict=True)],
+                             dtype=bool)[codes]
         kinds = np.asarray(unit_kind, dtype=object)[codes]
         if field_name == "speed" and all_cells_carry:
             fitting = kinds[kinds != "unfit"]
@@ -348,7 +366,8 @@ def _column_si(
                 speed_kind = str(kept[np.argmax(counts)])
         wrong = (kinds == "unfit") | ((kinds != speed_kind) if field_name == "speed" else False)
         positions = np.flatnonzero(with_unit)
-        mismatch[positions] = wrong
+        mismatch[positions] = wrong & ~no_unit
+        parsed.not_number[positions] |= no_unit
         scales[positions] = np.where(wrong, np.nan, unit_scale[codes])
         offsets[positions] = np.where(wrong, 0.0, unit_offset[codes])
         fitting_units = [cell_unit for cell_unit, kind in zip(cell_units, unit_kind, strict=True)

@@ -180,7 +180,8 @@ def layout(
         words = sorted({_SUMMARY.match(cell).group(0) for cell in (
             next(c for c in _cells(body.iloc[i]) if c) for i in np.flatnonzero(summary))})
         decisions.append(
-            f"{source}: {what} {_line_list(lines[summary])} at the end are summary lines ("
+            f"{source}: {what} {_line_list(lines[summary])} at the end "
+            + ("is a summary line (" if summary.sum() == 1 else "are summary lines (")
             + ", ".join(f"'{word}'" for word in words) + "), not readings: skipped")
     reading &= ~summary
     if blank.any():

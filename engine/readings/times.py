@@ -13,7 +13,7 @@ import pandas as pd
 
 from engine.errors import InputError
 from engine.readings.options import ReadOptions, _quoted, _Table
-from engine.readings.quantities import _numbers, _scaled, _text
+from engine.readings.quantities import _numbers, _scaled, _text, _to_float
 from engine.units import unit_conversion
 
 # --- Times ------------------------------------------------------------------------------------
@@ -271,6 +271,9 @@ def _read_times(
         time_text = _text(raw, length)
         joined = (date_text + " " + time_text).str.strip()
         raw = joined.where(joined != "")
+        messages.append(
+            f"{source}: date and time joined from the columns "
+            f"{_quoted(table.columns['date'].header)} and {_quoted(column.header)}")
     series = (raw if raw is not None else raw_date).reset_index(drop=True)
     if not series.notna().any():
         messages.append(
@@ -376,15 +379,16 @@ def _preamble_date(table: _Table) -> tuple[str, int] | None:
 
 def _day_fractions_as_clock(raw: pd.Series, source: str, messages: list[str]) -> pd.Series:
     """Spreadsheet times stored as fractions of a day (0.4375 = 10:30) as clock text."""
-    values = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float, na_value=np.nan)
+    if pd.api.types.is_datetime64_any_dtype(raw.dtype):
+        return raw
+    values = _to_float(raw)
     numbers = np.isfinite(values)
-    if not numbers.any() or numbers.sum() < raw.notna().sum():
+    if not numbers.any() or values[numbers].min() < 0 or values[numbers].max() >= 1:
         return raw
-    if values[numbers].min() < 0 or values[numbers].max() >= 1:
-        return raw
-    seconds = np.round(values * 86_400.0, 6)
-    clock = (pd.Timestamp("2000-01-01") + pd.to_timedelta(seconds, unit="s"))
-    text = pd.Series(clock).dt.strftime("%H:%M:%S.%f").where(numbers)
+    seconds = np.round(np.where(numbers, values, 0.0) * 86_400.0, 6)
+    clock = pd.Series(pd.Timestamp("2000-01-01") + pd.to_timedelta(seconds, unit="s"))
+    others = raw.reset_index(drop=True).astype("str").where(raw.reset_index(drop=True).notna())
+    text = clock.dt.strftime("%H:%M:%S.%f").where(numbers, others)
     messages.append(
         f"{source}: the times are spreadsheet fractions of a day (0.5 = 12:00): read as "
         "times of day")
