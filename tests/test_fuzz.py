@@ -299,15 +299,17 @@ def structured_csv(draw, fields=("machine", "session", "time", "speed", "current
             else:
                 cell = draw(st.one_of(LABEL_CELLS, _number_texts(decimal)))
             row.append(cell)
-        if not any(cell.strip() for cell in row):
-            row[0] = "x"  # every data row is non-blank, so every one must come out
-            row_kinds.pop(columns[0][0], None)
         if draw(st.integers(0, 9)) == 0:  # a ragged row: missing or extra trailing fields
             row = row[: draw(st.integers(1, len(row)))] if draw(st.booleans()) else (
                 row + ["extra"] * draw(st.integers(1, 3)))
             if len(row) < len(columns):
                 row_kinds = {name: kind for name, kind in row_kinds.items()
                              if first[name] < len(row)}
+        if not any(cell.strip() for cell in row):
+            # every data row is non-blank, so every one must come out (a line of empty
+            # cells only is not a reading: the reader skips it and says so)
+            row[0] = "x"
+            row_kinds.pop(columns[0][0], None)
         rows.append(row)
         kinds.append(row_kinds)
     buffer = io.StringIO()
