@@ -191,7 +191,8 @@ def test_a_cell_in_the_other_notation_is_flagged_not_misread():
     ("RPM", "µA", "300", 5.0),
 ])
 def test_header_conventions(speed_header, current_header, speed_cell, expected_rev_s):
-    text = f"machine\tt/s\t{speed_header}\t{current_header}\t%RH\tT/°C\nd\t0\t{speed_cell}\t12.5\t45\t20\n"
+    text = (f"machine\tt/s\t{speed_header}\t{current_header}\t%RH\tT/°C\n"
+            f"d\t0\t{speed_cell}\t12.5\t45\t20\n")
     result = read_readings(text.encode("utf-8"), name="headers.tsv")
     assert speeds(result) == pytest.approx([expected_rev_s])
     assert currents_ua(result) == pytest.approx([12.5])

@@ -88,13 +88,28 @@ def _duplicated(machine: pd.Series, key: pd.Series, *values: np.ndarray) -> np.n
     With ``values`` (speed, current), only rows whose values are the same too: readings
     written to the minute share a time and are still separate readings.
     """
+    return _same_time(machine, key, *values)[0 if values else 1]
+
+
+def _same_time(machine: pd.Series, key: pd.Series, *values: np.ndarray
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Rows repeating an earlier row's machine, time and values; and its machine and time."""
     machine_codes, _machines = pd.factorize(machine)
     key_codes, key_values = pd.factorize(key)
-    combined = pd.DataFrame({"machine": machine_codes, "key": key_codes})
-    for position, column in enumerate(values):
-        # NaN compares equal here: two empty speeds at one time are the same row twice.
-        combined[f"value{position}"] = np.where(np.isnan(column), np.inf, column)
-    return combined.duplicated(keep="first").to_numpy() & (key_codes >= 0)
+    pair = pd.Series(machine_codes.astype(np.int64) * (len(key_values) + 1) + key_codes)
+    present = key_codes >= 0
+    same_time = pair.duplicated(keep="first").to_numpy() & present
+    same_values = np.zeros(len(pair), dtype=bool)
+    if values and same_time.any():
+        # Only rows whose machine and time recur can repeat a row: compare their values.
+        shared = np.flatnonzero(pair.duplicated(keep=False).to_numpy() & present)
+        combined = pd.DataFrame({"pair": pair.to_numpy()[shared]})
+        for position, column in enumerate(values):
+            part = np.asarray(column, dtype=float)[shared]
+            # NaN compares equal here: two empty speeds at one time are the same row twice.
+            combined[f"value{position}"] = np.where(np.isnan(part), np.inf, part)
+        same_values[shared] = combined.duplicated(keep="first").to_numpy()
+    return same_values, same_time
 
 
 def _range_masks(rh: np.ndarray, temperature_k: np.ndarray, pressure_pa: np.ndarray

@@ -29,10 +29,10 @@ from engine.columns import (
 )
 from engine.errors import InputError
 from engine.readings.flags import (
-    _duplicated,
     _flag_summary,
     _range_masks,
     _row_list,
+    _same_time,
     flags_from_masks,
 )
 from engine.readings.formats import _read_table
@@ -138,8 +138,8 @@ def read_readings(
     session_codes, session_names = pd.factorize(pd.Series(session))
     machine_codes, _machine_names = pd.factorize(pd.Series(machine))
     group = pd.Series(machine_codes.astype(np.int64) * (len(session_names) + 1) + session_codes)
-    masks["duplicate_time"] = _duplicated(group, key, speed, current)
-    shared = _duplicated(group, key) & ~masks["duplicate_time"]
+    masks["duplicate_time"], same_time = _same_time(group, key, speed, current)
+    shared = same_time & ~masks["duplicate_time"]
     if shared.any():
         decisions.append(
             f"{source_name}: {int(shared.sum())} reading(s) share their time with another "
