@@ -82,6 +82,11 @@ def test_logger_export_with_metadata_channels_and_summary_lines():
     assert said(result, "--day-first or --month-first")
     assert any("line 9, 11" in message and "empty" in message for message in result.messages)
     assert any("not_a_number 2 (lines 12, 13)" in message for message in result.messages)
+    # The message names the file, the column, the lines as an editor counts them, and the fix.
+    assert any(message.startswith(str(DATA / "logger_metadata.csv"))
+               and "column 'CH1 (rpm)'" in message and "line 12, 13" in message
+               and "'n/a'" in message and "correct those cells" in message
+               for message in result.messages)
 
 
 def test_generic_channels_that_cannot_be_told_apart_name_the_option():
@@ -117,6 +122,9 @@ def test_meter_log_with_the_unit_in_every_cell():
     assert flags(result) == ["", "", "", "", "", "unit_mismatch", "not_a_number"]
     assert "unit_mismatch" in FLAG_CODES
     assert said(result, "'Current'", "each cell converted on its own", "unit_mismatch")
+    assert any("column 'Current'" in message and "line 8 (e.g. 'OVL')" in message
+               and "does not fit the current on line 7 (e.g. '5 V')" in message
+               for message in result.messages)
 
 
 def test_unit_in_cells_overrides_the_header_and_a_speed_of_the_other_kind_is_flagged():

@@ -187,7 +187,7 @@ def _columns_of(
                 notes.append(
                     f"{source}: column {_quoted(headers[position])} taken as the {field_name} "
                     f"by its unit ({one_line(unit)}); if that is wrong, say which column is "
-                    f"which with --column {field_name}=HEADER ('Columns' on the Readings page)")
+                    f"which with --column {field_name}=HEADER ('column for {field_name}' on the Readings page)")
         elif notes is not None:
             shown = " and ".join(_quoted(headers[position]) for position in positions[:4])
             notes.append(

@@ -36,9 +36,16 @@ from engine.readings.flags import (
     flags_from_masks,
 )
 from engine.readings.formats import _read_table
-from engine.readings.options import ENVIRONMENT_FIELDS, READING_FIELDS, ReadOptions, ReadResult
+from engine.readings.options import (
+    ENVIRONMENT_FIELDS,
+    READING_FIELDS,
+    ReadOptions,
+    ReadResult,
+    _quoted,
+)
 from engine.readings.quantities import _column_si, _text
 from engine.readings.times import _parse_times
+from engine.units import one_line
 
 
 # --- Public readers --------------------------------------------------------------------------
@@ -110,6 +117,8 @@ def read_readings(
         "current", table, options, source_name, decimal, units_used, messages, decisions)
     not_number |= speed_text | current_text
     unit_mismatch |= speed_unit | current_unit
+    cell_notes = [_cell_note(table, "speed", speed_text, speed_unit),
+                  _cell_note(table, "current", current_text, current_unit)]
     for field_name in ("rh", "temperature", "pressure", "voltage"):
         if field_name in table.columns:
             values[field_name], text_mask, unit_mask, _ = _column_si(
@@ -117,6 +126,7 @@ def read_readings(
                 decisions)
             not_number |= text_mask
             unit_mismatch |= unit_mask
+            cell_notes.append(_cell_note(table, field_name, text_mask, unit_mask))
         else:
             values[field_name] = np.full(length, np.nan)
 
@@ -169,10 +179,34 @@ def read_readings(
         + f" in {units_used['speed']}")
     messages.extend(decision for decision in decisions if decision not in messages)
     messages.extend(_flag_summary(masks, length, source_name, table.lines, _what(table)))
+    if times.bad.any() and ("time" in table.columns or "date" in table.columns):
+        cell_notes.append(_cell_note(table, "time" if "time" in table.columns else "date",
+                                     times.bad, np.zeros(length, dtype=bool)))
+    messages.extend(f"{source_name}: {note}" for note in cell_notes if note)
     file_format = {**table.format, "time_format": times.label, "day_first": times.day_first}
     mapping = {name: column.header for name, column in table.columns.items()}
     return ReadResult(frame, source_name, file_format, mapping, units_used, messages,
                       list(decisions), np.asarray(table.lines, dtype=np.int64))
+
+
+def _cell_note(table, field_name: str, text: np.ndarray, unit: np.ndarray) -> str:
+    """Where a column holds cells that are no value of its field, with an example and the fix."""
+    if not (text.any() or unit.any()):
+        return ""
+    what = _what(table)
+    cells = table.data[field_name].reset_index(drop=True)
+    parts = []
+    for mask, problem in ((text, "text where a number belongs" if field_name not in (
+            "time", "date") else "times that cannot be read"),
+                          (unit, f"a unit that does not fit the {field_name}")):
+        if mask.any():
+            example = one_line(cells.iloc[int(np.flatnonzero(mask)[0])])[:40]
+            parts.append(f"{problem} on {what} {_row_list(mask, table.lines)} (e.g. "
+                         f"'{example}')")
+    fix = ("write the time as 2024-03-01 14:05:00 or leave it empty" if field_name in (
+        "time", "date") else "correct those cells or leave them empty")
+    return (f"column {_quoted(table.columns[field_name].header)} has " + "; ".join(parts)
+            + f": those readings are flagged and left out of fits; {fix}")
 
 
 def _what(table) -> str:
