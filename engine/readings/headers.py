@@ -187,7 +187,8 @@ def _columns_of(
                 notes.append(
                     f"{source}: column {_quoted(headers[position])} taken as the {field_name} "
                     f"by its unit ({one_line(unit)}); if that is wrong, say which column is "
-                    f"which with --column {field_name}=HEADER ('column for {field_name}' on the Readings page)")
+                    f"which with --column {field_name}=HEADER ('column for {field_name}' on "
+                    "the Readings page)")
         elif notes is not None:
             shown = " and ".join(_quoted(headers[position]) for position in positions[:4])
             notes.append(
@@ -312,8 +313,8 @@ def _check_usable(
             f"{source}: no usable columns: it needs {needed}. Its header is "
             f"{shown or '(empty)'}" + (f"; recognised: {found}" if found else "")
             + ". Rename the headers (e.g. 'speed [rpm]', 'current [uA]') or say which column "
-            "is which with --column FIELD=HEADER (e.g. --column speed=CH1; 'Columns' on the "
-            "Readings page)"
+            "is which with --column FIELD=HEADER (e.g. --column speed=CH1; 'column for "
+            "speed' on the Readings page)"
             + "".join(f". {note.removeprefix(source + ': ')}" for note in notes
                       if "could each be" in note)
         )
