@@ -43,7 +43,7 @@ from engine.readings.options import (
     ReadResult,
     _quoted,
 )
-from engine.readings.quantities import _column_si, _text
+from engine.readings.quantities import _clean_unit, _column_si, _resolve_unit, _text
 from engine.readings.times import _parse_times
 from engine.units import one_line
 
@@ -177,6 +177,7 @@ def read_readings(
         f"{source_name}: speed read as "
         + ("a rotation rate" if speed_kind == "rotation" else "a linear (belt) speed")
         + f" in {units_used['speed']}")
+    decisions.append(_units_decision(table, options, units_used, source_name))
     messages.extend(decision for decision in decisions if decision not in messages)
     messages.extend(_flag_summary(masks, length, source_name, table.lines, _what(table)))
     if times.bad.any() and ("time" in table.columns or "date" in table.columns):
@@ -207,6 +208,28 @@ def _cell_note(table, field_name: str, text: np.ndarray, unit: np.ndarray) -> st
         "time", "date") else "correct those cells or leave them empty")
     return (f"column {_quoted(table.columns[field_name].header)} has " + "; ".join(parts)
             + f": those readings are flagged and left out of fits; {fix}")
+
+
+_ORIGINS = {"header": "from the header", "units row": "from the units row",
+            "caller": "as given", "default": "assumed: no unit given"}
+
+
+def _units_decision(table, options: ReadOptions, units_used: dict[str, str], source: str
+                    ) -> str:
+    """One sentence: the unit each numeric column was read in, and where it came from."""
+    parts = []
+    for field_name in ("speed", "current", "rh", "temperature", "pressure", "voltage"):
+        if field_name not in table.columns or field_name not in units_used:
+            continue
+        unit, origin = _resolve_unit(field_name, table, options, source)
+        used = units_used[field_name]
+        if used == "" and unit != "":
+            parts.append(f"{field_name} as fractions (no unit given and every value 0 to 1)")
+            continue
+        where = (_ORIGINS[origin] if used in (unit, _clean_unit(field_name, unit))
+                 else "written in the cells")
+        parts.append(f"{field_name} in {used or 'fractions'} ({where})")
+    return f"{source}: units: " + "; ".join(parts)
 
 
 def _what(table) -> str:
@@ -287,6 +310,8 @@ def read_environment(
         TEMPERATURE_K: values["temperature"],
         PRESSURE_PA: values["pressure"],
     }, columns=list(ENVIRONMENT_COLUMNS))
+    if any(name in table.columns for name in ("rh", "temperature", "pressure")):
+        table.decisions.append(_units_decision(table, options, units_used, source_name))
     messages.extend(decision for decision in table.decisions if decision not in messages)
     file_format = {**table.format, "time_format": times.label, "day_first": times.day_first}
     mapping = {name: column.header for name, column in table.columns.items()}
