@@ -79,6 +79,8 @@ def test_logger_export_with_metadata_channels_and_summary_lines():
     assert said(result, "joined with the date '01.03.2024' from line 3")
     assert said(result, "line 14, 15, 16", "summary lines", "'Average'", "'Max'", "'Min'")
     assert said(result, "'CH1 (rpm)'", "speed by its unit")
+    assert said(result, "units: speed in rpm (from the header); current in uA (from the "
+                "header); rh in %RH (from the header)")
     assert said(result, "--day-first or --month-first")
     assert any("line 9, 11" in message and "empty" in message for message in result.messages)
     assert any("not_a_number 2 (lines 12, 13)" in message for message in result.messages)
