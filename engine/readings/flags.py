@@ -82,15 +82,6 @@ def add_flags(flags: pd.Series, masks: Mapping[str, np.ndarray]) -> pd.Series:
     return _bits_to_flags(bits, index=flags.index)
 
 
-def _duplicated(machine: pd.Series, key: pd.Series, *values: np.ndarray) -> np.ndarray:
-    """Second and later rows of the same machine at the same (present) time.
-
-    With ``values`` (speed, current), only rows whose values are the same too: readings
-    written to the minute share a time and are still separate readings.
-    """
-    return _same_time(machine, key, *values)[0 if values else 1]
-
-
 def _same_time(machine: pd.Series, key: pd.Series, *values: np.ndarray
                ) -> tuple[np.ndarray, np.ndarray]:
     """Rows repeating an earlier row's machine, time and values; and its machine and time."""
