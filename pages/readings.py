@@ -29,8 +29,9 @@ machine_ids = [machine.id for machine in machine_file.machines]
 
 st.markdown("Upload the readings of one or more machines (CSV or XLSX). Columns: `machine`, "
             "`time`, `speed`, `current`, and any of `rh`, `temperature`, `pressure`, `session`, "
-            "`voltage`, `note`. A unit in brackets in a header is used: `speed [rpm]`, "
-            "`current [uA]`.")
+            "`voltage`, `note`. A unit in a header is used (`speed [rpm]`, `I/µA`), or in "
+            "each cell (`12.3 uA`); loggers' notes above the header, summary lines and "
+            "repeated headers are recognised. Everything the reader decides is listed below.")
 upload = st.file_uploader("Readings file", type=["csv", "txt", "tsv", "xlsx"],
                           key="readings-upload")
 log_upload = st.file_uploader("Humidity log (optional, its own clock)",
@@ -102,6 +103,9 @@ try:
             log_decisions = log.decisions
             tolerance_s = parse_quantity(tolerance_text, "duration", "log match within")
             clock = check_log_clock(frame, environment, tolerance_s, log_upload.name)
+        status.update(label=f"Read {len(frame):,} readings from {upload.name}"
+                      + (f" and the log {log_upload.name}" if log_upload is not None else ""),
+                      state="complete")
 except InputError as error:
     shared.show_error(error)
     st.stop()
@@ -121,7 +125,7 @@ try:
             frame = merge_environment(frame, environment, tolerance_s, log_offset_s)
         status.update(label="Computing ceilings for the preview...")
         derived = analysis.derive(frame, machine_file.by_id(), machine_file.site)
-        status.update(label=f"Read {len(frame):,} readings from {upload.name}", state="complete")
+        status.update(label=f"Ceilings computed for {len(frame):,} readings", state="complete")
 except InputError as error:
     shared.show_error(error)
     st.stop()
@@ -135,7 +139,9 @@ with left:
              "day_first": "dates day first"}
     words = {"\t": "tab", ",": "comma (,)", ";": "semicolon (;)", ".": "point (.)",
              True: "yes", False: "no"}
+    # (only True/False and marks are put into words: a header on line 1 is not "yes")
     shown_format = {names.get(key, key): words.get(value, value)
+                    if isinstance(value, (bool, str)) else value
                     for key, value in result.format.items() if value not in (None, "")}
     st.dataframe(pd.DataFrame({"setting": list(shown_format),
                                "value": [str(value) for value in shown_format.values()]}),
