@@ -331,6 +331,19 @@ def test_ambiguous_dates_are_said_with_the_option_and_a_day_above_12_decides():
     assert decided.frame["time"].tolist() == [pd.Timestamp("2024-03-04 10:00"),
                                               pd.Timestamp("2024-03-13 10:00")]
     assert not said(decided, "ambiguous")
+    # No day above 12, but three or more dates decide by their sequence: 01/03, 02/03, 03/03
+    # read day first are 1, 2, 3 March (a daily log, 2 days); read month first they are
+    # 3 January, 3 February, 3 March (59 days, more than ten times as long).
+    text = ("machine,time,speed [rpm],current [uA]\n"
+            + "".join(f"d,0{day}/03/2024 10:00,60,1\n" for day in (1, 2, 3)))
+    sequence = read_readings(text.encode(), name="sequence.csv")
+    assert sequence.frame["time"].iloc[2] == pd.Timestamp("2024-03-03 10:00")
+    assert said(sequence, "would jump by months", "read day first", "--month-first")
+    # 01/11, 01/12, 02/12: day first 1 Nov, 1 Dec, 2 Dec (31 days); month first 11 Jan,
+    # 12 Jan, 12 Feb (32 days). Both run forward over similar spans: undecided, said so.
+    text = ("machine,time,speed [rpm],current [uA]\n"
+            + "".join(f"d,{date}/2024 10:00,60,1\n" for date in ("01/11", "01/12", "02/12")))
+    assert said(read_readings(text.encode(), name="undecided.csv"), "ambiguous")
 
 
 def test_log_clock_an_hour_behind_is_offered_never_applied():

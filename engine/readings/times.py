@@ -150,6 +150,41 @@ def _all_date_formats(day_first: bool) -> list[str]:
     return layouts
 
 
+def _order_from_sequence(text: pd.Series) -> bool | None:
+    """Day first (True) or month first (False) when the sequence of dates decides, else None.
+
+    The file's distinct dates (three or more) in their order are read both ways. A log
+    runs forward and
+    steps by days: an order in which the dates go backwards, or which spreads them over ten
+    times the span of the other order, is not the file's.
+    """
+    parts = text.str.extract(r"^(\d{1,2})[./-](\d{1,2})[./-](\d{4}|\d{2})\b")
+    parts = parts.dropna().drop_duplicates()
+    if len(parts) < 3:  # two dates are too few to show a pattern
+        return None
+    first, second = parts[0].astype(int), parts[1].astype(int)
+    year = parts[2].astype(int)
+    year = year.where(year >= 100, year + 2000)
+    day_first = pd.to_datetime(
+        pd.DataFrame({"year": year, "month": second, "day": first}), errors="coerce")
+    month_first = pd.to_datetime(
+        pd.DataFrame({"year": year, "month": first, "day": second}), errors="coerce")
+    if day_first.isna().any() or month_first.isna().any():
+        return None
+    forward = (day_first.is_monotonic_increasing, month_first.is_monotonic_increasing)
+    if forward == (True, False):
+        return True
+    if forward == (False, True):
+        return False
+    span_day = (day_first.max() - day_first.min()) / pd.Timedelta(days=1)
+    span_month = (month_first.max() - month_first.min()) / pd.Timedelta(days=1)
+    if span_day * 10 <= span_month:
+        return True
+    if span_month * 10 <= span_day:
+        return False
+    return None
+
+
 def _parse_numeric_dates(
     text: pd.Series, day_first: bool | None, messages: list[str], source: str
 ) -> tuple[pd.Series, bool, str]:
@@ -170,11 +205,22 @@ def _parse_numeric_dates(
                 f"{source}: some dates have the day first and others the month first; read "
                 f"day first, the others are bad_time. {_DATE_ORDER_FIX}")
         else:
-            day_first = True
             example = text[present].iloc[0]
-            messages.append(
-                f"{source}: dates such as '{example}' are ambiguous (no day above 12 in the "
-                f"whole column); read day first (day/month/year). {_DATE_ORDER_FIX}")
+            by_sequence = _order_from_sequence(text)
+            if by_sequence is not None:
+                day_first = by_sequence
+                other = "month" if day_first else "day"
+                messages.append(
+                    f"{source}: dates such as '{example}' have no day above 12, but read "
+                    f"{other} first they would jump by {'months' if day_first else 'days'} "
+                    f"where read {'day' if day_first else 'month'} first they step by "
+                    f"{'days' if day_first else 'months'}: read "
+                    f"{'day' if day_first else 'month'} first. {_DATE_ORDER_FIX}")
+            else:
+                day_first = True
+                messages.append(
+                    f"{source}: dates such as '{example}' are ambiguous (no day above 12 in "
+                    f"the whole column); read day first (day/month/year). {_DATE_ORDER_FIX}")
     else:
         messages.append(
             f"{source}: dates read {'day' if day_first else 'month'} first, as asked")
