@@ -154,9 +154,8 @@ def _order_from_sequence(text: pd.Series) -> bool | None:
     """Day first (True) or month first (False) when the sequence of dates decides, else None.
 
     The file's distinct dates (three or more) in their order are read both ways. A log
-    runs forward and
-    steps by days: an order in which the dates go backwards, or which spreads them over ten
-    times the span of the other order, is not the file's.
+    runs forward and steps by days: an order in which the dates go backwards, or which
+    spreads them over ten times the span of the other order, is not the file's.
     """
     parts = text.str.extract(r"^(\d{1,2})[./-](\d{1,2})[./-](\d{4}|\d{2})\b")
     parts = parts.dropna().drop_duplicates()
