@@ -243,7 +243,10 @@ def check_log_clock(
                                  np.abs(reading_key - shifted[position]))
         return int((nearest <= tolerance).sum())
 
-    counts = {hours: matched(hours * 3600.0) for hours in LOG_OFFSETS_H}
+    # Whole-hour clock errors belong to clocks; elapsed seconds from each file's own start
+    # are only checked for overlap.
+    clocks = bool(pd.to_datetime(readings[TIME], errors="coerce").notna().any())
+    counts = {hours: matched(hours * 3600.0) for hours in (LOG_OFFSETS_H if clocks else (0,))}
     now = counts[0]
     best = max(LOG_OFFSETS_H, key=lambda hours: (counts[hours], -abs(hours)))
     messages: list[str] = []
