@@ -190,6 +190,8 @@ def layout(
             f"{what} {_line_list(lines[blank])}")
 
     data = _gather(body, segments, columns, unit_cells)
+    if reading.all():  # the usual clean file: no copy
+        return Layout(data, np.asarray(lines), decisions, messages)
     keep = np.flatnonzero(reading)
     data = {name: series.iloc[keep].reset_index(drop=True) for name, series in data.items()}
     return Layout(data, np.asarray(lines)[keep], decisions, messages)
