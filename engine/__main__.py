@@ -30,7 +30,13 @@ from engine.carriers import CARRIER_KINDS, ROTATION
 from engine.ceiling import ceiling_figures
 from engine.errors import CeilingLabError, InputError
 from engine.machines import load_machines, machine_from_table
-from engine.readings import ReadOptions, merge_environment, read_environment, read_readings
+from engine.readings import (
+    ReadOptions,
+    check_log_clock,
+    merge_environment,
+    read_environment,
+    read_readings,
+)
 from engine.units import one_line, parse_quantity, parse_speed, split_quantity
 
 EXIT_BAD_INPUT = 2
@@ -259,7 +265,23 @@ def _read_options(args: argparse.Namespace) -> ReadOptions:
         separator=args.separator, decimal=args.decimal, encoding=args.encoding,
         mapping=mapping or None, units=_pairs(args.unit, "--unit") or None,
         machine=args.machine, session=args.session, day_first=args.day_first,
+        sheet=_sheet_option(args.sheet),
     )
+
+
+def _sheet_option(text: str | None) -> str | int | None:
+    """A sheet name, or its number counted from 1 as a spreadsheet program shows them."""
+    if text is None:
+        return None
+    if text.strip().isdigit() and int(text) >= 1:
+        return int(text) - 1
+    return text
+
+
+def _print_notes(messages: list[str]) -> None:
+    """The reader's decisions and notes, one ``note:`` line each on stderr (not stdout)."""
+    for message in messages:
+        print(f"note: {one_line(message)}", file=sys.stderr)
 
 
 def _derived_from_files(args: argparse.Namespace):
@@ -282,13 +304,21 @@ def _derived_from_files(args: argparse.Namespace):
             raise InputError("--tolerance must not be negative")
         log = read_environment(args.environment, ReadOptions(day_first=args.day_first))
         messages.extend(log.messages)
-        frame = merge_environment(frame, log.frame, tolerance_s)
+        offset_s = 0.0
+        if args.log_offset is not None:
+            offset_s = parse_quantity(args.log_offset, "duration", "--log-offset")
+            messages.append(f"{log.source}: its times moved by {offset_s / 3600:+g} h "
+                            "(--log-offset) before matching")
+        clock = check_log_clock(frame, log.frame, tolerance_s, log.source)
+        if args.log_offset is None:
+            messages.extend(clock.messages)
+        frame = merge_environment(frame, log.frame, tolerance_s, offset_s)
     derived = analysis.derive(frame, machine_file.by_id(), machine_file.site)
     return machine_file, derived, messages
 
 
 def _command_evaluate(args: argparse.Namespace) -> int:
-    _machine_file, derived, _messages = _derived_from_files(args)
+    _machine_file, derived, messages = _derived_from_files(args)
     table = report.output_frame(derived)
     flagged = int((derived[columns.FLAGS] != "").sum())
     if args.output:
@@ -313,6 +343,7 @@ def _command_evaluate(args: argparse.Namespace) -> int:
             report.write_csv(table, sys.stdout.buffer)
         else:  # a text-only stream (an embedding program's)
             sys.stdout.write(report.to_csv_bytes(table).decode("utf-8"))
+    _print_notes(messages)
     return 0
 
 
@@ -327,7 +358,7 @@ def _json_ready(value: object) -> object:
 
 
 def _command_summary(args: argparse.Namespace) -> int:
-    machine_file, derived, _messages = _derived_from_files(args)
+    machine_file, derived, messages = _derived_from_files(args)
     # "45" means 45 %; "45 %" is read by the unit parser as the fraction 0.45.
     number, unit_text = split_quantity(args.reference_rh, "--reference-rh")
     reference_rh = (number if not unit_text.strip() else
@@ -336,6 +367,7 @@ def _command_summary(args: argparse.Namespace) -> int:
         raise InputError("--reference-rh is a relative humidity in percent, 0 to 100")
     table = analysis.findings(derived, machine_file.by_id(), by_session=args.by_session,
                               reference_rh=reference_rh / 100)
+    _print_notes(messages)
     records = [{key: _json_ready(value) for key, value in row.items()}
                for row in table.to_dict(orient="records")]
     _add_load_lines(records, analysis.load_line_findings(derived, by_session=args.by_session))
@@ -504,6 +536,10 @@ def _add_reading_options(command: argparse.ArgumentParser) -> None:
                          help="use the file's column HEADER for FIELD (repeatable)")
     command.add_argument("--unit", action="append", metavar="FIELD=UNIT",
                          help="unit of a column whose header has none, e.g. speed=rev/s")
+    command.add_argument("--sheet", help="workbook sheet to read, by name or number from 1 "
+                         "(found when not given)")
+    command.add_argument("--log-offset", help="move the humidity log's times by this much "
+                         "before matching, e.g. '+1 h' for a logger left on winter time")
     command.add_argument("--json", action="store_true", help="print JSON")
 
 

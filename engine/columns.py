@@ -49,6 +49,7 @@ DERIVED_COLUMNS = (
 # --- Flag codes: what can be wrong with a reading ----------------------------------------------
 FLAG_CODES: dict[str, str] = {
     "not_a_number": "a value that should be a number is text",
+    "unit_mismatch": "the unit written in the cell does not fit the column (mA in a speed column)",
     "missing_value": "speed or current is empty",
     "negative": "speed is negative, or current is clearly below zero (beyond the meter's "
                 "tolerance)",

@@ -143,6 +143,26 @@ def _parse_units(unit_text: str, field: str) -> pint.Unit:
         raise InputError(f"{field}: '{unit_text}' is not a unit this tool knows") from None
 
 
+def is_unit(unit_text: str) -> bool:
+    """Whether a text is a unit this tool knows, of any kind (``"mA"``, ``"rpm"``, ``"kg"``).
+
+    Parameters
+    ----------
+    unit_text : str
+        The text, e.g. the unit written after a number in a cell.
+
+    Returns
+    -------
+    bool
+        ``True`` for a unit expression the registry parses, ``False`` for other text.
+    """
+    try:
+        _parse_units(unit_text.strip(), "unit")
+    except InputError:
+        return False
+    return True
+
+
 def _check_text(text: object, field: str) -> str:
     if not isinstance(text, str):
         raise InputError(f"{field}: expected a quantity with a unit, e.g. '46 cm', got {text!r}")

@@ -11,12 +11,12 @@ import pandas as pd
 import streamlit as st
 
 from engine import analysis
+from engine.air import relative_air_density
 from engine.arrangements import ARRANGEMENT_LABELS, COLLECTOR_LABELS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.demo import demo_lab_path, open_demo_lab
 from engine.errors import InputError
 from engine.figures import PALETTE
-from engine.air import relative_air_density
 from engine.machines import (
     Machine,
     MachineFile,

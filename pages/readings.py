@@ -7,7 +7,15 @@ from engine import analysis, report
 from engine import columns as col
 from engine.demo import DEMO_FOLDER
 from engine.errors import InputError
-from engine.readings import ALIASES, ReadOptions, merge_environment, read_environment, read_readings
+from engine.readings import (
+    ALIASES,
+    ReadOptions,
+    check_log_clock,
+    merge_environment,
+    read_environment,
+    read_readings,
+    workbook_sheets,
+)
 from engine.units import parse_quantity
 from pages import _shared as shared
 
@@ -21,8 +29,9 @@ machine_ids = [machine.id for machine in machine_file.machines]
 
 st.markdown("Upload the readings of one or more machines (CSV or XLSX). Columns: `machine`, "
             "`time`, `speed`, `current`, and any of `rh`, `temperature`, `pressure`, `session`, "
-            "`voltage`, `note`. A unit in brackets in a header is used: `speed [rpm]`, "
-            "`current [uA]`.")
+            "`voltage`, `note`. A unit in a header is used (`speed [rpm]`, `I/µA`), or in "
+            "each cell (`12.3 uA`); loggers' notes above the header, summary lines and "
+            "repeated headers are recognised. Everything the reader decides is listed below.")
 upload = st.file_uploader("Readings file", type=["csv", "txt", "tsv", "xlsx"],
                           key="readings-upload")
 log_upload = st.file_uploader("Humidity log (optional, its own clock)",
@@ -38,6 +47,9 @@ with st.expander("How the file is read", expanded=False):
     default_machine = second.selectbox("Machine, for a file without a machine column",
                                        ["(none)"] + machine_ids, key="readings-machine")
     tolerance_text = third.text_input("Log match within", "5 min", key="readings-tolerance")
+    sheets = workbook_sheets(upload, name=upload.name) if upload is not None else []
+    sheet_choice = first.selectbox("Sheet (workbooks)", ["detect", *sheets],
+                                   key="readings-sheet", disabled=not sheets)
     st.caption("Columns of the file for each field (leave empty to detect); units for columns "
                "whose header has none.")
     mapping_columns = st.columns(4)
@@ -72,6 +84,7 @@ options = ReadOptions(
     day_first=None if dates == "detect" else dates == "day first",
     machine=None if default_machine == "(none)" else default_machine,
     mapping=mapping or None, units=units or None,
+    sheet=None if sheet_choice == "detect" else sheet_choice,
 )
 try:
     with st.status("Reading the file...", expanded=False) as status:
@@ -79,17 +92,40 @@ try:
         frame = result.frame
         environment = None
         log_messages: list[str] = []
+        log_decisions: list[str] = []
+        clock = None
         if log_upload is not None:
             status.update(label="Matching the humidity log by time...")
             log = read_environment(log_upload, ReadOptions(day_first=options.day_first),
                                    name=log_upload.name)
             environment = log.frame
             log_messages = log.messages
+            log_decisions = log.decisions
             tolerance_s = parse_quantity(tolerance_text, "duration", "log match within")
-            frame = merge_environment(frame, environment, tolerance_s)
+            clock = check_log_clock(frame, environment, tolerance_s, log_upload.name)
+        status.update(label=f"Read {len(frame):,} readings from {upload.name}"
+                      + (f" and the log {log_upload.name}" if log_upload is not None else ""),
+                      state="complete")
+except InputError as error:
+    shared.show_error(error)
+    st.stop()
+
+log_offset_s = 0.0
+if clock is not None:
+    for message in clock.messages:
+        st.warning(message, icon=":material/schedule:")
+    offsets = [0.0] + ([clock.suggested_offset_s] if clock.suggested_offset_s else [])
+    log_offset_s = st.radio(
+        "Humidity log's clock", offsets, key="readings-log-offset", horizontal=True,
+        format_func=lambda seconds: "as recorded" if not seconds
+        else f"moved by {seconds / 3600:+g} h", disabled=len(offsets) == 1)
+try:
+    with st.status("Matching and computing...", expanded=False) as status:
+        if environment is not None:
+            frame = merge_environment(frame, environment, tolerance_s, log_offset_s)
         status.update(label="Computing ceilings for the preview...")
         derived = analysis.derive(frame, machine_file.by_id(), machine_file.site)
-        status.update(label=f"Read {len(frame):,} readings from {upload.name}", state="complete")
+        status.update(label=f"Ceilings computed for {len(frame):,} readings", state="complete")
 except InputError as error:
     shared.show_error(error)
     st.stop()
@@ -103,7 +139,9 @@ with left:
              "day_first": "dates day first"}
     words = {"\t": "tab", ",": "comma (,)", ";": "semicolon (;)", ".": "point (.)",
              True: "yes", False: "no"}
+    # (only True/False and marks are put into words: a header on line 1 is not "yes")
     shown_format = {names.get(key, key): words.get(value, value)
+                    if isinstance(value, (bool, str)) else value
                     for key, value in result.format.items() if value not in (None, "")}
     st.dataframe(pd.DataFrame({"setting": list(shown_format),
                                "value": [str(value) for value in shown_format.values()]}),
@@ -114,8 +152,13 @@ with right:
                                "column in the file": list(result.mapping.values()),
                                "unit": [result.units.get(field, "") for field in result.mapping]}),
                  hide_index=True, key="readings-mapping")
-for message in result.messages + log_messages:
-    st.caption(message)
+st.subheader("What the reader decided")
+decisions = result.decisions + log_decisions
+# Shown as table cells: text from the file (headers, notes) is never read as Markdown.
+st.dataframe(pd.DataFrame({"decision": decisions}), hide_index=True, key="readings-decisions")
+notes = [message for message in result.messages + log_messages if message not in decisions]
+with st.expander(f"Other notes ({len(notes)})", expanded=False):
+    st.dataframe(pd.DataFrame({"note": notes}), hide_index=True, key="readings-notes")
 
 st.subheader("Check")
 flags = derived[col.FLAGS]

@@ -259,7 +259,7 @@ class Session:
 PLANTED: dict[str, list[tuple[int, str]]] = {
     TWIN_DISC_FILE: [
         (37, "empty current (note 'meter reading missed')"),
-        (74, "duplicated time stamp: the same time as row 73"),
+        (74, "row 73 written twice: the same time and the same values"),
         (188, "current 'OVL' (meter overload at 600 rpm)"),
     ],
     BELT_FILE: [
@@ -271,7 +271,7 @@ PLANTED: dict[str, list[tuple[int, str]]] = {
     ],
     CYLINDER_FILE: [
         (300, "empty current (note 'meter battery changed')"),
-        (611, "duplicated time stamp: the same time as row 610"),
+        (611, "row 610 written twice: the same time and the same values"),
         (902, "negative current (note 'spark to the meter lead')"),
     ],
     ENVIRONMENT_FILE: [
@@ -378,7 +378,8 @@ def _twin_disc(rng: np.random.Generator, machine: Machine) -> pd.DataFrame:
     _add_notes(frame, TWIN_DISC_FILE)
     _set(frame, 37, "current [uA]", "")
     _set(frame, 37, "note", "meter reading missed")
-    _set(frame, 74, "time", frame.loc[72, "time"])
+    for column in ("time", "speed [rpm]", "current [uA]"):
+        _set(frame, 74, column, frame.loc[72, column])
     _set(frame, 188, "current [uA]", "OVL")
     return frame
 
@@ -458,7 +459,8 @@ def _cylinder(rng: np.random.Generator, machine: Machine) -> tuple[pd.DataFrame,
     _add_notes(readings, CYLINDER_FILE)
     _set(readings, 300, "current [uA]", "")
     _set(readings, 300, "note", "meter battery changed")
-    _set(readings, 611, "time", readings.loc[609, "time"])
+    for column in ("time", "speed [rpm]", "current [uA]"):
+        _set(readings, 611, column, readings.loc[609, column])
     current = float(readings.loc[901, "current [uA]"])
     _set(readings, 902, "current [uA]", f"{-current:.3f}")
     _set(readings, 902, "note", "spark to the meter lead")

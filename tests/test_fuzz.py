@@ -166,7 +166,8 @@ WRONG_UNIT_HEADERS = {
 FORMULAS = ["=cmd|' /C calc'!A0", "=1+1", "+SUM(A1:A9)", "-2+3", "@SUM(1)", "\t=1",
             "\r=1", "=HYPERLINK(\"http://x\")"]
 #: Cell texts that are not numbers, whatever the decimal mark.
-NOT_NUMBERS = ["x", "twelve", "12 uA", "1 2", "abc def", "n.v.", "#DIV/0!", "1..2", "1e",
+NOT_NUMBERS = ["x", "twelve", "1 2", "abc def", "nan", "NaN", "NA", "N/A", "-", "null",
+               "n.v.", "#DIV/0!", "1..2", "1e",
                "--5", "0x1A", "∞", "x" * 10_000, "µ" * 300, *FORMULAS]
 
 _text_alphabet = st.characters(codec="utf-8", exclude_categories=("Cs", "Cc", "Nd"))
@@ -198,7 +199,8 @@ def _number_texts(decimal: str):
     )
 
 
-EMPTY_TEXTS = ["", "nan", "NaN", "NA", "N/A", "-", "null"]
+# Text markers such as 'n/a' or '-' are text, flagged not_a_number (issue 10), not empty.
+EMPTY_TEXTS = [""]
 _NUMBER_POOL = ["0", "-0", "1", "12.5", "300", "-3", "0.001", "1e308", "-1e308", "1e-320",
                 "5e-324", "1e400", "-1e400", "9" * 400, " 7 ", "+3", "1" + "0" * 30, "2.5e3",
                 ".5", "5."]
@@ -298,15 +300,17 @@ def structured_csv(draw, fields=("machine", "session", "time", "speed", "current
             else:
                 cell = draw(st.one_of(LABEL_CELLS, _number_texts(decimal)))
             row.append(cell)
-        if not any(cell.strip() for cell in row):
-            row[0] = "x"  # every data row is non-blank, so every one must come out
-            row_kinds.pop(columns[0][0], None)
         if draw(st.integers(0, 9)) == 0:  # a ragged row: missing or extra trailing fields
             row = row[: draw(st.integers(1, len(row)))] if draw(st.booleans()) else (
                 row + ["extra"] * draw(st.integers(1, 3)))
             if len(row) < len(columns):
                 row_kinds = {name: kind for name, kind in row_kinds.items()
                              if first[name] < len(row)}
+        if not any(cell.strip() for cell in row):
+            # every data row is non-blank, so every one must come out (a line of empty
+            # cells only is not a reading: the reader skips it and says so)
+            row[0] = "x"
+            row_kinds.pop(columns[0][0], None)
         rows.append(row)
         kinds.append(row_kinds)
     buffer = io.StringIO()
@@ -331,7 +335,8 @@ def structured_csv(draw, fields=("machine", "session", "time", "speed", "current
     controls = any(re.search(r"[\x00-\x08\x0e-\x1f\x7f]", cell) for row in rows for cell in row)
     ok = (all(name in first for name in required if name != "machine")
           and ("machine" in first or options.machine or "machine" not in required)
-          and all(fits.values()) and encoding in ("utf-8", "utf-8-sig", "latin-1", "cp1252")
+          and all(fits.values())
+          and encoding in ("utf-8", "utf-8-sig", "latin-1", "cp1252", "utf-16")
           and tell_separator and not controls)
     return {"data": data, "options": options, "rows": row_count + int(units_row), "ok": ok,
             "kinds": kinds, "encoding": encoding, "units_row": units_row}
@@ -340,8 +345,6 @@ def structured_csv(draw, fields=("machine", "session", "time", "speed", "current
 def _check_structured(case, read, columns):
     outcome = read_or_refuse(lambda: read(case["data"], case["options"], name="fuzz.csv"),
                              columns, data_rows=case["rows"])
-    if case["encoding"] == "utf-16":
-        assert isinstance(outcome, InputError) and "UTF-16" in str(outcome)
     if case["ok"]:
         assert not isinstance(outcome, InputError), (str(outcome), case["data"][:300])
         assert not outcome.format["units_row"] or case["units_row"]
@@ -362,7 +365,10 @@ def test_structured_csv_readings_keep_every_row(case):
         for field_name in ("speed", "current"):
             kind = kinds.get(field_name)
             if kind == "text":
-                assert "not_a_number" in flags, (position, field_name, frame.iloc[position])
+                # a number followed by a unit of another kind ('1e': e, the elementary charge)
+                # is flagged unit_mismatch
+                assert "not_a_number" in flags or "unit_mismatch" in flags, (
+                    position, field_name, frame.iloc[position])
             elif kind == "empty":
                 assert "missing_value" in flags, (position, field_name, frame.iloc[position])
 
@@ -825,7 +831,8 @@ def test_the_command_line_on_fuzzed_files(readings, machines, suffix, output):
             assert err.startswith("error: ") and err.endswith("\n")
             assert err.count("\n") == 1, err
             return
-        assert err == ""
+        # stderr holds only the reader's notes, one line each (issue 10); stdout the data
+        assert all(line.startswith("note: ") for line in err.splitlines()), err
         expected = len(read_readings(readings_path, options).frame)
         if output is None:
             table = list(csv.reader(io.StringIO(out, newline="")))
