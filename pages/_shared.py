@@ -425,3 +425,51 @@ def findings_formats(reference_rh: float = 0.45) -> dict:
 def machine_labels() -> dict[str, str]:
     """Machine id -> label."""
     return {machine.id: machine.label for machine in store().machines().machines}
+
+
+def when(text: object) -> str:
+    """A stored ISO time as people write it: '2 Dec 2026, 06:17' (local to the store: UTC)."""
+    stamp = pd.to_datetime(text, errors="coerce", utc=True)
+    return "" if pd.isna(stamp) else f"{stamp:%-d %b %Y, %H:%M} UTC"
+
+
+def stored_imports(current_store: Store) -> None:
+    """The lab's imports, with a removal that asks first and offers a copy to restore."""
+    imports = current_store.imports()
+    st.subheader("Stored imports")
+    if imports.empty:
+        st.write("Nothing stored yet.")
+        return
+    table = pd.DataFrame({
+        "import": imports["id"], "name": imports["name"], "file": imports["source"],
+        "saved": [when(value) for value in imports["created_at"]],
+        "readings": imports["rows"], "machines": imports["machines"],
+        "sessions": imports["sessions"],
+    })
+    st.dataframe(table, hide_index=True, key="readings-imports")
+    names = imports.set_index("id")
+    remove = st.selectbox("Remove an import", [None] + imports["id"].tolist(),
+                          format_func=lambda key: "(none)" if key is None else
+                          f"{names.loc[key, 'name']} (import {key})", key="readings-remove")
+    if remove is None:
+        return
+    row = names.loc[remove]
+    st.warning(f"Removing '{row['name']}' deletes its {int(row['rows']):,} readings (machines "
+               f"{row['machines'] or '-'}; sessions {row['sessions'] or '-'}) and its humidity "
+               "log from the lab. The machines stay. Keep a copy first: the bundle below puts "
+               "the import back when restored on the Report page.")
+    copy, yes, no = st.columns(3)
+    copy.download_button("Keep a copy (lab bundle)",
+                         lambda: current_store.export_bundle([int(remove)]),
+                         file_name=f"import-{int(remove)}.zip", mime="application/zip",
+                         key="readings-remove-copy")
+    if yes.button("Yes, remove it", key="readings-remove-do"):
+        try:
+            current_store.delete_import(int(remove))
+        except InputError as error:
+            show_error(error)
+            st.stop()
+        flash(f"Removed import '{row['name']}' with its {int(row['rows']):,} readings.")
+        st.rerun()
+    no.button("Keep it", key="readings-remove-keep", on_click=st.session_state.pop,
+              args=("readings-remove", None))

@@ -11,9 +11,12 @@ from engine.readings import (
     ALIASES,
     ReadOptions,
     check_log_clock,
+    default_session_name,
     merge_environment,
+    name_sessions,
     read_environment,
     read_readings,
+    unnamed_readings,
     workbook_sheets,
 )
 from engine.units import parse_quantity
@@ -69,6 +72,7 @@ with st.expander("How the file is read", expanded=False):
             units[field] = unit.strip()
 
 if upload is None:
+    shared.stored_imports(store)
     st.download_button("Download an example readings file", EXAMPLE.read_bytes(),
                        file_name="example-readings.csv", mime="text/csv",
                        key="readings-example")
@@ -76,6 +80,12 @@ if upload is None:
             + "; ".join(f"{field}: {', '.join(names[:3])}" for field, names in ALIASES.items()
                         if field in ("speed", "current", "rh", "temperature")))
     st.stop()
+
+# A new file starts its own import: its name and session follow the file, not the last one.
+if st.session_state.get("readings-file") != (upload.name, upload.size):
+    st.session_state["readings-file"] = (upload.name, upload.size)
+    for stale in ("readings-name", "readings-session", "readings-save-again"):
+        st.session_state.pop(stale, None)
 
 options = ReadOptions(
     separator=None if separator == "detect" else ("\t" if separator == "tab" else separator),
@@ -206,22 +216,47 @@ st.caption(f"Showing {min(len(table), 500):,} of {len(table):,} rows.")
 st.subheader("Save")
 name = st.text_input("Name of this import", upload.name.rsplit(".", 1)[0],
                      key="readings-name", max_chars=120)
-imports = store.imports()
-same = imports[(imports["source"] == upload.name) & (imports["rows"] == len(frame))]
-allowed = True
-if not same.empty:
-    st.warning(f"A file named {upload.name} with {len(frame):,} readings was saved before (as "
-               f"'{same['name'].iloc[0]}'). Saving it again counts the same readings twice in "
-               "every finding.")
-    allowed = st.checkbox("Save it again anyway", False, key="readings-save-again")
+unnamed = unnamed_readings(frame)
+if unnamed:
+    st.markdown(f"**{unnamed:,} readings have no session.** Name the session they belong to, so "
+                "that they never merge with another import's readings (before and after a "
+                "restoration, one lesson and the next).")
+    session_name = st.text_input("Session", default_session_name(frame, name or upload.name),
+                                 key="readings-session", max_chars=120,
+                                 placeholder="e.g. before restoration")
+else:
+    session_name = ""
+    sessions_found = sorted(set(frame[col.SESSION].astype("str")))
+    st.caption(f"Sessions in the file: {', '.join(sessions_found[:12])}"
+               + (" ..." if len(sessions_found) > 12 else ""))
+saved = st.session_state.get("readings-saved")
+fingerprint = (upload.name, upload.size)
+if saved is not None and saved[0] == fingerprint:
+    st.success(f"This file is saved as '{saved[1]}'. Choose another file to import more, or "
+               "open the Compare page.")
+    allowed = False
+else:
+    imports = store.imports()
+    same = imports[(imports["source"] == upload.name) & (imports["rows"] == len(frame))]
+    allowed = True
+    if not same.empty:
+        st.warning(f"A file named {upload.name} with {len(frame):,} readings was saved before "
+                   f"(as '{same['name'].iloc[0]}'). Saving it again counts the same readings "
+                   "twice in every finding.")
+        allowed = st.checkbox("Save it again anyway", False, key="readings-save-again")
 if st.button("Save the readings", type="primary", key="readings-save", disabled=not allowed):
     try:
+        to_save = name_sessions(frame, session_name) if unnamed else frame
         with st.spinner(f"Saving {len(frame):,} readings..."):
-            import_id = store.import_readings(frame, name or upload.name, source=upload.name,
+            import_id = store.import_readings(to_save, name or upload.name, source=upload.name,
                                               environment=environment)
     except InputError as error:
         shared.show_error(error)
         st.stop()
-    shared.flash(f"Saved {len(frame):,} readings as '{name}' (import {import_id}). Open the "
-                 "Compare page to see them against their ceilings.")
+    st.session_state["readings-saved"] = (fingerprint, name or upload.name)
+    shared.flash(f"Saved {len(frame):,} readings as '{name}' (import {import_id})"
+                 + (f", session '{session_name.strip()}'" if unnamed else "")
+                 + ". Open the Compare page to see them against their ceilings.")
     st.rerun()
+
+shared.stored_imports(store)

@@ -70,22 +70,3 @@ if bundle is not None and st.button("Import the bundle", key="report-bundle-impo
         st.rerun()
     except InputError as error:
         shared.show_error(error)
-
-st.subheader("Stored imports")
-if imports.empty:
-    st.write("Nothing stored yet.")
-else:
-    st.dataframe(imports[["id", "name", "source", "created_at", "rows", "machines", "sessions",
-                          "is_demo"]], hide_index=True, key="report-imports")
-    remove = st.selectbox("Remove an import", [None] + imports["id"].tolist(),
-                          format_func=lambda key: "(none)" if key is None else
-                          f"{key}: {imports.set_index('id').loc[key, 'name']}",
-                          key="report-remove")
-    if remove is not None and st.button("Remove it with its readings", key="report-remove-do"):
-        try:
-            store.delete_import(int(remove))
-        except InputError as error:
-            shared.show_error(error)
-            st.stop()
-        shared.flash(f"Removed import {remove}.")
-        st.rerun()

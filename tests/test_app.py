@@ -330,10 +330,63 @@ def test_import_readings_with_a_humidity_log(empty_lab):
     assert len(stored) == 1152
     # The log was merged: the readings file has no humidity of its own.
     assert stored["rh"].notna().mean() > 0.95
-    # The same file again: a warning, and saving needs a second thought.
+    # Right after saving: no warning beside the success, the file is said to be saved.
+    app.run()
+    assert any("This file is saved as 'damp day'" in item.value for item in app.success)
+    assert not any("was saved before" in item.value for item in app.warning)
+    assert app.button(key="readings-save").disabled
+    # The same file again later: a warning, and saving needs a second thought.
+    app.session_state["readings-saved"] = None
     app.run()
     assert any("was saved before" in item.value for item in app.warning)
     assert app.button(key="readings-save").disabled
+
+
+def test_imports_without_sessions_never_merge(empty_lab, tmp_path):
+    # Two files of one machine with no session column: before and after a restoration.
+    with open_store(empty_lab) as store:
+        for machine in open_store_demo_machines():
+            store.save_machine(machine)
+    lines = ["machine,time,speed [rpm],current [uA]"]
+    before = "\n".join(lines + [f"centre-twin-disc,2025-11-08T10:{minute:02d}:00,"
+                                 f"{200 + 10 * minute},{1 + minute / 10}"
+                                 for minute in range(12)]) + "\n"
+    after = "\n".join(lines + [f"centre-twin-disc,2026-03-14T10:{minute:02d}:00,"
+                                f"{200 + 10 * minute},{2 + minute / 10}"
+                                for minute in range(12)]) + "\n"
+    app = open_page("pages/readings.py", empty=True)
+    app.file_uploader(key="readings-upload").set_value(("before.csv", before.encode(),
+                                                        "text/csv"))
+    app.run()
+    assert "12 readings have no session" in texts(app)
+    assert app.text_input(key="readings-session").value == "2025-11-08"  # the file's date
+    app.text_input(key="readings-session").input("before restoration").run()
+    app.button(key="readings-save").click().run()
+    assert "session 'before restoration'" in texts(app)
+    app.file_uploader(key="readings-upload").set_value(("after.csv", after.encode(),
+                                                        "text/csv"))
+    app.run()
+    assert app.text_input(key="readings-session").value == "2026-03-14"
+    app.button(key="readings-save").click().run()
+    with open_store(empty_lab) as store:
+        sessions = store.readings()["session"].value_counts().to_dict()
+    assert sessions == {"before restoration": 12, "2026-03-14": 12}
+
+
+def test_removing_an_import_asks_first_and_offers_a_copy(demo_lab):
+    app = open_page("pages/readings.py")
+    assert "Stored imports" in texts(app)
+    with open_store(demo_lab) as store:
+        first = int(store.imports()["id"].iloc[0])
+    app.selectbox(key="readings-remove").set_value(first).run()
+    warning = " ".join(item.value for item in app.warning)
+    assert "deletes its 260 readings" in warning and "Keep a copy first" in warning
+    assert "readings-remove-copy" in {button.key for button in app.get("download_button")}
+    with open_store(demo_lab) as store:
+        assert first in store.imports()["id"].tolist()  # nothing gone yet
+    app.button(key="readings-remove-do").click().run()
+    with open_store(demo_lab) as store:
+        assert first not in store.imports()["id"].tolist()
 
 
 def open_store_demo_machines():

@@ -80,6 +80,7 @@ from engine.readings.options import (
     ReadResult,
 )
 from engine.readings.readers import read_environment, read_readings
+from engine.readings.sessions import default_session_name, name_sessions, unnamed_readings
 
 __all__ = [
     "ALIASES",
@@ -100,11 +101,14 @@ __all__ = [
     "TEMPERATURE_RANGE_K",
     "add_flags",
     "check_log_clock",
+    "default_session_name",
     "flags_from_masks",
     "map_columns",
     "merge_environment",
+    "name_sessions",
     "read_environment",
     "read_readings",
     "split_header",
+    "unnamed_readings",
     "workbook_sheets",
 ]
