@@ -1260,3 +1260,79 @@ def load_line_chart(derived: pd.DataFrame | None, machine_id: str,
                         showgrid=False, tickformat=".2~g")
     _add_notes(figure, notes)
     return figure
+
+
+def sessions_compared(derived: pd.DataFrame | None, machine_id: str, session_a: str,
+                      session_b: str, comparison: Mapping[str, object] | None = None,
+                      label: str | None = None) -> go.Figure:
+    """Efficiency against speed for two sessions of one machine, as a before/after chart.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with derived columns (SI units).
+    machine_id : str
+        The machine.
+    session_a, session_b : str
+        The earlier ("before") and the later ("after") session.
+    comparison : mapping, optional
+        The result of :func:`engine.analysis.compare_sessions` for these sessions: its adjusted
+        (else plain) difference and 95 % interval are written on the chart.
+    label : str, optional
+        Machine label; default the id.
+
+    Returns
+    -------
+    plotly.graph_objects.Figure
+        Clean readings of each session as points (before in grey-blue, after in orange), and
+        the median efficiency of each speed step as a line, against speed [rpm].
+    """
+    label = _escape(label or machine_id)
+    title = f"{label}: '{_escape(session_a)}' and '{_escape(session_b)}'"
+    if derived is None or len(derived) == 0:
+        return _empty_figure(title)
+    figure = go.Figure()
+    clean = ~_flagged(derived)
+    machine_rows = _machine_column(derived) == str(machine_id)
+    speed_rpm = _rpm(_floats(derived, col.SPEED_REV_S))
+    efficiency_pct = _percent(_floats(derived, col.EFFICIENCY))
+    for session, colour, name in ((session_a, "#56B4E9", "before"),
+                                  (session_b, "#D55E00", "after")):
+        rows = machine_rows & clean & _session_rows(derived, session) \
+            & np.isfinite(speed_rpm) & np.isfinite(efficiency_pct)
+        if not rows.any():
+            continue
+        shown = f"{name}: {_escape(session)}"
+        figure.add_trace(_scatter(
+            int(rows.sum()), x=speed_rpm[rows], y=efficiency_pct[rows], mode="markers",
+            name=shown, legendgroup=name, marker={"color": colour, "size": 6, "opacity": 0.55},
+            hovertemplate=f"{shown}<br>Speed %{{x:.0f}} rpm<br>Efficiency %{{y:.1f}} %"
+                          "<extra></extra>"))
+        # The median of each speed step (speeds rounded to 2 % steps of the largest one).
+        step = max(float(np.nanmax(speed_rpm[rows])) * 0.02, 1e-9)
+        steps = pd.DataFrame({"speed": np.round(speed_rpm[rows] / step) * step,
+                              "efficiency": efficiency_pct[rows]})
+        medians = steps.groupby("speed")["efficiency"].median()
+        figure.add_trace(go.Scatter(
+            x=medians.index.to_numpy(), y=medians.to_numpy(), mode="lines",
+            name=f"{shown}, median per speed step", legendgroup=name,
+            line={"color": colour, "width": 3},
+            hovertemplate=f"{shown}, median<br>Speed %{{x:.0f}} rpm<br>Efficiency %{{y:.1f}} %"
+                          "<extra></extra>"))
+    if not figure.data:
+        return _empty_figure(title, "No clean readings of these sessions")
+    _style(figure, title, SPEED_AXIS, EFFICIENCY_AXIS)
+    if comparison:
+        adjusted = _number(comparison.get("adjusted_difference"))
+        interval = comparison.get("adjusted_difference_ci")
+        terms = list(comparison.get("adjusted_for") or [])
+        if not (math.isfinite(adjusted) and interval is not None):
+            adjusted = _number(comparison.get("raw_difference"))
+            interval = comparison.get("raw_difference_ci")
+            terms = []
+        if math.isfinite(adjusted) and interval is not None:
+            half = (interval[1] - interval[0]) / 2
+            condition = f" at the same {' and '.join(terms)}" if terms else ""
+            _add_notes(figure, [f"After minus before{condition}: {adjusted * 100:+.1f} ± "
+                                f"{half * 100:.1f} % points (95 % interval)"])
+    return figure

@@ -338,8 +338,12 @@ def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
             values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
             arrays[name] = pa.array(round_significant(values), from_pandas=True)
     table = pa.table(arrays) if arrays else pa.table({})
+    # Headers with a comma, quote or line break (plain-words headers such as "efficiency,
+    # median [%]") are quoted as RFC 4180 asks; plain headers stay bare.
+    structural = any(mark in str(name) for name in ready.columns for mark in ',"\r\n')
     options = pa_csv.WriteOptions(include_header=True, quoting_style="needed",
-                                  quoting_header="none", eol="\r\n")
+                                  quoting_header="needed" if structural else "none",
+                                  eol="\r\n")
     if isinstance(target, (str, Path)):
         pa_csv.write_csv(table, str(target), write_options=options)
     else:

@@ -5,12 +5,14 @@ Pages call these and the engine; nothing here computes physics.
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 import pandas as pd
 import streamlit as st
 
 from engine import analysis
+from engine import columns as col
 from engine.air import relative_air_density
 from engine.arrangements import ARRANGEMENT_LABELS, COLLECTOR_LABELS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
@@ -378,48 +380,93 @@ def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.Da
     return _findings(str(lab_path()), store_signature(), by_session, reference_rh)
 
 
+DASH = "—"
+
+
+def _number_text(value, pattern: str, scale: float = 1.0) -> str:
+    """A number for a table cell, or a dash where there is none (never 'None' or 'nan')."""
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return DASH
+    return format(value * scale, pattern)
+
+
 def _interval_text(interval, scale: float = 1.0) -> str:
     if interval is None or (isinstance(interval, float) and pd.isna(interval)):
-        return ""
+        return DASH
     low, high = interval
     return f"{low * scale:,.4g} to {high * scale:,.4g}".replace("e+0", "e")
 
 
+def described_findings(findings: pd.DataFrame, machines) -> pd.DataFrame:
+    """Findings of the machines the lab describes (readings of other machine ids are not
+    findings: :func:`undescribed_warning` tells about them)."""
+    return findings[findings["machine"].isin(list(machines))].reset_index(drop=True)
+
+
 def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
                    reference_rh: float = 0.45) -> pd.DataFrame:
-    """Findings in display units with plain column names (formatting only)."""
+    """Findings in display units and plain words, as text cells (formatting only): a dash
+    where a figure could not be computed, the notes numbered and listed under the table."""
     labels = labels or {}
     rh_text = f"{reference_rh * 100:g} % RH"
-    table = pd.DataFrame({
+    notes = findings["notes"].fillna("")
+    return pd.DataFrame({
         "machine": [labels.get(machine, machine) for machine in findings["machine"]],
-        "session": findings["session"].fillna("all"),
-        "efficiency median [%]": findings["efficiency_median"] * 100,
-        "units delivered": [delivery_sentence(observed, expected, basis) for
+        "session": findings["session"].fillna("all sessions"),
+        "efficiency, median [%]": [_number_text(value, ".1f", 100)
+                                   for value in findings["efficiency_median"]],
+        "units delivered": [delivery_sentence(observed, expected, basis) or DASH for
                             observed, expected, basis in zip(
                                 findings["observed_units"], findings["units"],
                                 findings["units_basis"], strict=True)],
-        f"efficiency at {rh_text} [%]": findings["efficiency_at_reference_rh"] * 100,
-        "humidity effect [% points per +10 % RH]": findings["humidity_slope_per_10pct"] * 100,
-        "charge per revolution [nC]": findings["charge_per_rev_nC"],
-        "95 % interval [nC]": [_interval_text(value) for value in
-                               findings["charge_per_rev_ci_nC"]],
-        "readings used": findings["readings_used"],
-        "flagged": findings["readings_flagged"],
-        "carrier": findings["carrier"].fillna("(not described)"),
-        "notes": findings["notes"].fillna(""),
+        f"efficiency at {rh_text} [%]": [_number_text(value, ".1f", 100) for value in
+                                         findings["efficiency_at_reference_rh"]],
+        "change per +10 % RH [% points]": [_number_text(value, "+.1f", 100) for value in
+                                           findings["humidity_slope_per_10pct"]],
+        "charge per revolution [nC]": [_number_text(value, ",.4g")
+                                       for value in findings["charge_per_rev_nC"]],
+        "its 95 % interval [nC]": [_interval_text(value)
+                                   for value in findings["charge_per_rev_ci_nC"]],
+        "readings used": findings["readings_used"].astype("Int64").astype("str"),
+        "flagged, left out": findings["readings_flagged"].astype("Int64").astype("str"),
+        "notes": [f"see note {number}" if text else DASH
+                  for number, text in enumerate(notes, 1)],
     })
+
+
+def show_findings(findings: pd.DataFrame, machines, reference_rh: float = 0.45,
+                  key: str = "findings") -> pd.DataFrame:
+    """The findings table of the described machines, tall enough for every row, with its notes
+    below it (table cells, never Markdown: notes quote text from files). Returns the table."""
+    described = described_findings(findings, machines)
+    labels = {machine_id: machine.label for machine_id, machine in dict(machines).items()}
+    table = findings_table(described, labels, reference_rh)
+    st.dataframe(table, hide_index=True, key=key, height=min(38 * (len(table) + 1) + 4, 620),
+                 column_config={"units delivered": st.column_config.TextColumn(width="medium")})
+    notes = described["notes"].fillna("")
+    if (notes != "").any():
+        with st.expander("Notes on these findings"):
+            st.dataframe(pd.DataFrame({
+                "note": [str(number) for number, text in enumerate(notes, 1) if text],
+                "machine and session": [f"{table['machine'][index]}, {table['session'][index]}"
+                                        for index, text in enumerate(notes) if text],
+                "what it says": [text for text in notes if text]}),
+                hide_index=True, key=f"{key}-notes",
+                column_config={"what it says": st.column_config.TextColumn(width="large")})
     return table
 
 
-def findings_formats(reference_rh: float = 0.45) -> dict:
-    """Number formats for the columns of :func:`findings_table`."""
-    return {
-        "efficiency median [%]": st.column_config.NumberColumn(format="%.1f"),
-        f"efficiency at {reference_rh * 100:g} % RH [%]":
-            st.column_config.NumberColumn(format="%.1f"),
-        "charge per revolution [nC]": st.column_config.NumberColumn(format="%.4g"),
-        "humidity effect [% points per +10 % RH]": st.column_config.NumberColumn(format="%+.1f"),
-    }
+def undescribed_warning(derived: pd.DataFrame, machines) -> None:
+    """Readings of machine ids the lab does not describe: a warning with the fix, not findings."""
+    ids = derived[col.MACHINE].astype("str")
+    unknown = ids[~ids.isin(list(machines))].value_counts()
+    if unknown.empty:
+        return
+    listed = ", ".join(f"'{machine_id}' ({count:,} reading{'s' if count != 1 else ''})"
+                       for machine_id, count in unknown.head(10).items())
+    st.warning(f"Readings name machines the lab does not describe: {listed}. They have no "
+               "ceiling and are not in the findings. Add a machine with that id on the Machines "
+               "page, or correct the id in the file and import it again.")
 
 
 def machine_labels() -> dict[str, str]:

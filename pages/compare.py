@@ -18,19 +18,30 @@ if derived.empty:
     st.page_link("pages/readings.py", label="Import readings", icon=":material/upload_file:")
     st.stop()
 
+described = derived[derived[col.MACHINE].isin(list(machines))]
+shared.undescribed_warning(derived, machines)
+if described.empty:
+    st.info("No readings of a described machine yet: add the machines on the Machines page.")
+    st.stop()
+
 with st.container(border=True):
-    first, second, third = st.columns([2, 2, 1])
-    machine_ids = sorted(derived[col.MACHINE].unique())
-    chosen = first.multiselect("Machines", machine_ids, default=machine_ids,
-                               format_func=lambda key: labels.get(key, f"{key} (not described)"),
-                               key="compare-machines")
-    sessions = sorted(derived.loc[derived[col.MACHINE].isin(chosen), col.SESSION].unique())
-    chosen_sessions = second.multiselect("Sessions", sessions, default=sessions,
-                                         format_func=lambda name: name or "(no session)",
-                                         key="compare-sessions")
-    show_flagged = third.toggle("Show flagged readings", False, key="compare-flagged")
-    reference_rh = third.number_input("Reference RH [%]", 0, 100, 45, key="compare-ref-rh") / 100
-    rh_known = derived[col.RH].dropna()
+    machine_ids = [machine_id for machine_id in machines
+                   if machine_id in set(described[col.MACHINE])]
+    chosen = st.multiselect("Machines", machine_ids, default=machine_ids,
+                            format_func=labels.get, key="compare-machines",
+                            placeholder="Choose machines")
+    sessions = list(dict.fromkeys(
+        described.loc[described[col.MACHINE].isin(chosen)].sort_values(col.TIME)[col.SESSION]))
+    # Sessions follow the machines: when the machines change, every session of the chosen
+    # machines is selected again (a selection that would match nothing is never kept).
+    if st.session_state.get("compare-machines-seen") != chosen:
+        st.session_state["compare-machines-seen"] = list(chosen)
+        st.session_state["compare-sessions"] = sessions
+    chosen_sessions = st.multiselect("Sessions", sessions, key="compare-sessions",
+                                     format_func=lambda name: name or "(no session)",
+                                     placeholder="Choose sessions")
+    first, second, third = st.columns([3, 3, 2])
+    rh_known = described[col.RH].dropna()
     rh_range = (0, 100)
     if not rh_known.empty:
         low = int(rh_known.min() * 100)
@@ -38,14 +49,20 @@ with st.container(border=True):
         rh_range = first.slider("Relative humidity [%]", 0, 100,
                                 (max(0, min(low, 100)), max(0, min(high, 100))),
                                 key="compare-rh")
-    times = derived[col.TIME].dropna()
+    times = described[col.TIME].dropna()
     date_range = None
     if not times.empty:
         first_day, last_day = times.min().date(), times.max().date()
         if first_day < last_day:
             date_range = second.slider("Dates", first_day, last_day, (first_day, last_day),
                                        key="compare-dates")
+    show_flagged = third.toggle("Show flagged", False, key="compare-flagged",
+                                help="Draw the flagged readings too (grey crosses); they stay "
+                                     "out of the fits")
+    reference_rh = third.number_input("Compare efficiency at RH [%]", 0, 100, 45,
+                                      key="compare-ref-rh") / 100
 
+derived = described
 mask = derived[col.MACHINE].isin(chosen) & derived[col.SESSION].isin(chosen_sessions)
 rh_percent = derived[col.RH] * 100
 # The slider stops at 0 and 100 %: readings outside (flagged) stay with the nearest end.
@@ -81,12 +98,6 @@ flagged = int((shown[col.FLAGS] != "").sum())
 st.subheader("Findings")
 st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "
            "One row per machine and session; intervals are 95 % confidence intervals.")
-st.dataframe(shared.findings_table(findings, labels, reference_rh), hide_index=True,
-             column_config=shared.findings_formats(reference_rh), key="compare-findings")
-unknown = sorted(set(shown[col.MACHINE]) - set(machines))
-if unknown:
-    st.warning("Readings name machines that are not described: " + ", ".join(unknown)
-               + ". Add them on the Machines page to get their ceiling.")
-st.download_button("Download these findings (CSV)",
-                   report.to_csv_bytes(shared.findings_table(findings, labels, reference_rh)),
+table = shared.show_findings(findings, machines, reference_rh, key="compare-findings")
+st.download_button("Download these findings (CSV)", report.to_csv_bytes(table),
                    file_name="findings.csv", mime="text/csv", key="compare-download")

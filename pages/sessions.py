@@ -15,7 +15,12 @@ if derived.empty:
     st.info("No readings yet: import a session on the Readings page.")
     st.stop()
 
-machine_ids = sorted(derived[col.MACHINE].unique())
+shared.undescribed_warning(derived, labels)
+machine_ids = [machine_id for machine_id in labels
+               if machine_id in set(derived[col.MACHINE])]
+if not machine_ids:
+    st.info("No readings of a described machine yet: add the machines on the Machines page.")
+    st.stop()
 machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
                           format_func=lambda key: labels.get(key, key))
 of_machine = derived[derived[col.MACHINE] == machine_id]
@@ -79,6 +84,9 @@ else:
     try:
         comparison = analysis.compare_sessions(derived, machine_id, first, second)
         st.success(comparison["verdict"])
+        st.plotly_chart(figures.sessions_compared(derived, machine_id, first, second,
+                                                  comparison, labels.get(machine_id)),
+                        key="sessions-compared")
         metrics = st.columns(3)
         metrics[0].metric(f"Mean efficiency, {first}", f"{comparison['mean_a'] * 100:.1f} %")
         metrics[1].metric(f"Mean efficiency, {second}", f"{comparison['mean_b'] * 100:.1f} %",

@@ -146,25 +146,38 @@ def test_demo_data_of_an_earlier_version_is_removed_only_when_confirmed(tmp_path
 
 def test_overview_shows_the_findings_of_every_machine(demo_lab):
     app = open_page()
-    table = table_with(app, "efficiency median [%]")
-    # Eight sessions of four machines, and the stack's mistyped machine id on its own row.
-    assert len(table) == 9
-    assert table["efficiency median [%]"].between(1, 60).sum() == 8
+    table = table_with(app, "efficiency, median [%]")
+    # Eight sessions of four machines; the stack's mistyped machine id is no finding but a
+    # warning that says how to fix it.
+    assert len(table) == 8
+    efficiency = table["efficiency, median [%]"].astype(float)
+    assert efficiency.between(1, 60).all()
     twin = table[table["machine"] == "Science centre twin-disc machine"].set_index("session")
-    assert twin.loc["after restoration", "efficiency median [%]"] > \
-        twin.loc["before restoration", "efficiency median [%]"] + 10
+    assert float(twin.loc["after restoration", "efficiency, median [%]"]) > \
+        float(twin.loc["before restoration", "efficiency, median [%]"]) + 10
+    assert any("'stack-sx' (1 reading)" in item.value and "Machines page" in item.value
+               for item in app.warning)
+    assert not any("None" in str(cell) or "nan" == str(cell) for cell in table.to_numpy().ravel())
 
 
 def test_compare_draws_four_charts_and_filters(demo_lab):
     app = open_page("pages/compare.py")
     assert len(charts(app)) == 4
-    findings = table_with(app, "efficiency median [%]")
-    assert len(findings) >= 4
+    findings = table_with(app, "efficiency, median [%]")
+    assert len(findings) == 8
     app.multiselect(key="compare-machines").set_value(["school-belt"]).run()
     assert not app.exception
-    findings = table_with(app, "efficiency median [%]")
-    assert set(findings["carrier"]) == {"belt"} and len(findings) == 3  # three groups
+    findings = table_with(app, "efficiency, median [%]")
+    assert set(findings["machine"]) == {"School belt machine"} and len(findings) == 3
     assert len(charts(app)) == 4
+    # Clearing the machines and choosing two again brings their sessions back, never an
+    # empty selection that matches nothing.
+    app.multiselect(key="compare-machines").set_value([]).run()
+    app.multiselect(key="compare-machines").set_value(["school-belt",
+                                                       "centre-twin-disc"]).run()
+    assert set(app.multiselect(key="compare-sessions").value) == {
+        "group A", "group B", "group C", "before restoration", "after restoration"}
+    assert len(charts(app)) == 4 and "No readings match" not in texts(app)
 
 
 def test_compare_says_what_to_do_when_nothing_matches(demo_lab):
@@ -411,7 +424,12 @@ def test_sessions_compares_before_and_after_restoration(demo_lab):
     app.selectbox(key="sessions-b").set_value("after restoration").run()
     verdicts = [item.value for item in app.success]
     assert any("after restoration" in text and "more" in text for text in verdicts)
-    assert len(charts(app)) == 1
+    assert len(charts(app)) == 2  # the session over time, and before against after
+    compared = [chart for chart in charts(app) if "median per speed step" in chart.proto.spec]
+    assert compared and "After minus before at the same speed" in compared[0].proto.spec
+    # The stack's mistyped id is not a machine to choose, but a warning with the fix.
+    assert "stack-sx" not in app.selectbox(key="sessions-machine").options
+    assert any("'stack-sx'" in item.value for item in app.warning)
 
 
 def test_planner_answers_the_inverse_questions(demo_lab):
