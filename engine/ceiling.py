@@ -173,7 +173,7 @@ def _limit_density(machine: Machine, pressure_pa, temperature_k):
 
 def speed_for_current(machine: Machine, target_current_a: float, speed_kind: str = ROTATION,
                       pressure_pa: float = REFERENCE_PRESSURE_PA,
-                      temperature_k: float = REFERENCE_TEMPERATURE_K) -> float:
+                      temperature_k: float = REFERENCE_TEMPERATURE_K, efficiency=1.0):
     """Speed at which the ceiling reaches a target current (the planner's inverse question).
 
     Parameters
@@ -185,18 +185,26 @@ def speed_for_current(machine: Machine, target_current_a: float, speed_kind: str
         Whether to answer in rev/s or, for a belt, in m/s.
     pressure_pa, temperature_k : float
         Air conditions [Pa], [K].
+    efficiency : float or array_like, optional
+        The share of the ceiling the machine delivers [-]: 1 for the ceiling itself, or the
+        machine's measured efficiency (e.g. its observed units over its units, and the ends
+        of their interval) for the speed it would really need.
 
     Returns
     -------
-    float
-        Speed [rev/s] or [m/s]: f = I / (sigma_limit * A_rev * units), since the ceiling is
-        linear in speed.
+    float or numpy.ndarray
+        Speed [rev/s] or [m/s]: f = I / (eta * sigma_limit * A_rev * units), since the ceiling
+        is linear in speed; NaN where the efficiency is not above zero.
     """
     if not target_current_a > 0:
         raise InputError("the target current must be positive")
     per_unit_speed = float(machine_ceiling(machine, 1.0, speed_kind, pressure_pa,
                                            temperature_k).ceiling_current_a)
-    return target_current_a / per_unit_speed
+    efficiency = np.asarray(efficiency, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        speed = np.where(efficiency > 0, target_current_a / (efficiency * per_unit_speed),
+                         np.nan)
+    return float(speed) if speed.ndim == 0 else speed
 
 
 #: What the planner keeps as it is while it varies one size of each carrier kind.

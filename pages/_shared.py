@@ -520,3 +520,17 @@ def stored_imports(current_store: Store) -> None:
         st.rerun()
     no.button("Keep it", key="readings-remove-keep", on_click=st.session_state.pop,
               args=("readings-remove", None))
+
+
+def measured_efficiency(machine_id: str) -> tuple[float, float, float] | None:
+    """A machine's measured efficiency from its readings: observed units over its units, with
+    the 95 % interval of the observed units; None without a speed fit."""
+    findings = load_findings()
+    rows = findings[findings["machine"] == machine_id]
+    if rows.empty:
+        return None
+    row = rows.iloc[0]
+    observed, units, interval = row["observed_units"], row["units"], row["observed_units_ci"]
+    if not (isinstance(interval, tuple) and math.isfinite(observed) and units > 0):
+        return None
+    return observed / units, interval[0] / units, interval[1] / units

@@ -103,6 +103,25 @@ if machine is not None:
         needed_text = (f"{needed:.3g} m/s" if top_kind == "linear"
                        else f"{to_display(needed, 'rotation_rate', 'rpm'):.4g} rpm")
         target_column.success(f"Speed needed for the ceiling to reach it: **{needed_text}**")
+        measured = shared.measured_efficiency(machine.id) if choice == "a stored machine" \
+            else None
+        if measured is not None:
+            efficiency, low, high = measured
+            speeds_needed = speed_for_current(machine, target_a, top_kind, pressure_pa,
+                                              temperature_k, [efficiency, high, low])
+
+            def shown_speed(value: float) -> str:
+                return (f"{value:.3g} m/s" if top_kind == "linear"
+                        else f"{to_display(value, 'rotation_rate', 'rpm'):,.0f} rpm")
+
+            target_column.info(
+                f"At its measured efficiency ({efficiency * 100:.1f} %, 95 % interval "
+                f"{low * 100:.1f} to {high * 100:.1f} %, from its readings) it needs about "
+                f"**{shown_speed(speeds_needed[0])}** ({shown_speed(speeds_needed[1])} to "
+                f"{shown_speed(speeds_needed[2])}).")
+        elif choice == "a stored machine":
+            target_column.caption("With readings of this machine the planner also answers at "
+                                  "its measured efficiency.")
         at_text = speed_column.text_input("At the speed", top_text, key="planner-at-speed")
         at_speed, at_kind = parse_speed(at_text, "at the speed")
         what, size = size_for_current(machine, target_a, at_speed, at_kind, pressure_pa,

@@ -442,6 +442,21 @@ def test_planner_answers_the_inverse_questions(demo_lab):
     assert len(charts(app)) == 1
 
 
+def test_planner_answers_at_the_measured_efficiency_too(demo_lab):
+    app = open_page("pages/planner.py")
+    app.radio(key="planner-source").set_value("a stored machine").run()
+    app.selectbox(key="planner-machine").set_value("workshop-cylinder").run()
+    app.text_input(key="planner-target").input("10 uA").run()
+    ceiling_answer = " ".join(item.value for item in app.success)
+    measured = " ".join(item.value for item in app.info)
+    assert "At its measured efficiency" in measured and "95 % interval" in measured
+    # Hand-worked: the speed at the measured efficiency is the ceiling's speed over it.
+    ceiling_rpm = float(ceiling_answer.split("**")[1].split()[0].replace(",", ""))
+    efficiency = float(measured.split("efficiency (")[1].split(" %")[0]) / 100
+    measured_rpm = float(measured.split("**")[1].split()[0].replace(",", ""))
+    assert measured_rpm == pytest.approx(ceiling_rpm / efficiency, rel=0.01)
+
+
 def test_report_offers_every_download(demo_lab):
     app = open_page("pages/report.py")
     keys = {button.key for button in app.get("download_button")}

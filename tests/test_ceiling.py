@@ -138,3 +138,16 @@ def test_planner_inverse_questions_give_back_the_target():
     assert what == "active length" and length == pytest.approx(0.8, rel=1e-3)
     with pytest.raises(InputError, match="positive"):
         speed_for_current(twin, 0.0)
+
+
+def test_the_speed_at_a_measured_efficiency_is_the_ceiling_speed_over_it():
+    from engine.ceiling import speed_for_current
+
+    twin = machine()
+    # Law: the ceiling is linear in speed, so a machine at efficiency eta needs 1/eta times
+    # the speed at which its ceiling reaches the target.
+    at_ceiling = speed_for_current(twin, 27.904e-6)
+    at_quarter, at_half, never = speed_for_current(twin, 27.904e-6, efficiency=[0.25, 0.5, 0])
+    assert at_quarter == pytest.approx(4 * at_ceiling)
+    assert at_half == pytest.approx(2 * at_ceiling)
+    assert np.isnan(never)
