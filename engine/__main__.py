@@ -138,7 +138,9 @@ def _as_option_names(message: str) -> str:
     keys = sorted(list(_GEOMETRY_OPTIONS) + [key for key in _MACHINE_OPTIONS if key != "units"],
                   key=len, reverse=True)
     for key in keys:
-        message = re.sub(rf"(?<![\w-]){key}(?!\w)", "--" + key.replace("_", "-"), message)
+        # ("the outer diameter (30 cm)" is plain words, not the cylinder's --diameter)
+        message = re.sub(rf"(?<![\w-])(?<!outer )(?<!inner ){key}(?!\w)",
+                         "--" + key.replace("_", "-"), message)
     # "units" is also a plain word: only where it stands for the key.
     message = re.sub(r"(?<![\w-])units(?= must| or | =)|(?<=give )units(?= or)", "--units",
                      message)

@@ -20,7 +20,7 @@ from typing import ClassVar
 import numpy as np
 
 from engine.errors import InputError
-from engine.units import Tolerance, parse_quantity
+from engine.units import Tolerance, one_line, parse_quantity
 
 #: Rotation rate: the speed is revolutions per second of the carrier (or of the roller).
 ROTATION = "rotation"
@@ -378,6 +378,13 @@ def carrier_from_spec(kind: str, spec: Mapping[str, object], where: str = "") ->
     if kind == "disc":
         outer = _one_of(spec, "outer_radius", "outer_diameter", where, required=True)
         inner = _one_of(spec, "inner_radius", "inner_diameter", where, required=False)
+        if inner is not None and outer is not None and 0 < outer <= inner:
+            outer_key = "outer_radius" if "outer_radius" in spec else "outer_diameter"
+            inner_key = "inner_radius" if "inner_radius" in spec else "inner_diameter"
+            raise InputError(
+                f"{where}: the {outer_key.replace('_', ' ')} ({one_line(str(spec[outer_key]))})"
+                f" must be larger than the {inner_key.replace('_', ' ')} "
+                f"({one_line(str(spec[inner_key]))}); check that they are not swapped")
         if inner is None:
             raise InputError(
                 f"{where}: inner_diameter (or inner_radius) is missing: the charged zone of a "

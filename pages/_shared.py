@@ -68,8 +68,9 @@ computes; it does not make a set-up safe.
 #: Example values that the machine form starts with, one per geometry key.
 FIELD_EXAMPLES = {
     "outer_diameter": "46 cm", "outer_radius": "", "inner_diameter": "30 cm",
-    "inner_radius": "", "sector_fill": "1", "width": "5 cm", "roller_diameter": "5 cm",
-    "loop_length": "", "radius": "", "diameter": "20 cm", "active_length": "40 cm",
+    "inner_radius": "", "sector_fill": "1", "width": "5 cm",
+    "roller_diameter": "5 cm", "loop_length": "", "radius": "", "diameter": "20 cm",
+    "active_length": "40 cm",
     "area_per_rev": "0.12 m^2",
 }
 FIELD_HELP = {
@@ -162,11 +163,13 @@ def form_fields(kind: str) -> list[str]:
     return [key for key in SPEC_KEYS[kind] if key not in hidden]
 
 
-def machine_form_table(kind: str, prefix: str, values: dict | None = None) -> dict:
+def machine_form_table(kind: str, prefix: str, values: dict | None = None,
+                       examples_as_values: bool = False) -> dict:
     """Draw text inputs for a carrier kind's geometry; return the table they describe.
 
     Radii stored in an existing machine are shown as diameters' alternatives: the form keeps
-    whatever key the machine used.
+    whatever key the machine used. A new machine's fields start empty with an example as
+    placeholder; a sketch (``examples_as_values``) starts from the examples.
     """
     values = values or {}
     table: dict[str, object] = {"carrier": kind}
@@ -176,9 +179,11 @@ def machine_form_table(kind: str, prefix: str, values: dict | None = None) -> di
             keys[keys.index(stored.replace("radius", "diameter"))] = stored
     columns = st.columns(min(3, len(keys)))
     for index, key in enumerate(keys):
-        default = str(values.get(key, FIELD_EXAMPLES.get(key, "") if not values else ""))
+        example = FIELD_EXAMPLES.get(key, "")
+        default = str(values.get(key, example if examples_as_values and not values else ""))
         with columns[index % len(columns)]:
             text = st.text_input(key.replace("_", " "), default, key=f"{prefix}-{kind}-{key}",
+                                 placeholder=f"e.g. {example}" if example else "optional",
                                  help=FIELD_HELP.get(key.replace("radius", "diameter")))
         if text.strip():
             table[key] = text.strip()

@@ -67,6 +67,10 @@ with site_tab:
 NEW = "(a new machine)"
 
 
+class _NothingYet(Exception):
+    """A new machine without any size typed yet: nothing to draw or save."""
+
+
 def _delete(machine) -> None:
     """Delete a machine (its readings stay) and keep it for the undo button."""
     store.delete_machine(machine.id)
@@ -98,6 +102,10 @@ with edit_tab:
     machine_id = left.text_input("Id (letters, digits, '-' and '_')",
                                  current.id if current else "", key=f"machines-id-{chosen}",
                                  disabled=current is not None, placeholder="e.g. gallery-twin")
+    taken = current is None and machine_id.strip() in existing
+    if taken:
+        st.error(f"A machine with the id '{machine_id.strip()}' is already in the lab. Give the "
+                 "new machine another id, or choose that machine above to edit it.")
     label = right.text_input("Name shown on charts", current.label if current else "",
                              key=f"machines-label-{chosen}",
                              placeholder="e.g. Gallery twin-disc machine")
@@ -143,7 +151,13 @@ with edit_tab:
         table["material"] = material.strip()
     if tolerance:
         table["tolerance"] = tolerance
+    sizes_given = any(key in table for key in SPEC_KEYS[kind])
+    if current is None and not sizes_given:
+        st.info("Fill in the sizes above, in any unit, to see the carrier drawn to scale, its "
+                "units and its ceiling.")
     try:
+        if current is None and not sizes_given:
+            raise _NothingYet
         machine = machine_from_table({"id": machine_id.strip() or "new-machine", **table})
         drawing_column, figures_column = st.columns([3, 2])
         drawing_column.plotly_chart(carrier_drawing(machine), key=f"machines-drawing-{chosen}")
@@ -171,10 +185,6 @@ with edit_tab:
                 f"With an air gap of {machine.air_gap_text} the breakdown field follows the "
                 "uniform-field relation for air at that gap: short gaps hold more than the "
                 "3 MV/m of centimetre gaps, so the ceiling is higher (see Safety and method).")
-        taken = current is None and machine_id.strip() in existing
-        if taken:
-            st.error(f"A machine with the id '{machine_id.strip()}' is already in the lab. Give "
-                     "the new machine another id, or choose that machine above to edit it.")
         save_column, delete_column = st.columns(2)
         if save_column.button("Save changes" if current else "Add this machine", type="primary",
                               key=f"machines-save-{chosen}", disabled=taken):
@@ -199,6 +209,8 @@ with edit_tab:
                        on_click=_delete, args=(current,))
             no.button("Keep it", key=f"machines-delete-no-{chosen}",
                       on_click=st.session_state.pop, args=("machines-confirm-delete", None))
+    except _NothingYet:
+        pass
     except InputError as error:
         shared.show_error(error)
 

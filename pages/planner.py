@@ -43,7 +43,7 @@ try:
     if choice == "a sketch" or machine is None and not stored:
         kind = st.selectbox("Carrier", shared.carrier_choices(), key="planner-kind",
                             format_func=shared.CARRIER_LABELS.get)
-        table = shared.machine_form_table(kind, "planner")
+        table = shared.machine_form_table(kind, "planner", examples_as_values=True)
         table.update(shared.units_form(kind, f"planner-{kind}"))
         machine = shared.sketch_machine(table)
 except InputError as error:

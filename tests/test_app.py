@@ -250,6 +250,8 @@ def test_a_new_machine_never_replaces_one_of_the_same_id(demo_lab):
     app = open_page("pages/machines.py")
     app.selectbox(key="machines-kind-(a new machine)").set_value("cylinder").run()
     app.text_input(key="machines-id-(a new machine)").input("centre-twin-disc").run()
+    app.text_input(key="machines-(a new machine)-cylinder-diameter").input("12 cm").run()
+    app.text_input(key="machines-(a new machine)-cylinder-active_length").input("30 cm").run()
     assert any("is already in the lab" in item.value for item in app.error)
     assert app.button(key="machines-save-(a new machine)").disabled
     with open_store(demo_lab) as store:
@@ -262,11 +264,15 @@ def test_the_form_starts_clean_after_adding_a_machine(demo_lab):
     app.text_input(key="machines-id-(a new machine)").input("bench-drum").run()
     app.text_input(key="machines-label-(a new machine)").input("Bench drum").run()
     app.text_input(key="machines-material-(a new machine)").input("acrylic").run()
+    app.text_input(key="machines-(a new machine)-cylinder-diameter").input("12 cm").run()
+    app.text_input(key="machines-(a new machine)-cylinder-active_length").input("30 cm").run()
     app.button(key="machines-save-(a new machine)").click().run()
     assert "Saved machine 'bench-drum'" in texts(app)
     assert app.text_input(key="machines-id-(a new machine)").value == ""
     assert app.text_input(key="machines-label-(a new machine)").value == ""
     assert app.text_input(key="machines-material-(a new machine)").value == ""
+    assert app.text_input(key="machines-(a new machine)-disc-outer_diameter").value == ""
+    assert "Fill in the sizes above" in texts(app)
 
 
 def test_deleting_a_machine_asks_first_and_can_be_undone(demo_lab):
@@ -550,6 +556,7 @@ def test_machine_form_takes_an_air_gap_and_shows_the_higher_field(demo_lab):
     app.selectbox(key="machines-kind-(a new machine)").set_value("disc").run()
     app.text_input(key="machines-id-(a new machine)").input("close-gap").run()
     app.text_input(key="machines-(a new machine)-disc-outer_diameter").input("40 cm").run()
+    app.text_input(key="machines-(a new machine)-disc-inner_diameter").input("20 cm").run()
     app.text_input(key="machines-air-gap-(a new machine)").input("1 mm").run()
     values = {metric.label: metric.value for metric in app.metric}
     field = float(values["Breakdown field at the site"].split()[0])
