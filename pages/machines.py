@@ -67,7 +67,7 @@ with site_tab:
 NEW = "(a new machine)"
 
 
-class _NothingYet(Exception):
+class _NoSizesError(Exception):
     """A new machine without any size typed yet: nothing to draw or save."""
 
 
@@ -157,7 +157,7 @@ with edit_tab:
                 "units and its ceiling.")
     try:
         if current is None and not sizes_given:
-            raise _NothingYet
+            raise _NoSizesError
         machine = machine_from_table({"id": machine_id.strip() or "new-machine", **table})
         drawing_column, figures_column = st.columns([3, 2])
         drawing_column.plotly_chart(carrier_drawing(machine), key=f"machines-drawing-{chosen}")
@@ -209,7 +209,7 @@ with edit_tab:
                        on_click=_delete, args=(current,))
             no.button("Keep it", key=f"machines-delete-no-{chosen}",
                       on_click=st.session_state.pop, args=("machines-confirm-delete", None))
-    except _NothingYet:
+    except _NoSizesError:
         pass
     except InputError as error:
         shared.show_error(error)
