@@ -255,8 +255,14 @@ def _style(figure: go.Figure, title: str, x_title: str, y_title: str) -> None:
                 mode = getattr(trace, "mode", "") or ""
                 marker = getattr(trace, "marker", None)
                 symbol = (marker.symbol if marker is not None else None) or "circle"
-                line_kinds.setdefault(kind, ((line.dash if line else None) or "solid", mode,
-                                             symbol))
+                dash = (line.dash if line else None) or "solid"
+                # One key per look: a solid and a dotted fit line, or a fitted value drawn as a
+                # marker, each get the key that looks like them.
+                if kind == "fitted line" and mode == "markers":
+                    kind = "fitted charge per revolution (95 % interval)"
+                elif kind == "fitted line" and dash != "solid":
+                    kind = "fitted line, one session"
+                line_kinds.setdefault(kind, (dash, mode, symbol))
     for kind, (dash, mode, symbol) in line_kinds.items():
         # The key looks like the traces it stands for (a line, or the same marker).
         figure.add_trace(go.Scatter(x=[None], y=[None], name=kind, hoverinfo="skip",
@@ -608,68 +614,79 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     tick_text: list[str] = []
     no_speed, no_description = [], []
     jitter = np.random.default_rng(0)  # fixed seed: the same data draw the same chart
+    sessions_column = (derived[col.SESSION].fillna("").astype("str").to_numpy()
+                       if col.SESSION in derived else np.full(len(derived), "", dtype=object))
     for machine_id in ids:
         machine_rows = machine_column == machine_id
-        rows = machine_rows & ~flagged & np.isfinite(charge_nc)
+        rows_all = machine_rows & ~flagged & np.isfinite(charge_nc)
         if not (machine_rows & ~flagged).any():
             continue
-        if not rows.any():
+        if not rows_all.any():
             no_speed.append(machine_id)
             continue
-        position = position_of[machine_id] = len(tick_text)
         label, colour = _escape(_label(machines, machine_id)), colours[machine_id]
-        tick_text.append(label)
-        values = charge_nc[rows]
-        figure.add_trace(go.Box(
-            x=[position], **_box_statistics(values), name=label, legendgroup=machine_id,
-            marker={"color": colour}, line={"color": colour}, boxpoints=False,
-            hoverinfo="y+name",
-        ))
-        if values.size <= _STRIP_POINTS_MAX:
-            figure.add_trace(go.Scatter(
-                x=position + jitter.uniform(-0.18, 0.18, values.size), y=values,
-                mode="markers", name=f"{label}: readings", legendgroup=machine_id,
-                showlegend=False, marker={"color": colour, "size": 4, "opacity": 0.45},
-                hovertemplate="Charge per revolution %{y:.3g} nC",
-            ))
-        for row in _findings_rows(findings, machine_id):
-            fitted = _number(row.get("charge_per_rev_nC"))
-            if not math.isfinite(fitted):
-                continue
-            low, high = _interval(row.get("charge_per_rev_ci_nC"))
-            session = _session_of(row)
-            has_interval = math.isfinite(low) and math.isfinite(high)
-            figure.add_trace(go.Scatter(
-                x=[position + 0.3], y=[fitted], mode="markers",
-                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
-                marker={"color": colour, "symbol": "diamond", "size": 10,
-                        "line": {"color": "#000000", "width": 1}},
-                error_y={"type": "data", "symmetric": False,
-                         "array": [high - fitted if has_interval else 0.0],
-                         "arrayminus": [fitted - low if has_interval else 0.0],
-                         "visible": has_interval},
-                hovertemplate=(f"Fitted q = {fitted:.3g} nC"
-                               + (f" (95 % CI {low:.3g} to {high:.3g} nC)"
-                                  if has_interval else "")),
-            ))
         machine = machines.get(machine_id)
         if machine is None:
             no_description.append(machine_id)
-            continue
-        density = _median_density(derived[rows])
-        ceiling = _ceiling_at_density(machine, 1.0, density)  # the current at 1 rev/s is q_rev
-        if ceiling is None:
-            continue
-        figure.add_trace(go.Scatter(
-            x=[position], y=[float(ceiling) * _NANO], mode="markers",
-            name=f"{label}: ceiling", legendgroup=machine_id,
-            marker={"color": colour, "symbol": "line-ew-open", "size": 44,
-                    "line": {"color": colour, "width": 3}},
-            hovertemplate=(f"Ceiling per revolution at relative air density {density:.3f}"
-                           f"<br>%{{y:.3g}} nC: {machine.units:g} unit"
-                           f"{'s' if machine.units != 1 else ''}"
-                           f"<br>{_escape(machine.unit_rule.rule)}<extra></extra>"),
-        ))
+        # One box per session (before and after a restoration never share a box), in the
+        # order the sessions were run.
+        sessions = list(dict.fromkeys(sessions_column[rows_all]))
+        for session in sessions:
+            rows = rows_all & (sessions_column == session)
+            position = len(tick_text)
+            position_of.setdefault(machine_id, position)
+            shown = f"{label}<br>{_escape(session)}" if len(sessions) > 1 and session else label
+            tick_text.append(shown)
+            values = charge_nc[rows]
+            figure.add_trace(go.Box(
+                x=[position], **_box_statistics(values), name=label, legendgroup=machine_id,
+                marker={"color": colour}, line={"color": colour}, boxpoints=False,
+                hoverinfo="y+name", showlegend=session == sessions[0],
+            ))
+            if values.size <= _STRIP_POINTS_MAX:
+                figure.add_trace(go.Scatter(
+                    x=position + jitter.uniform(-0.18, 0.18, values.size), y=values,
+                    mode="markers", name=f"{label}: readings", legendgroup=machine_id,
+                    showlegend=False, marker={"color": colour, "size": 4, "opacity": 0.45},
+                    hovertemplate="Charge per revolution %{y:.3g} nC",
+                ))
+            for row in _findings_rows(findings, machine_id):
+                if len(sessions) > 1 and _session_of(row) not in ("", session):
+                    continue
+                fitted = _number(row.get("charge_per_rev_nC"))
+                if not math.isfinite(fitted):
+                    continue
+                low, high = _interval(row.get("charge_per_rev_ci_nC"))
+                has_interval = math.isfinite(low) and math.isfinite(high)
+                figure.add_trace(go.Scatter(
+                    x=[position + 0.3], y=[fitted], mode="markers",
+                    name=_fit_name(label, _escape(_session_of(row))), legendgroup=machine_id,
+                    marker={"color": colour, "symbol": "diamond", "size": 10,
+                            "line": {"color": "#000000", "width": 1}},
+                    error_y={"type": "data", "symmetric": False,
+                             "array": [high - fitted if has_interval else 0.0],
+                             "arrayminus": [fitted - low if has_interval else 0.0],
+                             "visible": has_interval},
+                    hovertemplate=(f"Fitted q = {fitted:.3g} nC"
+                                   + (f" (95 % CI {low:.3g} to {high:.3g} nC)"
+                                      if has_interval else "") + "<extra></extra>"),
+                ))
+            if machine is None:
+                continue
+            density = _median_density(derived[rows])
+            ceiling = _ceiling_at_density(machine, 1.0, density)  # the current at 1 rev/s
+            if ceiling is None:
+                continue
+            figure.add_trace(go.Scatter(
+                x=[position], y=[float(ceiling) * _NANO], mode="markers",
+                name=f"{label}: ceiling", legendgroup=machine_id,
+                marker={"color": colour, "symbol": "line-ew-open", "size": 44,
+                        "line": {"color": colour, "width": 3}},
+                hovertemplate=(f"Ceiling per revolution at relative air density {density:.3f}"
+                               f"<br>%{{y:.3g}} nC: {machine.units:g} unit"
+                               f"{'s' if machine.units != 1 else ''}"
+                               f"<br>{_escape(machine.unit_rule.rule)}<extra></extra>"),
+            ))
     shown_flagged = flagged & np.isfinite(charge_nc)
     if show_flagged and shown_flagged.any():
         # machines with only flagged readings get their own place on the axis
@@ -683,8 +700,12 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     if not figure.data:
         return _nothing_drawn(title, 0 if show_flagged else int(flagged.sum()))
     _style(figure, title, "Machine", CHARGE_AXIS)
+    # Many machines: names slanted and wrapped wider, so that they never overlap.
+    crowded = len(tick_text) > 4
     figure.update_xaxes(tickmode="array", tickvals=list(range(len(tick_text))),
-                        ticktext=[_wrap(text) for text in tick_text], title_text="", tickangle=0)
+                        ticktext=[_wrap(text, 22 if crowded else 14) for text in tick_text],
+                        title_text="", tickangle=-35 if crowded else 0,
+                        tickfont={"size": 10 if crowded else 12})
     _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
     return figure
 
@@ -858,13 +879,18 @@ def session_timeline(derived: pd.DataFrame | None, machine_id: str,
     efficiency_pct = _percent(_floats(frame, col.EFFICIENCY))
     points = int(clean.sum())
     mode = "lines+markers" if points <= WEBGL_THRESHOLD else "markers"
+    # Each quantity its own colour; the machine's colour is the current's.
+    speed_colour, efficiency_colour = (
+        colour_pair if colour not in (colour_pair := ("#E69F00", "#009E73"))
+        else ("#555555", "#000000"))
     panels = (
         (1, False, current_ua, "measured current", colour, "solid", "Current %{y:.3g} µA"),
-        (1, False, ceiling_ua, "ceiling", colour, "dash", "Ceiling %{y:.3g} µA"),
-        (2, False, speed_rpm, "speed", colour, "solid", "Speed %{y:.0f} rpm"),
+        (1, False, ceiling_ua, "ceiling", "#555555", "dash", "Ceiling %{y:.3g} µA"),
+        (2, False, speed_rpm, "speed", speed_colour, "solid", "Speed %{y:.0f} rpm"),
         (3, False, rh_pct, "relative humidity", PALETTE[4], "solid", "RH %{y:.1f} %"),
         (3, True, temperature_c, "temperature", PALETTE[5], "dot", "Temperature %{y:.1f} °C"),
-        (4, False, efficiency_pct, "efficiency", colour, "solid", "Efficiency %{y:.1f} %"),
+        (4, False, efficiency_pct, "efficiency", efficiency_colour, "solid",
+         "Efficiency %{y:.1f} %"),
     )
     for row, secondary, values, name, trace_colour, dash, y_hover in panels:
         shown = values[clean]
