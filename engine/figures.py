@@ -635,8 +635,9 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
             rows = rows_all & (sessions_column == session)
             position = len(tick_text)
             position_of.setdefault(machine_id, position)
-            shown = f"{label}<br>{_escape(session)}" if len(sessions) > 1 and session else label
-            tick_text.append(shown)
+            # A machine of several sessions is named by its sessions (its colour and the
+            # legend name the machine); a machine of one session by its name.
+            tick_text.append(_escape(session) if len(sessions) > 1 and session else label)
             values = charge_nc[rows]
             figure.add_trace(go.Box(
                 x=[position], **_box_statistics(values), name=label, legendgroup=machine_id,
@@ -703,9 +704,11 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     # Many machines: names slanted and wrapped wider, so that they never overlap.
     crowded = len(tick_text) > 4
     figure.update_xaxes(tickmode="array", tickvals=list(range(len(tick_text))),
-                        ticktext=[_wrap(text, 22 if crowded else 14) for text in tick_text],
-                        title_text="", tickangle=-35 if crowded else 0,
-                        tickfont={"size": 10 if crowded else 12})
+                        ticktext=[text if crowded else _wrap(text) for text in tick_text],
+                        title_text="", tickangle=-30 if crowded else 0, automargin=True,
+                        tickfont={"size": 11 if crowded else 12})
+    if crowded:  # the slanted names need the room under the axis that the legend takes
+        figure.update_layout(height=560, legend={"y": -0.42})
     _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
     return figure
 

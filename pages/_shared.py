@@ -446,8 +446,8 @@ def show_findings(findings: pd.DataFrame, machines, reference_rh: float = 0.45,
     described = described_findings(findings, machines)
     labels = {machine_id: machine.label for machine_id, machine in dict(machines).items()}
     table = findings_table(described, labels, reference_rh)
-    st.dataframe(table, hide_index=True, key=key, height=min(38 * (len(table) + 1) + 4, 620),
-                 column_config={"units delivered": st.column_config.TextColumn(width="medium")})
+    st.dataframe(table, hide_index=True, key=key, height=min(35 * (len(table) + 1) + 3, 620),
+                 column_config={"units delivered": st.column_config.TextColumn(width="large")})
     notes = described["notes"].fillna("")
     if (notes != "").any():
         with st.expander("Notes on these findings"):

@@ -371,7 +371,7 @@ def _twin_disc(rng: np.random.Generator, machine: Machine) -> pd.DataFrame:
                      (48.0, 53.0), (18.6, 19.4), (982.4, 980.9),
                      OutputModel(base=0.21, reference_speed_rev_s=5.0, noise=0.03))
     after = Session("after restoration", "2026-03-14T10:00:00", sweep, 7, 10.0, 30.0, 0.02,
-                    (41.0, 44.0), (20.8, 21.6), (987.9, 988.6),
+                    (44.0, 49.5), (20.8, 21.6), (987.9, 988.6),
                     OutputModel(base=0.38, reference_speed_rev_s=5.0, noise=0.015))
     frame = _readings_frame(machine, [_session_readings(rng, machine, before),
                                       _session_readings(rng, machine, after)])
