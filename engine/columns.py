@@ -61,7 +61,46 @@ FLAG_CODES: dict[str, str] = {
     "no_environment": "no humidity log entry within the time tolerance",
     "above_ceiling": "efficiency above 100 % by more than twice its uncertainty: almost always "
                      "a unit or geometry error",
-    "duplicate_time": "another reading of the same machine has the same time",
+    "duplicate_time": "another reading of the same machine has the same time and values",
     "bad_time": "the time could not be read",
     "speed_kind": "the speed's kind does not suit the machine (m/s for a disc)",
 }
+
+
+#: Each flag in a few plain words, for tables where the full meaning does not fit.
+FLAG_WORDS: dict[str, str] = {
+    "not_a_number": "text where a number belongs",
+    "unit_mismatch": "unit does not fit the column",
+    "missing_value": "value missing",
+    "negative": "negative value",
+    "zero_speed": "speed zero",
+    "unknown_machine": "machine not described",
+    "rh_out_of_range": "humidity out of range",
+    "temperature_out_of_range": "temperature out of range",
+    "pressure_out_of_range": "pressure out of range",
+    "no_environment": "no humidity log entry near it",
+    "above_ceiling": "above the ceiling",
+    "duplicate_time": "written twice",
+    "bad_time": "time unreadable",
+    "speed_kind": "wrong kind of speed",
+}
+
+
+def flags_in_words(flags):
+    """Flag codes ("code;code") in plain words ("value missing; written twice"), for display.
+
+    Parameters
+    ----------
+    flags : pandas.Series of str
+        Flags as stored.
+
+    Returns
+    -------
+    pandas.Series of str
+        The same index; "" where a reading has no flag. Each distinct flags text is put into
+        words once.
+    """
+    distinct = {text: "; ".join(FLAG_WORDS.get(code, code) for code in str(text).split(";")
+                                if code)
+                for text in flags.unique()}
+    return flags.map(distinct)

@@ -179,8 +179,11 @@ metrics[0].metric("Readings", f"{len(derived):,}")
 metrics[1].metric("Clean", f"{clean:,}")
 metrics[2].metric("Flagged (kept, left out of fits)", f"{len(derived) - clean:,}")
 if not counts.empty:
-    st.dataframe(pd.DataFrame({"flag": counts.index, "readings": counts.to_numpy(),
-                               "meaning": [col.FLAG_CODES.get(code, "") for code in counts.index]}),
+    st.dataframe(pd.DataFrame({"what is wrong": [col.FLAG_WORDS.get(code, code)
+                                                 for code in counts.index],
+                               "readings": counts.to_numpy(),
+                               "meaning": [col.FLAG_CODES.get(code, "") for code in counts.index],
+                               "flag": counts.index}),
                  hide_index=True, key="readings-flag-counts")
     if "above_ceiling" in counts.index:
         st.warning("Some readings are above 100 % of the ceiling: almost always a unit mistake "
@@ -188,7 +191,8 @@ if not counts.empty:
 output = report.output_frame(derived)
 # The same values in the words and units of the other pages (display only).
 preview = pd.DataFrame({
-    "row": derived[col.ROW].to_numpy(),
+    "line": (result.lines if len(result.lines) == len(derived)
+             else derived[col.ROW].to_numpy()),
     "machine": output["machine"],
     "session": output.get("session", ""),
     "time": output["time"],
@@ -199,6 +203,7 @@ preview = pd.DataFrame({
     "efficiency [%]": output["efficiency"] * 100,
     "RH [%]": output["rh_pct"],
     "flags": output["flags"],
+    "what is wrong": col.flags_in_words(output["flags"]),
     "note": output.get("note", ""),
 })
 show_only_flagged = st.toggle("Show only flagged readings", not counts.empty,
@@ -206,11 +211,14 @@ show_only_flagged = st.toggle("Show only flagged readings", not counts.empty,
 if preview["belt speed [m/s]"].isna().all():
     preview = preview.drop(columns=["belt speed [m/s]"])
 table = preview[preview["flags"] != ""] if show_only_flagged else preview
-st.dataframe(table.head(500), hide_index=True, key="readings-preview",
-             column_config={name: st.column_config.NumberColumn(format="%.4g")
-                            for name in ("speed [rpm]", "current [µA]", "ceiling [µA]")}
-             | {"efficiency [%]": st.column_config.NumberColumn(format="%.1f"),
-                "RH [%]": st.column_config.NumberColumn(format="%.1f")})
+# A dash where there is no value (the note keeps what a bad cell held), never "None".
+number_formats = {name: "{:.4g}" for name in ("speed [rpm]", "belt speed [m/s]",
+                                              "current [µA]", "ceiling [µA]")}
+number_formats |= {"efficiency [%]": "{:.1f}", "RH [%]": "{:.1f}"}
+st.dataframe(table.head(500).style.format(
+                 {name: pattern for name, pattern in number_formats.items()
+                  if name in table.columns}, na_rep=shared.DASH),
+             hide_index=True, key="readings-preview")
 st.caption(f"Showing {min(len(table), 500):,} of {len(table):,} rows.")
 
 st.subheader("Save")

@@ -1,5 +1,6 @@
 """Sessions: one humidity-logged session over time, and two sessions of a machine compared."""
 
+import pandas as pd
 import streamlit as st
 
 from engine import analysis, figures
@@ -37,8 +38,13 @@ st.plotly_chart(figures.session_timeline(one_session, machine_id, shared.colours
 st.caption(f"{len(one_session):,} readings, {len(flagged):,} flagged (marked with x).")
 if not flagged.empty:
     with st.expander(f"Flagged readings ({len(flagged)})"):
-        st.dataframe(flagged[[col.ROW, col.TIME, col.FLAGS, col.NOTE]], hide_index=True,
-                     key="sessions-flagged")
+        st.dataframe(pd.DataFrame({
+            "row in its file": flagged[col.ROW].to_numpy(),
+            "time": [f"{value:%-d %b %Y, %H:%M:%S}" if value == value else shared.DASH
+                     for value in flagged[col.TIME]],
+            "what is wrong": col.flags_in_words(flagged[col.FLAGS]).to_numpy(),
+            "note": flagged[col.NOTE].fillna("").to_numpy()}),
+            hide_index=True, key="sessions-flagged")
 
 if one_session[col.VOLTAGE_V].notna().any():
     st.subheader("Load line: current against terminal voltage")

@@ -257,7 +257,8 @@ def test_xlsx_written_in_the_test(tmp_path):
     assert frame["speed_rev_s"].iloc[0] == pytest.approx(5.0)
     assert frame["speed_rev_s"].iloc[2] == pytest.approx(4.0)
     assert flags_of(result) == ["", "not_a_number", ""]
-    assert frame["note"].tolist() == ["plain", "=1+1", ""]
+    # The bad cell's text is kept beside the note ("speed written '12,x'").
+    assert frame["note"].tolist() == ["plain", "=1+1; speed written '12,x'", ""]
     # hand-worked: 10:01 - 10:00 = 60 s, 10:02 - 10:00 = 120 s
     assert frame["elapsed_s"].tolist() == [0.0, 60.0, 120.0]
     # The sheet can be chosen by name or number; a missing one is a clear error.
@@ -792,7 +793,9 @@ def test_no_row_is_lost_or_reordered(rows):
     assert len(frame) == len(rows)
     assert frame["row"].tolist() == list(range(1, len(rows) + 1))
     assert frame["machine"].tolist() == [row[0] for row in rows]
-    assert frame["note"].tolist() == [row[3] for row in rows]
+    # Each note is kept as written; a bad speed or current cell adds what it held.
+    for note, row in zip(frame["note"], rows, strict=True):
+        assert note.startswith(row[3]) or (not row[3].strip() and "written '" in note)
     for position, (_machine, speed, _current, _note) in enumerate(rows):
         try:
             expected = float(speed) / 60.0  # hand-worked: rpm / 60 = rev/s

@@ -170,7 +170,12 @@ def parse_numbers(series: pd.Series, decimal_hint: str = ".") -> ParsedNumbers:
     number = number.str.replace(f"[{_GROUP_SPACES}]", "", regex=True)
     exponent = number.str.extract(f"({_EXPONENT})", expand=False).fillna("")
     mantissa = number.str.replace(_EXPONENT, "", regex=True)
-    decimal, thousands, ambiguous = _decide_decimal(mantissa[matched], decimal_hint)
+    # Only cells that are numbers (bare, or with a unit this tool knows) are evidence of the
+    # decimal mark: '1,5x' is text, and must not turn '1.625' into 1625.
+    unit_texts = parts["unit"].fillna("").str.strip()
+    known = {text: text == "" or is_unit(text) for text in unit_texts.unique()}
+    evidence = matched & unit_texts.map(known).to_numpy(dtype=bool)
+    decimal, thousands, ambiguous = _decide_decimal(mantissa[evidence], decimal_hint)
     group = "," if decimal == "." else "."
     grouped = mantissa.str.fullmatch(
         rf"[+-]?\d{{1,3}}(?:[{re.escape(group)}']\d{{3}})+(?:{re.escape(decimal)}\d*)?")

@@ -133,6 +133,11 @@ def read_readings(
     times = _parse_times(table.data.get("time"), table.data.get("date"), table, options,
                          decimal, source_name, units_used, messages)
 
+    # A cell that holds no value of its field keeps what was written there, in the note, so
+    # that the user sees "current written 'OVL'" and not an empty value.
+    for field_name, text_mask, unit_mask in (("speed", speed_text, speed_unit),
+                                             ("current", current_text, current_unit)):
+        note = _keep_written(note, table, field_name, text_mask | unit_mask)
     masks["not_a_number"] = not_number
     masks["unit_mismatch"] = unit_mismatch
     masks["missing_value"] = ((np.isnan(speed) & ~speed_text & ~speed_unit)
@@ -188,6 +193,18 @@ def read_readings(
     mapping = {name: column.header for name, column in table.columns.items()}
     return ReadResult(frame, source_name, file_format, mapping, units_used, messages,
                       list(decisions), np.asarray(table.lines, dtype=np.int64))
+
+
+def _keep_written(note, table, field_name: str, mask: np.ndarray):
+    """The notes with "<field> written '<cell>'" added where ``mask`` marks a bad cell."""
+    if not mask.any() or field_name not in table.data:
+        return note
+    notes = pd.Series(note, dtype="object").reset_index(drop=True)
+    cells = table.data[field_name].reset_index(drop=True)[mask].astype("str").str.slice(0, 40)
+    written = f"{field_name} written '" + cells + "'"
+    before = notes[mask].fillna("").astype("str")
+    notes[mask] = np.where(before.str.strip() == "", written, before + "; " + written)
+    return notes.to_numpy(dtype=object)
 
 
 def _cell_note(table, field_name: str, text: np.ndarray, unit: np.ndarray) -> str:
