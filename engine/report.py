@@ -666,13 +666,32 @@ def _notes_of(record: Mapping[str, object]) -> str:
     return "" if _blank(notes) else str(notes)
 
 
-def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machine],
-                    reference_rh_pct: float) -> str:
-    """The findings in two tables narrow enough for a page, with their notes numbered below."""
-    if findings is not None and "machine" in findings:
-        # readings of undescribed machines have no ceiling: the verdict names them instead
+def _in_report_order(findings: pd.DataFrame, machines: Mapping[str, Machine],
+                     sessions: Mapping[str, Sequence[str]]) -> list[dict[str, object]]:
+    """The findings of described machines, machine by machine, each one's sessions in time."""
+    if "machine" in findings:
+        # readings of undescribed machines have no ceiling: the header names them instead
         findings = findings[findings["machine"].astype(str).isin(list(machines))]
-    if findings is None or len(findings) == 0:
+    machine_position = {machine_id: number for number, machine_id in enumerate(machines)}
+    records = findings.to_dict("records")
+
+    def position(record: Mapping[str, object]) -> tuple[int, int]:
+        machine_id = str(record.get("machine"))
+        session = "" if _blank(record.get("session")) else str(record.get("session"))
+        order = list(sessions.get(machine_id, []))
+        return (machine_position.get(machine_id, len(machine_position)),
+                order.index(session) if session in order else len(order))
+
+    return sorted(records, key=position)
+
+
+def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machine],
+                    reference_rh_pct: float,
+                    sessions: Mapping[str, Sequence[str]] | None = None) -> str:
+    """The findings in two tables narrow enough for a page, with their notes numbered below."""
+    records = ([] if findings is None else
+               _in_report_order(findings, machines, sessions or {}))
+    if not records:
         return "<p>No findings: no machine had readings to fit.</p>"
     main_header = ["Machine", "Session", "Readings used",
                    "Efficiency [%]: median (quartiles)",
@@ -686,7 +705,7 @@ def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machin
                   "Relative humidity at half output [%]"]
     percent = _PERCENT_PER_FRACTION
     main_rows, fit_rows, notes = [], [], []
-    for record in findings.to_dict("records"):
+    for record in records:
         machine_id = "" if _blank(record.get("machine")) else str(record.get("machine"))
         machine = machines.get(machine_id)
         label = _esc(machine.label if machine is not None else machine_id)
@@ -1185,7 +1204,8 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
         _notes_html(notes),
         _machines_html(machines),
         '<section class="findings"><h2>Findings</h2>',
-        _findings_table(findings, machines, reference_rh_pct),
+        _findings_table(findings, machines, reference_rh_pct,
+                        sessions_in_time_order(derived)),
         _comparisons_html(comparisons),
         "</section>",
         '<section class="charts"><h2>Charts</h2>',
