@@ -30,7 +30,7 @@ from engine import columns as col
 from engine.arrangements import COUNTED, TRADE_RULE, delivery_sentence
 from engine.errors import InputError
 from engine.machines import Machine
-from engine.units import to_display
+from engine.units import split_quantity, to_display
 
 #: Columns of :func:`output_frame`, in order (command-line header and JSON keys).
 OUTPUT_COLUMNS: tuple[str, ...] = (
@@ -472,7 +472,6 @@ def _table(header: Sequence[str], rows: Sequence[Sequence[str]], caption: str = 
 
 # --- machines in words -----------------------------------------------------------------------
 
-_QUANTITY = re.compile(r"\s*([+-]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][+-]?\d{1,3})?)\s*(.*?)\s*$")
 _FILL_WORDS = ((0.5, "half"), (0.25, "a quarter"), (0.75, "three quarters"))
 _SPLIT_WORDS = ("split collectors (each collector's two halves angled toward the nearest "
                 "neutraliser)")
@@ -483,13 +482,23 @@ def _plural(count: float, word: str) -> str:
     return f"{shown} {word}" if shown == "1" else f"{shown} {word}s"
 
 
+def _unit_written(text: object) -> str:
+    """The unit of a quantity as the user wrote it ("cm" of "44 cm"), "" when there is none."""
+    if not isinstance(text, str):
+        return ""
+    try:
+        return split_quantity(text, "size")[1]
+    except InputError:
+        return ""
+
+
 def _as_written(text: object, metres: float) -> tuple[str, str]:
     """A length as the user wrote it, split in number and unit ("44", "cm"); in cm, from the
     SI value, when the user wrote no unit."""
-    if isinstance(text, str):
-        match = _QUANTITY.fullmatch(text)
-        if match and match.group(2):
-            return match.group(1), match.group(2)
+    unit = _unit_written(text)
+    written = str(text).strip()
+    if unit and written.endswith(unit):
+        return written[:-len(unit)].strip(), unit
     return f"{float(to_display(metres, 'length', 'cm')):.3g}", "cm"
 
 
@@ -573,7 +582,7 @@ def _cylinder_words(machine: Machine) -> str:
 
 def _custom_words(machine: Machine) -> str:
     text = machine.spec.get("area_per_rev")
-    if not (isinstance(text, str) and (match := _QUANTITY.fullmatch(text)) and match.group(2)):
+    if not _unit_written(text):
         text = f"{float(to_display(machine.carrier.area_per_rev_m2, 'area', 'cm^2')):.4g} cm²"
     carriers = "" if machine.carriers == 1 else f" ({machine.carriers} carriers)"
     return f"a machine described by its charged area per revolution, {text}{carriers}"
