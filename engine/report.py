@@ -27,8 +27,10 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 
 from engine import columns as col
+from engine.arrangements import COUNTED, TRADE_RULE, delivery_sentence
+from engine.errors import InputError
 from engine.machines import Machine
-from engine.units import to_display
+from engine.units import split_quantity, to_display
 
 #: Columns of :func:`output_frame`, in order (command-line header and JSON keys).
 OUTPUT_COLUMNS: tuple[str, ...] = (
@@ -458,50 +460,269 @@ def _with_interval(central: str, interval: str, suffix: str = "") -> str:
     return central + suffix + ("" if interval == _DASH else f" ({interval})")
 
 
-def _table(header: Sequence[str], rows: Sequence[Sequence[str]], caption: str = "") -> str:
-    """An HTML table; ``header`` and ``rows`` must already be escaped."""
+def _table(header: Sequence[str], rows: Sequence[Sequence[str]], caption: str = "",
+           widths: Sequence[float] = ()) -> str:
+    """An HTML table; ``header`` and ``rows`` must already be escaped; ``widths`` in % of the
+    page width, one per column, so that a wide table wraps its cells rather than the page."""
     head = "".join(f"<th>{cell}</th>" for cell in header)
     body = "".join("<tr>" + "".join(f"<td>{cell}</td>" for cell in row) + "</tr>"
                    for row in rows)
     caption_html = f"<caption>{caption}</caption>" if caption else ""
-    return f"<table>{caption_html}<thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+    columns = "".join(f'<col style="width: {width:g}%">' for width in widths)
+    columns_html = f"<colgroup>{columns}</colgroup>" if columns else ""
+    return (f"<table>{caption_html}{columns_html}<thead><tr>{head}</tr></thead>"
+            f"<tbody>{body}</tbody></table>")
 
 
-def _machines_table(machines: Mapping[str, Machine]) -> str:
-    header = ["Id", "Label", "Carrier", "Geometry (as described)", "Units of one carrier's "
-              "ceiling (rule)", "Charged area per revolution [cm²]",
-              "Breakdown field at reference [MV/m]", "Material", "Notes"]
-    rows = []
-    for machine in machines.values():
-        area = machine.carrier.area_per_rev_m2
-        geometry = ", ".join(f"{key} = {value}" for key, value in machine.spec.items())
-        rows.append([
-            _esc(machine.id), _esc(machine.label), _esc(machine.kind), _esc(geometry),
-            _esc(f"{machine.units:g} ({machine.unit_rule.text})"),
-            _fmt(to_display(area, "area", "cm^2"), 4) if area is not None else "– (linear speed)",
-            _fmt(to_display(machine.breakdown_field_at(1.0), "electric_field", "MV/m"))
-            + (f" (air gap {_esc(machine.air_gap_text)})" if machine.air_gap_text else ""),
-            _esc(machine.material), _esc(machine.notes),
-        ])
-    return _table(header, rows)
+# --- machines in words -----------------------------------------------------------------------
+
+_FILL_WORDS = ((0.5, "half"), (0.25, "a quarter"), (0.75, "three quarters"))
+_SPLIT_WORDS = ("split collectors (each collector's two halves angled toward the nearest "
+                "neutraliser)")
+
+
+def _plural(count: float, word: str) -> str:
+    shown = f"{count:g}"
+    return f"{shown} {word}" if shown == "1" else f"{shown} {word}s"
+
+
+def _unit_written(text: object) -> str:
+    """The unit of a quantity as the user wrote it ("cm" of "44 cm"), "" when there is none."""
+    if not isinstance(text, str):
+        return ""
+    try:
+        return split_quantity(text, "size")[1]
+    except InputError:
+        return ""
+
+
+def _as_written(text: object, metres: float) -> tuple[str, str]:
+    """A length as the user wrote it, split in number and unit ("44", "cm"); in cm, from the
+    SI value, when the user wrote no unit."""
+    unit = _unit_written(text)
+    written = str(text).strip()
+    if unit and written.endswith(unit):
+        return written[:-len(unit)].strip(), unit
+    return f"{float(to_display(metres, 'length', 'cm')):.3g}", "cm"
+
+
+def _length_words(text: object, metres: float) -> str:
+    number, unit = _as_written(text, metres)
+    return f"{number} {unit}"
+
+
+def _span_words(inner_text: object, inner_m: float, outer_text: object, outer_m: float) -> str:
+    inner_number, inner_unit = _as_written(inner_text, inner_m)
+    outer_number, outer_unit = _as_written(outer_text, outer_m)
+    if inner_unit == outer_unit:
+        return f"from {inner_number} to {outer_number} {outer_unit}"
+    return f"from {inner_number} {inner_unit} to {outer_number} {outer_unit}"
+
+
+def _fill_words(fill: float) -> str:
+    for value, words in _FILL_WORDS:
+        if math.isclose(fill, value, abs_tol=1e-9):
+            return words
+    return f"{fill * _PERCENT_PER_FRACTION:.3g} %"
+
+
+def _disc_words(machine: Machine) -> str:
+    disc, spec = machine.carrier, machine.spec
+    sectored = disc.sector_fill < 1
+    arrangement = machine.arrangement
+    if arrangement == "twin-disc":
+        head = "a twin-disc machine with metal sectors: two counter-rotating discs"
+    elif arrangement == "twin-disc-sectorless":
+        head = "a sectorless twin-disc machine: two counter-rotating discs without sectors"
+    elif arrangement == "disc-stack":
+        head = (f"a disc stack: {machine.discs} close-spaced counter-rotating discs "
+                + ("with metal sectors" if sectored else "without sectors"))
+    elif arrangement == "single-disc":
+        head = "a single-disc machine: one disc turning past a fixed inductor plate"
+    else:
+        head = (f"a disc machine with {_plural(machine.carriers, 'disc')}"
+                + (" with metal sectors" if sectored else ""))
+    if machine.collectors == "split":
+        head += f", with {_SPLIT_WORDS}"
+    word = "radius" if "outer_radius" in spec else "diameter"
+    scale = 1.0 if word == "radius" else 2.0
+    outer_text, inner_text = spec.get(f"outer_{word}"), spec.get(f"inner_{word}")
+    if inner_text is None:  # inner size not given, or given the other way: both from SI
+        outer_text = None if disc.inner_radius_m > 0 else outer_text
+    outer_m, inner_m = disc.outer_radius_m * scale, disc.inner_radius_m * scale
+    if disc.inner_radius_m > 0:
+        zone = f"charged zone {_span_words(inner_text, inner_m, outer_text, outer_m)} {word}"
+    else:
+        zone = f"charged zone the whole disc, {_length_words(outer_text, outer_m)} {word}"
+    if sectored:
+        zone += f", sectors covering {_fill_words(disc.sector_fill)} of it"
+    return f"{head}, {zone}"
+
+
+def _belt_words(machine: Machine) -> str:
+    belt, spec = machine.carrier, machine.spec
+    belts = "a belt" if machine.carriers == 1 else f"{machine.carriers} belts"
+    words = f"a belt machine: {belts} {_length_words(spec.get('width'), belt.width_m)} wide"
+    if belt.roller_diameter_m is not None:
+        return (words + ", running over a roller of "
+                f"{_length_words(spec.get('roller_diameter'), belt.roller_diameter_m)} "
+                "diameter on which the speed is read")
+    if belt.loop_length_m is not None:
+        loop = _length_words(spec.get("loop_length"), belt.loop_length_m)
+        return words + f" in a loop of {loop} (the speed is counted in circulations of the belt)"
+    return words + " (the speed is the belt's linear speed)"
+
+
+def _cylinder_words(machine: Machine) -> str:
+    cylinder, spec = machine.carrier, machine.spec
+    cylinders = "a cylinder" if machine.carriers == 1 else f"{machine.carriers} cylinders"
+    if "radius" in spec:
+        size = f"{_length_words(spec.get('radius'), cylinder.radius_m)} radius"
+    else:
+        size = f"{_length_words(spec.get('diameter'), 2 * cylinder.radius_m)} diameter"
+    length = _length_words(spec.get("active_length"), cylinder.active_length_m)
+    return f"a cylinder machine: {cylinders} of {size}, charged over {length} of its length"
+
+
+def _custom_words(machine: Machine) -> str:
+    text = machine.spec.get("area_per_rev")
+    if not _unit_written(text):
+        text = f"{float(to_display(machine.carrier.area_per_rev_m2, 'area', 'cm^2')):.4g} cm²"
+    carriers = "" if machine.carriers == 1 else f" ({machine.carriers} carriers)"
+    return f"a machine described by its charged area per revolution, {text}{carriers}"
+
+
+def describe_machine(machine: Machine) -> str:
+    """A machine in the trade's words, as a report or a page writes it.
+
+    Parameters
+    ----------
+    machine : Machine
+        The machine.
+
+    Returns
+    -------
+    str
+        Plain text (not escaped) without a subject, e.g. "a twin-disc machine with metal
+        sectors: two counter-rotating discs, charged zone from 26 to 44 cm diameter, sectors
+        covering half of it; 1 unit (twin-disc with sectors = 1 unit in total (...); common
+        practice, no source)". Sizes are given in the units the user wrote them (in cm where
+        they wrote a bare number); the units and their rule come from
+        :attr:`engine.machines.Machine.unit_rule`.
+    """
+    describe = {"disc": _disc_words, "belt": _belt_words, "cylinder": _cylinder_words}.get(
+        machine.kind, _custom_words)
+    rule = machine.unit_rule
+    why = rule.rule if rule.basis == COUNTED else f"{rule.rule}; {rule.basis}"
+    return f"{describe(machine)}; {_plural(rule.units, 'unit')} ({why})"
+
+
+def _machine_facts(machine: Machine) -> str:
+    """The machine's figures in sentences, escaped."""
+    area = machine.carrier.area_per_rev_m2
+    one = "disc" if machine.kind == "disc" else "carrier"
+    facts = []
+    if area is not None:
+        facts.append(f"Charged area per revolution of one {one}: "
+                     f"{_fmt(to_display(area, 'area', 'cm^2'), 4)} cm².")
+    else:
+        facts.append("Charged area: belt width times the belt's linear speed.")
+    field = _fmt(to_display(machine.breakdown_field_at(1.0), "electric_field", "MV/m"))
+    facts.append(f"Breakdown field of air at the reference atmosphere (20 °C, 101.3 kPa): "
+                 f"{field} MV/m" + (f", from its air gap of {_esc(machine.air_gap_text)}."
+                                    if machine.air_gap_text else "."))
+    if machine.material:
+        facts.append(f"Material: {_esc(machine.material)}.")
+    facts.append(f"Identifier in the lab: {_esc(machine.id)}.")
+    text = " ".join(facts)
+    if machine.notes:
+        text += f"<br>Notes: {_esc(machine.notes)}"
+    return text
+
+
+def _machine_section(machine: Machine, drawings: Sequence[str], drawing_notes: Sequence[str]
+                     ) -> str:
+    label = _esc(machine.label or machine.id)
+    notes = "".join(f"; {_esc(note[:1].lower() + note[1:])}" for note in drawing_notes)
+    if len(drawings) > 1:
+        caption = (f"{label}. Left: the charged zone to scale{notes}. Right: the discs seen "
+                   "edge on, with the units each one counts for and the collectors (not to "
+                   "scale).")
+    else:
+        caption = f"{label}: the carrier to scale{notes}."
+    return (f'<article class="machine"><h3>{label}</h3>'
+            f"<p>{label} is {_esc(describe_machine(machine))}.</p>"
+            f'<p class="facts">{_machine_facts(machine)}</p>'
+            f'<figure class="drawings"><div class="drawing-row">{"".join(drawings)}</div>'
+            f"<figcaption>{caption}</figcaption></figure></article>")
+
+
+_TITLE_NOTES = re.compile(r"^.*?<br><span[^>]*>(.*)</span>$", re.S)
+
+
+def _caption_instead_of_title(figure) -> list[str]:
+    """Take the title off a small drawing (the page's caption says what it shows) and return
+    the notes the drawing wrote under its title, as plain text; the area, which the machine's
+    facts give, is left out."""
+    match = _TITLE_NOTES.match(figure.layout.title.text or "")
+    notes = [html.unescape(note) for note in match.group(1).split("<br>")] if match else []
+    figure.update_layout(title_text="", margin={"t": 10, "b": 10, "l": 10, "r": 10})
+    return [note for note in notes if not note.startswith("Charged area per revolution")]
+
+
+# --- findings --------------------------------------------------------------------------------
+
+def _notes_of(record: Mapping[str, object]) -> str:
+    notes = record.get("notes")
+    if isinstance(notes, (list, tuple)):
+        notes = "; ".join(str(note) for note in notes)
+    return "" if _blank(notes) else str(notes)
+
+
+def _in_report_order(findings: pd.DataFrame, machines: Mapping[str, Machine],
+                     sessions: Mapping[str, Sequence[str]]) -> list[dict[str, object]]:
+    """The findings of described machines, machine by machine, each one's sessions in time."""
+    if "machine" in findings:
+        # readings of undescribed machines have no ceiling: the header names them instead
+        findings = findings[findings["machine"].astype(str).isin(list(machines))]
+    machine_position = {machine_id: number for number, machine_id in enumerate(machines)}
+    records = findings.to_dict("records")
+
+    def position(record: Mapping[str, object]) -> tuple[int, int]:
+        machine_id = str(record.get("machine"))
+        session = "" if _blank(record.get("session")) else str(record.get("session"))
+        order = list(sessions.get(machine_id, []))
+        return (machine_position.get(machine_id, len(machine_position)),
+                order.index(session) if session in order else len(order))
+
+    return sorted(records, key=position)
 
 
 def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machine],
-                    reference_rh_pct: float) -> str:
-    if findings is None or len(findings) == 0:
+                    reference_rh_pct: float,
+                    sessions: Mapping[str, Sequence[str]] | None = None) -> str:
+    """The findings in two tables narrow enough for a page, with their notes numbered below."""
+    records = ([] if findings is None else
+               _in_report_order(findings, machines, sessions or {}))
+    if not records:
         return "<p>No findings: no machine had readings to fit.</p>"
-    header = ["Machine", "Session", "Carrier", "Readings used", "Readings flagged",
-              "Efficiency median [%] (quartiles)", "Charge per revolution q [nC] (95 % CI)",
-              "Offset current I0 [µA]", "Speed fit R² [-]", "Units delivered of expected",
-              "Humidity slope [% points per +10 % RH] (95 % CI)",
-              f"Efficiency at {reference_rh_pct:g} % RH [%]", "RH at half output [%]", "Notes"]
+    main_header = ["Machine", "Session", "Readings used",
+                   "Efficiency [%]: median (quartiles)",
+                   "Units delivered of those expected (95 % interval)",
+                   "Charge per revolution [nC] (95 % interval)",
+                   f"Efficiency at {reference_rh_pct:g} % relative humidity [%]", "Notes"]
+    fit_header = ["Machine", "Session", "Current at zero speed, I₀ [µA]",
+                  "How straight current against speed is, R² (1: a straight line)",
+                  "Change of efficiency per +10 % relative humidity [percentage points] "
+                  "(95 % interval)",
+                  "Relative humidity at half output [%]"]
     percent = _PERCENT_PER_FRACTION
-    rows = []
-    for record in findings.to_dict("records"):
+    main_rows, fit_rows, notes = [], [], []
+    for record in records:
         machine_id = "" if _blank(record.get("machine")) else str(record.get("machine"))
         machine = machines.get(machine_id)
-        label = machine.label if machine is not None else machine_id
-        session = "" if _blank(record.get("session")) else record.get("session")
+        label = _esc(machine.label if machine is not None else machine_id)
+        session = _esc("" if _blank(record.get("session")) else record.get("session"))
         quartiles = _interval_text((record.get("efficiency_q25"), record.get("efficiency_q75")),
                                    scale=percent, decimals=1)
         charge = _with_interval(_fmt(record.get("charge_per_rev_nC")),
@@ -511,26 +732,169 @@ def _findings_table(findings: pd.DataFrame | None, machines: Mapping[str, Machin
             charge = _with_interval(_fmt(record.get("charge_per_metre_nC")),
                                     _interval_text(record.get("charge_per_metre_ci_nC")),
                                     " per metre of belt")
-        notes = record.get("notes")
-        if isinstance(notes, (list, tuple)):
-            notes = "; ".join(str(note) for note in notes)
-        rows.append([
-            _esc(label), _esc(session), _esc("" if _blank(record.get("carrier")) else
-                                             record.get("carrier")),
-            _count(record.get("readings_used")), _count(record.get("readings_flagged")),
+        used = _count(record.get("readings_used"))
+        flagged = _number(record.get("readings_flagged"))
+        if math.isfinite(flagged) and flagged > 0:
+            used += f" ({flagged:.0f} flagged)"
+        note = _notes_of(record)
+        if note:
+            notes.append(note)
+        main_rows.append([
+            label, session, used,
             _with_interval(_fixed(record.get("efficiency_median"), 1, percent), quartiles),
-            charge,
-            _fmt(record.get("offset_current_uA")),
+            _units_text(record), charge,
+            _fixed(record.get("efficiency_at_reference_rh"), 1, percent),
+            f'<a href="#finding-note-{len(notes)}">note {len(notes)}</a>' if note else "",
+        ])
+        fit_rows.append([
+            label, session, _fmt(record.get("offset_current_uA")),
             _fixed(record.get("fit_r2"), 3),
-            _units_text(record),
             _with_interval(_fixed(record.get("humidity_slope_per_10pct"), 1, percent),
                            _interval_text(record.get("humidity_slope_per_10pct_ci"),
                                           scale=percent, decimals=1)),
-            _fixed(record.get("efficiency_at_reference_rh"), 1, percent),
             _fixed(record.get("logistic_rh_half_pct"), 0),
-            _esc("" if _blank(notes) else notes),
         ])
-    return _table(header, rows)
+    note_list = ""
+    if notes:
+        items = "".join(f'<li id="finding-note-{number}">{_esc(note[:1].upper() + note[1:])}'
+                        "</li>"
+                        for number, note in enumerate(notes, 1))
+        note_list = f'<ol class="table-notes">{items}</ol>'
+    return (_table(main_header, main_rows, widths=(16, 12, 10, 14, 14, 14, 11, 9))
+            + note_list + "<h3>The fits in detail</h3>"
+            + _table(fit_header, fit_rows, widths=(18, 14, 15, 15, 22, 16)))
+
+
+# --- the verdict -----------------------------------------------------------------------------
+
+def _session_name(session: str) -> str:
+    return f"'{session}'" if session else "(no session)"
+
+
+def sessions_in_time_order(derived: pd.DataFrame) -> dict[str, list[str]]:
+    """The sessions of each machine in the order they were held.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with ``machine``, ``session`` and ``time``.
+
+    Returns
+    -------
+    dict of str to list of str
+        Per machine id, its session names ("" for readings without a session) ordered by their
+        first reading in time; sessions without any time follow in the order they appear.
+    """
+    if derived is None or derived.empty or col.MACHINE not in derived:
+        return {}
+    sessions = (derived[col.SESSION] if col.SESSION in derived
+                else pd.Series("", index=derived.index))
+    times = (pd.to_datetime(derived[col.TIME], errors="coerce", utc=True, format="mixed")
+             if col.TIME in derived else pd.Series(pd.NaT, index=derived.index,
+                                                   dtype="datetime64[ns, UTC]"))
+    frame = pd.DataFrame({"machine": derived[col.MACHINE].astype(object).fillna("").astype(str),
+                          "session": sessions.astype(object).fillna("").astype(str),
+                          "time": times})
+    first = frame.groupby(["machine", "session"], sort=False)["time"].min().reset_index()
+    first["appearance"] = np.arange(len(first))
+    first = first.sort_values(["time", "appearance"], na_position="last", kind="stable")
+    return {machine: list(group["session"])
+            for machine, group in first.groupby("machine", sort=False)}
+
+
+def _comparison_html(derived: pd.DataFrame, machine: Machine, sessions: Sequence[str]) -> str:
+    from engine.analysis import compare_sessions
+
+    label = _esc(machine.label or machine.id)
+    first, last = sessions[0], sessions[-1]
+    which = ("" if len(sessions) == 2 else
+             f" (the first and the last of its {len(sessions)} sessions)")
+    heading = (f"<strong>{label}</strong>, from {_esc(_session_name(first))} to "
+               f"{_esc(_session_name(last))}{which}")
+    try:
+        comparison = compare_sessions(derived, machine.id, first, last)
+    except InputError as error:
+        return (f'<p class="verdict-item">{heading}. No comparison can be made: '
+                f"{_esc(error)}.</p>")
+    means = (f"Mean efficiency {_fixed(comparison['mean_a'], 1, _PERCENT_PER_FRACTION)} % in "
+             f"{_esc(_session_name(first))} ({comparison['n_a']} readings) and "
+             f"{_fixed(comparison['mean_b'], 1, _PERCENT_PER_FRACTION)} % in "
+             f"{_esc(_session_name(last))} ({comparison['n_b']} readings).")
+    notes = " ".join(f"{_esc(note[:1].upper() + note[1:])}." for note in
+                     comparison.get("notes") or [])
+    return (f'<p class="verdict-item">{heading}. {_esc(comparison["verdict"])}</p>'
+            f'<p class="detail">{means}{" " + notes if notes else ""}</p>')
+
+
+def _delivery_html(findings: pd.DataFrame | None, machine: Machine,
+                   sessions: Sequence[str]) -> str:
+    label = _esc(machine.label or machine.id)
+    if findings is None or "machine" not in findings:
+        return ""
+    rows = findings[findings["machine"].astype(str) == machine.id].to_dict("records")
+    if not rows:
+        return ""
+    position = {name: number for number, name in enumerate(sessions)}
+
+    def session_of(record: Mapping[str, object]) -> str | None:
+        value = record.get("session")
+        return None if _blank(value) else str(value)
+
+    rows.sort(key=lambda record: position.get(session_of(record) or "", len(position)))
+    clauses = []
+    for record in rows:
+        delivered = delivery_sentence(_number(record.get("observed_units")),
+                                      _number(record.get("units")),
+                                      str(record.get("units_basis") or TRADE_RULE))
+        median = _fixed(record.get("efficiency_median"), 1, _PERCENT_PER_FRACTION)
+        pieces = [delivered] if delivered else ["no speed fit"]
+        pieces.append(f"median efficiency {median} %" if median != _DASH
+                      else "no usable readings")
+        session = session_of(record)
+        clause = ", ".join(pieces)
+        clauses.append(clause if session is None else f"in {_session_name(session)}: {clause}")
+    if len(clauses) == 1 and session_of(rows[0]) is None:
+        return f"<li><strong>{label}</strong> {_esc(clauses[0])}.</li>"
+    return f"<li><strong>{label}</strong>: {_esc('; '.join(clauses))}.</li>"
+
+
+def _undescribed_text(derived: pd.DataFrame, machines: Mapping[str, Machine]) -> str:
+    """A sentence naming the machines that have readings but no description, escaped."""
+    if col.MACHINE not in derived:
+        return ""
+    ids = derived[col.MACHINE].dropna().astype(str).unique()
+    undescribed = sorted(set(ids) - set(machines))
+    if not undescribed:
+        return ""
+    return (f" Readings of {_plural(len(undescribed), 'machine')} without a description "
+            f"({_esc(', '.join(undescribed))}) have no ceiling and are left out of the verdict "
+            "and the findings: describe them on the Machines page to include them.")
+
+
+def _verdict_html(derived: pd.DataFrame, findings: pd.DataFrame | None,
+                  machines: Mapping[str, Machine]) -> str:
+    order = sessions_in_time_order(derived)
+    comparisons = [_comparison_html(derived, machine, order[machine_id])
+                   for machine_id, machine in machines.items()
+                   if len(order.get(machine_id, [])) >= 2]
+    deliveries = [_delivery_html(findings, machine, order.get(machine_id, []))
+                  for machine_id, machine in machines.items()]
+    deliveries = [item for item in deliveries if item]
+    parts = ['<section class="verdict"><h2>Verdict</h2>']
+    if comparisons:
+        parts.append("<h3>Before and after</h3>")
+        parts.extend(comparisons)
+    parts.append("<h3>What each machine delivers</h3>")
+    if deliveries:
+        parts.append(f'<ul class="delivery">{"".join(deliveries)}</ul>')
+        parts.append('<p class="detail">A unit is the ceiling current of one disc\'s (one '
+                     "carrier's) charged area; how many units a machine can deliver follows "
+                     "from its arrangement (see Machines and Method). The efficiency is the "
+                     "measured current over the ceiling current.</p>")
+    else:
+        parts.append("<p>No machine has findings: no readings could be fitted.</p>")
+    parts.append("</section>")
+    return "".join(parts)
 
 
 def _units_text(record: Mapping[str, object]) -> str:
@@ -654,17 +1018,110 @@ gaps or gas-discharge protectors; sparks destroy them.</li>
 <p><strong>The tool computes, it does not make a set-up safe.</strong></p>
 """
 
+#: Width of a chart in the report [px]: the text width of an A4 page with 15 mm margins
+#: (180 mm at the CSS 96 px per inch) less a little, so that charts print without scaling.
+CHART_WIDTH_PX = 660
+#: Height of a chart in the report [px]: two charts and their headings fit on an A4 page.
+CHART_HEIGHT_PX = 440
+# A carrier drawing beside its arrangement diagram, low enough for two machines a page.
+_DRAWING_PX = (280, 250)
+_DIAGRAM_PX = (CHART_WIDTH_PX - _DRAWING_PX[0], 250)
+_PLOT_CONFIG = {"displayModeBar": False, "responsive": False, "displaylogo": False}
+
 _STYLE = """
-body { font-family: system-ui, sans-serif; margin: 2em auto; max-width: 1150px;
-       color: #222; line-height: 1.45; padding: 0 1em; }
-table { border-collapse: collapse; margin: 0.5em 0 1.5em; font-size: 0.9em; }
-th, td { border: 1px solid #bbb; padding: 0.25em 0.5em; text-align: left;
-         vertical-align: top; }
-th { background: #eef2f5; }
+body { font-family: system-ui, -apple-system, "Segoe UI", "Helvetica Neue", Arial, sans-serif;
+       margin: 2em auto; max-width: 700px; color: #222; line-height: 1.45; padding: 0 1em; }
+h1 { font-size: 1.7em; margin-bottom: 0.2em; }
+h2 { font-size: 1.35em; border-bottom: 1px solid #ccc; padding-bottom: 0.1em; margin-top: 1.6em; }
+h3 { font-size: 1.08em; margin: 1.2em 0 0.4em; }
+table { border-collapse: collapse; margin: 0.5em 0 1em; font-size: 0.82em; width: 100%;
+        table-layout: fixed; }
+th, td { border: 1px solid #bbb; padding: 0.25em 0.4em; text-align: left; vertical-align: top;
+         overflow-wrap: anywhere; hyphens: auto; }
+th { background: #eef2f5; font-weight: 600; }
 .formula { font-size: 1.15em; margin-left: 1.5em; }
-.meta { color: #555; }
-.chart { margin: 1em 0 2em; }
+.meta, .detail, figcaption, .table-notes { color: #555; font-size: 0.9em; }
+.verdict-item { font-size: 1.05em; margin-bottom: 0.2em; }
+.delivery li { margin-bottom: 0.3em; }
+.facts { font-size: 0.92em; }
+figure { margin: 0.5em 0 1.2em; }
+.drawing-row { display: flex; flex-wrap: wrap; align-items: flex-start; }
+.chart { margin: 0.5em 0 1.5em; }
+.table-notes { margin-top: -0.4em; padding-left: 1.6em; }
+a { color: inherit; }
+@page { size: A4; margin: 16mm 15mm 16mm 15mm; }
+@media print {
+  body { max-width: none; margin: 0; padding: 0; font-size: 10pt; }
+  h1 { margin-top: 0; }
+  section.machines, section.findings, section.charts, section.method { break-before: page; }
+  h2, h3 { break-after: avoid; }
+  tr, th, td, figure, .chart, .drawing-row, .verdict-item, li, article.machine {
+    break-inside: avoid; }
+  h2 + article.machine h3 { margin-top: 0.6em; }
+  thead { display: table-header-group; }
+  th { -webkit-print-color-adjust: exact; print-color-adjust: exact; }
+  .modebar-container, .modebar, .no-print { display: none !important; }
+  a { text-decoration: none; }
+}
 """
+
+
+def _plot_html(figure, width: int, height: int, css_class: str = "chart") -> str:
+    """One chart as a div that draws with the plotly.js embedded once in the document head."""
+    import plotly.io as pio
+
+    figure.update_layout(width=width, height=height, autosize=False)
+    return (f'<div class="{css_class}">' + pio.to_html(figure, full_html=False,
+                                                       include_plotlyjs=False,
+                                                       config=_PLOT_CONFIG) + "</div>")
+
+
+def _machines_html(machines: Mapping[str, Machine]) -> str:
+    from engine.figures import arrangement_diagram, carrier_drawing
+
+    if not machines:
+        return '<section class="machines"><h2>Machines</h2><p>No machines.</p></section>'
+    articles = []
+    for machine in machines.values():
+        drawing = carrier_drawing(machine)
+        notes = _caption_instead_of_title(drawing)
+        drawings = [_plot_html(drawing, *_DRAWING_PX, css_class="drawing")]
+        if machine.kind == "disc":
+            diagram = arrangement_diagram(machine)
+            _caption_instead_of_title(diagram)
+            drawings.append(_plot_html(diagram, *_DIAGRAM_PX, css_class="drawing"))
+        articles.append(_machine_section(machine, drawings, notes))
+    return '<section class="machines"><h2>Machines</h2>' + "".join(articles) + "</section>"
+
+
+def report_file_name(title: str, day: date | datetime | None = None,
+                     suffix: str = ".html") -> str:
+    """A safe file name for a report: its title as a short slug, then its date.
+
+    Parameters
+    ----------
+    title : str
+        The report's title (user text).
+    day : date or datetime, optional
+        The report's date; default today.
+    suffix : str
+        The file name's ending.
+
+    Returns
+    -------
+    str
+        E.g. ``museum-twin-disc-before-and-after-2026-02-03.html``: letters folded to plain
+        ASCII (accents dropped), lower case, every other run of characters one hyphen, at most
+        60 characters before the date; ``ceiling-lab-report`` when nothing of the title is left.
+        No path separators, dots or spaces, so the name is safe on every file system.
+    """
+    import unicodedata
+
+    day = day or datetime.now().astimezone()
+    day = day.date() if isinstance(day, datetime) else day
+    plain = unicodedata.normalize("NFKD", str(title or "")).encode("ascii", "ignore").decode()
+    slug = re.sub(r"[^a-z0-9]+", "-", plain.lower()).strip("-")[:60].strip("-")
+    return f"{slug or 'ceiling-lab-report'}-{day.isoformat()}{suffix}"
 
 
 def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
@@ -674,7 +1131,7 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
                 reference_rh_pct: float | None = None,
                 colours: Mapping[str, str] | None = None,
                 generated: date | datetime | None = None) -> str:
-    """One self-contained HTML document reporting machines, findings and charts.
+    """One self-contained HTML document that a conservator or a teacher can file or print.
 
     Parameters
     ----------
@@ -700,12 +1157,20 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
     Returns
     -------
     str
-        An HTML document with the title, date, machines table, findings table, comparisons,
-        notes, the four comparison charts, method, references and safety notes. plotly's
-        JavaScript is embedded once; the document loads nothing from the network.
+        An HTML document, in this order: the title and date; the verdict (for each machine
+        with two or more sessions the first and the last session in time compared by
+        :func:`engine.analysis.compare_sessions`, and for each machine what it delivers in
+        units, :func:`engine.arrangements.delivery_sentence`, with its median efficiency); the
+        user's notes; the machines in words (:func:`describe_machine`) with their drawings;
+        the findings in two tables that fit a page, their notes numbered below; the
+        comparisons; the four comparison charts; the method with its references; the safety
+        notes. Every user text is escaped. plotly.js is embedded once, in the head; the
+        document loads nothing from the network. A print stylesheet (A4, page breaks before
+        the major sections and never inside a row or a figure, charts sized to the page, no
+        chart controls) makes a browser's "Print to PDF" a clean document.
     """
     # Charts are drawn here only: the exports and the command line never load plotly.
-    import plotly.io as pio
+    from plotly.offline import get_plotlyjs
 
     from engine.figures import (
         DEFAULT_REFERENCE_RH_PCT,
@@ -732,12 +1197,7 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
     ]
     charts.append(efficiency_vs_humidity(derived, findings, machines, colours,
                                          reference_rh_pct=reference_rh_pct))
-    chart_html = [
-        '<div class="chart">' + pio.to_html(figure, full_html=False,
-                                            include_plotlyjs=(number == 0),
-                                            config={"displaylogo": False}) + "</div>"
-        for number, figure in enumerate(charts)
-    ]
+    chart_html = [_plot_html(figure, CHART_WIDTH_PX, CHART_HEIGHT_PX) for figure in charts]
     total = len(derived)
     flagged = 0
     if col.FLAGS in derived:
@@ -747,20 +1207,25 @@ def html_report(derived: pd.DataFrame, findings: pd.DataFrame | None,
         "<!DOCTYPE html>",
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
-        f"<title>{_esc(title)}</title><style>{_STYLE}</style></head><body>",
-        f"<h1>{_esc(title)}</h1>",
-        f'<p class="meta">Report date: {day.isoformat()}. Readings: {total}, of which '
-        f"{flagged} flagged (left out of fits and charts).</p>",
-        "<h2>Machines</h2>",
-        _machines_table(machines) if machines else "<p>No machines.</p>",
-        "<h2>Findings</h2>",
-        _findings_table(findings, machines, reference_rh_pct),
-        _comparisons_html(comparisons),
+        f"<title>{_esc(title)}</title><style>{_STYLE}</style>",
+        f'<script type="text/javascript">{get_plotlyjs()}</script></head><body>',
+        f"<header><h1>{_esc(title)}</h1>",
+        f'<p class="meta">Report date: {day.isoformat()}. Machines: {len(machines)}. '
+        f"Readings: {total}, of which {flagged} flagged (left out of fits and charts)."
+        + _undescribed_text(derived, machines) + "</p></header>",
+        _verdict_html(derived, findings, machines),
         _notes_html(notes),
-        "<h2>Charts</h2>",
+        _machines_html(machines),
+        '<section class="findings"><h2>Findings</h2>',
+        _findings_table(findings, machines, reference_rh_pct,
+                        sessions_in_time_order(derived)),
+        _comparisons_html(comparisons),
+        "</section>",
+        '<section class="charts"><h2>Charts</h2>',
         *chart_html,
-        _METHOD_HTML,
-        _SAFETY_HTML,
+        "</section>",
+        f'<section class="method">{_METHOD_HTML}</section>',
+        f'<section class="safety">{_SAFETY_HTML}</section>',
         "</body></html>",
     ]
     return "\n".join(part for part in parts if part)

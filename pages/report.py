@@ -53,7 +53,10 @@ else:
             "HTML report", lambda: report.html_report(
                 selected, findings, chosen_machines, title,
                 colours=shared.colours_for(machine_file)).encode("utf-8"),
-            file_name="ceiling-lab-report.html", mime="text/html", key="report-html")
+            file_name=report.report_file_name(title), mime="text/html", key="report-html",
+            help="A document to file or print: the verdict first, the machines in words with "
+                 "their drawings, the findings, the charts, the method and the references. "
+                 "Open it in a browser and print it to PDF for a paper copy.")
 
 st.subheader("Lab bundle")
 st.caption("A zip of the machines file and every reading and humidity log, to move the lab to "

@@ -127,6 +127,10 @@ def test_the_html_report_downloads_self_contained(server, browser, tmp_path):
             page.get_by_role("button", name="HTML report").click()
         target = tmp_path / "report.html"
         download_info.value.save_as(target)
+        # named after the report's title (the page's default) and today's date
+        from engine.report import report_file_name
+
+        assert download_info.value.suggested_filename == report_file_name("Ceiling Lab report")
         html = target.read_text(encoding="utf-8")
         assert "Plotly.newPlot" in html and "Science centre twin-disc machine" in html
         assert "<script src=" not in html.replace(" ", "")  # plotly's JavaScript is embedded

@@ -1,31 +1,44 @@
 """Exports: the output table in display units, spreadsheets safe from formulas, the HTML report."""
 
 import csv
+import html
 import io
+import json
 import math
+import os
 import re
+import shutil
 from datetime import date
+from pathlib import Path
 
 import numpy as np
 import openpyxl
 import pandas as pd
 import pytest
 
+from engine import analysis
 from engine import columns as col
+from engine.arrangements import delivery_sentence
+from engine.machines import machine_from_table, parse_machines_text
+from engine.readings import read_readings
 from engine.report import (
     FORMULA_PREFIXES,
     OUTPUT_COLUMNS,
     TRACE_OUTPUT_COLUMNS,
     VOLTAGE_OUTPUT_COLUMNS,
+    describe_machine,
     html_report,
     iso_text,
     neutralise_formula,
     neutralise_frame,
     output_frame,
+    report_file_name,
+    sessions_in_time_order,
     to_csv_bytes,
     to_xlsx_bytes,
 )
 from tests.test_figures import MACHINE_TABLES, make_derived, make_findings, make_machines
+from tests.test_security import _Tags
 
 SIX_LEADERS = ("=", "+", "-", "@", "\t", "\r")
 ATTACK = "<script>alert(1)</script>"
@@ -274,8 +287,11 @@ def test_report_loads_nothing_from_the_network(report):
 def test_report_embeds_plotly_once_and_four_charts(report):
     # the plotly.js bundle opens with its licence banner naming the version, once
     assert len(re.findall(r"plotly\.js v\d", report)) == 1
-    assert report.count('class="plotly-graph-div"') == 4
-    assert report.count("Plotly.newPlot(") == 4
+    assert report.count('<div class="chart">') == 4
+    # and the drawings: one per machine, a second (its arrangement) for the disc machine
+    assert report.count('<div class="drawing">') == len(MACHINE_TABLES) + 1
+    assert report.count('class="plotly-graph-div"') == 4 + len(MACHINE_TABLES) + 1
+    assert report.count("Plotly.newPlot(") == 4 + len(MACHINE_TABLES) + 1
     for title in ("Measured current and ceiling against speed", "Efficiency against speed",
                   "Charge per revolution against the ceiling per revolution",
                   "Efficiency against relative humidity"):
@@ -284,8 +300,9 @@ def test_report_embeds_plotly_once_and_four_charts(report):
 
 def test_report_sections_method_references_and_safety(report):
     text = re.sub(r"\s+", " ", report)
-    for heading in ("<h2>Machines</h2>", "<h2>Findings</h2>", "<h2>Comparisons</h2>",
-                    "<h2>Notes</h2>", "<h2>Charts</h2>", "<h2>Method</h2>", "<h2>Safety</h2>"):
+    for heading in ("<h2>Verdict</h2>", "<h2>Machines</h2>", "<h2>Findings</h2>",
+                    "<h2>Comparisons</h2>", "<h2>Notes</h2>", "<h2>Charts</h2>",
+                    "<h2>Method</h2>", "<h2>Safety</h2>"):
         assert heading in text
     assert "Report date: 2026-02-03" in text
     for reference in ("IEC 60060-1", "ICAO Doc 7488/3", "Alduchov and Eskridge (1996)",
@@ -300,15 +317,16 @@ def test_report_sections_method_references_and_safety(report):
         assert warning in text, warning
 
 
-def test_report_tables_carry_machines_and_findings(report, report_inputs):
+def test_report_carries_machines_and_findings(report, report_inputs):
     _derived, findings, machines, _comparisons = report_inputs
     for machine in machines.values():
-        assert f"<td>{machine.id}</td>" in report
-    assert "Charged area per revolution [cm²]" in report
+        assert f"Identifier in the lab: {machine.id}." in report
     # the six-disc stack's area per revolution is 410 cm^2 per disc, shown to 4 digits;
     # the twin disc's is pi (22^2 - 13^2) * 0.5 = 494.8 cm^2 (hand-worked)
-    assert "<td>410.0</td>" in report and "<td>494.8</td>" in report
-    assert report.count("<tr>") >= len(machines) + len(findings) + 2
+    assert "Charged area per revolution of one carrier: 410.0 cm²." in report
+    assert "Charged area per revolution of one disc: 494.8 cm²." in report
+    # two findings tables (summary, fits in detail), one row per finding in each
+    assert report.count("<tr>") >= 2 * (len(findings) + 1) + 1
     assert "<td>31.25</td>" in report  # a comparison number, 4 significant digits
 
 
@@ -327,11 +345,14 @@ def test_findings_figures_in_display_units():
          "charge_per_rev_nC": math.nan, "charge_per_rev_ci_nC": None,
          "charge_per_metre_nC": 210.44, "charge_per_metre_ci_nC": [205.01, 215.87]},
     ])
+    machines = {**machines, "belt-lin": machine_from_table(
+        {"id": "belt-lin", "carrier": "belt", "width": "5 cm", "label": "Belt in m/s"})}
     page = html_report(frame_of(one_reading()), findings, machines, "Units",
                        generated=date(2026, 2, 3))
     # hand-worked: fractions x 100 to one decimal, nC to three significant digits without
     # exponent, R^2 to three decimals, RH at half output to whole percent
-    expected = ["<td>98</td>", "<td>23.8 (22.9 to 24.3)</td>", "<td>1391 (1376 to 1407)</td>",
+    expected = ["<td>98 (1 flagged)</td>", "<td>23.8 (22.9 to 24.3)</td>",
+                "<td>1391 (1376 to 1407)</td>",
                 "<td>0.426</td>", "<td>0.997</td>", "<td>4.4 of 20 (4.3 to 4.4)</td>",
                 "<td>-6.3 (-6.8 to -5.8)</td>", "<td>29.2</td>", "<td>66</td>",
                 "<td>210 per metre of belt (205 to 216)</td>"]
@@ -347,3 +368,341 @@ def test_report_with_no_readings_and_no_findings():
     assert page.count("No readings to show") == 4
     assert "No findings" in page
     assert len(re.findall(r"plotly\.js v\d", page)) == 1
+
+
+# --- the report a conservator files ----------------------------------------------------------
+
+CONSERVATOR_MACHINES = """
+[[machine]]
+id = "museum"
+label = "Museum twin-disc"
+carrier = "disc"
+outer_diameter = "44 cm"
+inner_diameter = "26 cm"
+sector_fill = 0.5
+arrangement = "twin-disc"
+collectors = "fixed"
+material = "glass discs"
+notes = "Discs cleaned, sectors re-glued."
+"""
+# One unit of the museum machine carries sigma * A = 26.55 uC/m^2 * pi (0.22^2 - 0.13^2) m^2
+# * 0.5 = 1.31 uC per revolution (design notes, worked by hand); the readings below are
+# invented at about 20 % of it before and 30 % after the restoration.
+UNIT_CHARGE_UC = 1.31
+
+
+def conservator_readings(before="before restoration", after="after restoration", seed=3):
+    """Readings of the museum machine in two sessions three months apart; the later session is
+    written first in the file, so only the times tell which came first."""
+    rng = np.random.default_rng(seed)
+    lines = ["machine,session,time,speed [rpm],current [uA],rh [%]"]
+    for session, day, efficiency in ((after, "2026-02-10", 0.30), (before, "2025-11-08", 0.20)):
+        for number in range(16):
+            speed_rpm = 180 + 15 * number
+            rh = 42 + (number * 7) % 9
+            current = efficiency * UNIT_CHARGE_UC * speed_rpm / 60 * rng.normal(1, 0.02)
+            lines.append(f"museum,{json.dumps(session)},{day}T10:{number:02d}:00,"
+                         f"{speed_rpm},{current:.4f},{rh}")
+    return "\n".join(lines).encode("utf-8")
+
+
+def conservator_report(title="Museum twin-disc, before and after restoration",
+                       machines_text=CONSERVATOR_MACHINES, **sessions):
+    machine_file = parse_machines_text(machines_text, "machines.toml")
+    readings = read_readings(conservator_readings(**sessions), name="museum.csv").frame
+    derived = analysis.derive(readings, machine_file.by_id(), machine_file.site)
+    findings = analysis.findings(derived, machine_file.by_id(), by_session=True)
+    page = html_report(derived, findings, machine_file.by_id(), title,
+                       generated=date(2026, 2, 11))
+    return page, derived, findings
+
+
+@pytest.fixture(scope="module")
+def conservator():
+    return conservator_report()
+
+
+def section(page, name):
+    """The text of one section of the report, from its heading to the next section."""
+    start = page.index(f"<h2>{name}</h2>")
+    end = page.find("</section>", start)
+    return page[start:end]
+
+
+def test_the_verdict_comes_first(conservator):
+    page, _derived, _findings = conservator
+    order = [page.index(f"<h2>{name}</h2>")
+             for name in ("Verdict", "Machines", "Findings", "Charts", "Method", "Safety")]
+    assert order == sorted(order)
+    assert page.index("<h1>") < order[0]
+    assert "Report date: 2026-02-11" in page[:order[0]]
+
+
+def test_the_verdict_compares_the_first_and_last_session_in_time(conservator):
+    page, derived, _findings = conservator
+    verdict = section(page, "Verdict")
+    # the file lists "after" first; in time "before restoration" (2025-11-08) came first
+    expected = analysis.compare_sessions(derived, "museum", "before restoration",
+                                         "after restoration")
+    assert html.escape(expected["verdict"], quote=True) in verdict
+    assert "delivers" in expected["verdict"] and "more" in expected["verdict"]
+    assert ("<strong>Museum twin-disc</strong>, from &#x27;before restoration&#x27; to "
+            "&#x27;after restoration&#x27;") in verdict
+    assert f"{expected['mean_a'] * 100:.1f} % in &#x27;before restoration&#x27;" in verdict
+
+
+def test_the_verdict_says_what_each_machine_delivers(conservator):
+    page, _derived, findings = conservator
+    verdict = section(page, "Verdict")
+    for record in findings.to_dict("records"):
+        sentence = delivery_sentence(record["observed_units"], record["units"],
+                                     record["units_basis"])
+        # a twin-disc with sectors allows 1 unit in total (the trade's rule, common practice,
+        # no source); the invented readings deliver about 0.2 and 0.3 of it
+        assert sentence.endswith("of the 1 unit its arrangement allows")
+        median = f"median efficiency {record['efficiency_median'] * 100:.1f} %"
+        assert f"in &#x27;{record['session']}&#x27;: {sentence}, {median}" in verdict
+    before = verdict.index("in &#x27;before restoration&#x27;:")
+    assert before < verdict.index("in &#x27;after restoration&#x27;:")
+    # the findings tables list the sessions in time too, not in file order
+    tables = section(page, "Findings")
+    assert tables.index("<td>before restoration</td>") < tables.index(
+        "<td>after restoration</td>")
+
+
+def test_a_machine_with_one_session_has_no_comparison(report):
+    verdict = section(report, "Verdict")
+    assert "Before and after" not in verdict
+    assert "What each machine delivers" in verdict
+
+
+def test_sessions_in_time_order_not_file_order():
+    derived = pd.DataFrame({
+        col.MACHINE: ["m", "m", "m", "n", "m"],
+        col.SESSION: ["later", "earlier", "undated", "only", None],
+        col.TIME: pd.to_datetime(["2026-03-01T10:00:00Z", "2026-01-01T10:00:00Z", None,
+                                  "2026-02-01T10:00:00Z", "2026-02-01T10:00:00Z"]),
+    })
+    assert sessions_in_time_order(derived) == {"m": ["earlier", "", "later", "undated"],
+                                               "n": ["only"]}
+    assert sessions_in_time_order(pd.DataFrame()) == {}
+
+
+def test_machines_are_described_in_words_not_keys(conservator, report):
+    page, _derived, _findings = conservator
+    machines = section(page, "Machines")
+    assert ("Museum twin-disc is a twin-disc machine with metal sectors: two counter-rotating "
+            "discs, charged zone from 26 to 44 cm diameter, sectors covering half of it; 1 unit "
+            "(twin-disc with sectors = 1 unit in total (one disc delivers, the other acts as a "
+            "moving inductor); common practice, no source).") in machines
+    assert "Material: glass discs." in machines
+    assert "Notes: Discs cleaned, sectors re-glued." in machines
+    for document in (page, report):
+        for key in ("outer_diameter", "inner_diameter", "sector_fill", "roller_diameter",
+                    "active_length", "area_per_rev"):
+            assert f"{key} =" not in document and f"{key}=" not in document
+
+
+@pytest.mark.parametrize(("table", "words"), [
+    # the trade's unit rules are common practice, no source (design notes)
+    ({"carrier": "disc", "outer_diameter": "32 cm", "inner_diameter": "18 cm",
+      "arrangement": "disc-stack", "discs": 6, "collectors": "split"},
+     "a disc stack: 6 close-spaced counter-rotating discs without sectors, with split "
+     "collectors (each collector's two halves angled toward the nearest neutraliser), charged "
+     "zone from 18 to 32 cm diameter; 20 units (2 outer discs x 2 + 4 inner discs x 4 = 20 "
+     "units; common practice, no source)"),
+    ({"carrier": "disc", "outer_diameter": "17.5 in", "inner_diameter": "10 in",
+      "arrangement": "twin-disc-sectorless"},
+     "a sectorless twin-disc machine: two counter-rotating discs without sectors, charged zone "
+     "from 10 to 17.5 in diameter; 2 units (sectorless twin-disc = 2 units; common practice, "
+     "no source)"),
+    ({"carrier": "disc", "outer_radius": "20 cm", "inner_radius": "0 cm",
+      "arrangement": "single-disc"},
+     "a single-disc machine: one disc turning past a fixed inductor plate, charged zone the "
+     "whole disc, 20 cm radius; 1 unit (one disc past a fixed inductor plate = 1 unit; common "
+     "practice, no source)"),
+    ({"carrier": "belt", "width": "5 cm", "roller_diameter": "5 cm"},
+     "a belt machine: a belt 5 cm wide, running over a roller of 5 cm diameter on which the "
+     "speed is read; 1 unit (1 carrier x 1 charge load per revolution = 1 unit)"),
+    ({"carrier": "cylinder", "diameter": "12 cm", "active_length": "30 cm", "carriers": 2},
+     "a cylinder machine: 2 cylinders of 12 cm diameter, charged over 30 cm of its length; "
+     "2 units (2 carriers x 1 charge load per revolution = 2 units)"),
+    ({"carrier": "custom", "area_per_rev": "410 cm^2"},
+     "a machine described by its charged area per revolution, 410 cm^2; 1 unit (1 carrier x "
+     "1 charge load per revolution = 1 unit)"),
+])
+def test_describe_machine_in_the_trades_words(table, words):
+    assert describe_machine(machine_from_table({"id": "m", **table})) == words
+
+
+def test_every_machine_has_its_drawing(conservator, report_inputs, report):
+    _derived, _findings, machines, _comparisons = report_inputs
+    for page, expected in ((conservator[0], {"museum": 2}),
+                           (report, {key: 2 if machine.kind == "disc" else 1
+                                     for key, machine in machines.items()})):
+        articles = page.split('<article class="machine">')[1:]
+        assert len(articles) == len(expected)
+        for article, count in zip(articles, expected.values(), strict=True):
+            article = article[:article.index("</article>")]
+            assert article.count('<div class="drawing">') == count
+            assert article.count("Plotly.newPlot(") == count
+            assert "<figcaption>" in article and "to scale" in article
+
+
+def test_the_findings_table_fits_the_page(conservator, report):
+    assert "table-layout: fixed" in html_report_style()
+    assert "overflow-wrap: anywhere" in html_report_style()
+    for page in (conservator[0], report):
+        findings = section(page, "Findings")
+        tables = re.findall(r"<table>.*?</table>", findings, flags=re.S)
+        assert len(tables) >= 2
+        for table in tables[:2]:
+            header = re.search(r"<thead>(.*?)</thead>", table, flags=re.S).group(1)
+            columns = header.count("<th>")
+            assert columns <= 8
+            widths = [float(width) for width in re.findall(r'<col style="width: ([\d.]+)%">',
+                                                            table)]
+            assert len(widths) == columns and sum(widths) == pytest.approx(100)
+    # the notes sit under the table, numbered, and the row points to them
+    findings = section(report, "Findings")
+    assert '<a href="#finding-note-1">note 1</a>' in findings
+    assert '<ol class="table-notes"><li id="finding-note-1">' in findings
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;</li>" in findings  # belt-b's notes
+
+
+def html_report_style():
+    from engine.report import _STYLE
+
+    return _STYLE
+
+
+def test_the_print_stylesheet(conservator):
+    page = conservator[0]
+    style = re.search(r"<style>(.*?)</style>", page, flags=re.S).group(1)
+    assert "@page { size: A4;" in style
+    print_rules = style[style.index("@media print"):]
+    assert "break-before: page" in print_rules
+    assert re.search(r"tr, th, td, figure, \.chart[^{]*\{\s*break-inside: avoid", print_rules)
+    assert "thead { display: table-header-group; }" in print_rules
+    assert ".modebar" in print_rules and "display: none" in print_rules
+    # no chart controls, and every chart at a fixed size within an A4 page's text width
+    # (210 mm less 2 x 15 mm margins = 180 mm = 680 CSS px at 96 px per inch, CSS 2.1)
+    assert len(re.findall(r'"displayModeBar":\s*false', page)) == page.count("Plotly.newPlot(")
+    sizes = re.findall(r'<div style="height:(\d+)px; width:(\d+)px;">', page)
+    assert len(sizes) == page.count("Plotly.newPlot(")
+    assert all(int(width) <= 680 for _height, width in sizes)
+    drawing_row = 280 + 380  # a drawing beside its arrangement diagram
+    assert drawing_row <= 680
+
+
+def test_nothing_external_and_links_only_inside_the_document():
+    hostile_url = "https://tracker.invalid/pixel.png"
+    machines_text = CONSERVATOR_MACHINES.replace(
+        'label = "Museum twin-disc"',
+        f'label = "<img src={hostile_url}> <a href={hostile_url}>see</a>"')
+    page, _derived, _findings = conservator_report(
+        title=f"Report <link rel=stylesheet href={hostile_url}>",
+        machines_text=machines_text, before=f"<img src={hostile_url}>")
+    head_script = re.search(r"<script type=\"text/javascript\">.*?</script>", page, flags=re.S)
+    assert "plotly.js v" in head_script.group(0)
+    rest = page[:head_script.start()] + page[head_script.end():]
+    tags = _Tags()
+    tags.feed(re.sub(r"<script[^>]*>.*?</script>", "", rest, flags=re.S | re.I))
+    assert {tag for tag, _ in tags.tags} & {"img", "link", "iframe", "object", "embed"} == set()
+    for _tag, attributes in tags.tags:
+        assert "src" not in attributes
+        assert attributes.get("href", "#").startswith("#")
+    # the charts' data: a user's text there is escaped, never a tag with an address
+    decoded = rest.replace("\\u003c", "<").replace("\\u003e", ">").replace("\\u002f", "/")
+    assert not re.search(r"<(img|a|link|script|iframe)\b[^>]*\b(src|href)\s*=\s*(?![\"']?#)",
+                         decoded)
+    assert f"&lt;img src={hostile_url}&gt;" in page  # shown as text, where the user put it
+
+
+def test_hostile_titles_labels_and_sessions_are_escaped_in_the_verdict():
+    machines_text = CONSERVATOR_MACHINES.replace('label = "Museum twin-disc"',
+                                                 f"label = {json.dumps(ATTACK)}")
+    page, _derived, _findings = conservator_report(title=ATTACK, machines_text=machines_text,
+                                                   before=ATTACK, after="'><b>after</b>")
+    assert "<script>alert" not in page.lower() and "<b>after</b>" not in page
+    verdict = section(page, "Verdict")
+    escaped = html.escape(ATTACK, quote=True)
+    assert f"<strong>{escaped}</strong>, from &#x27;{escaped}&#x27; to " in verdict
+    assert "to &#x27;&#x27;&gt;&lt;b&gt;after&lt;/b&gt;&#x27;" in verdict
+    assert f"<h3>{escaped}</h3>" in section(page, "Machines")
+    assert f"<h1>{escaped}</h1>" in page
+
+
+@pytest.mark.parametrize(("title", "name"), [
+    ("Museum twin-disc, before and after restoration",
+     "museum-twin-disc-before-and-after-restoration-2026-02-03.html"),
+    ("Café élève: Ölmühle", "cafe-eleve-olmuhle-2026-02-03.html"),
+    ("../../etc/passwd", "etc-passwd-2026-02-03.html"),
+    (ATTACK, "script-alert-1-script-2026-02-03.html"),
+    ("   ", "ceiling-lab-report-2026-02-03.html"),
+    ("日本語のレポート", "ceiling-lab-report-2026-02-03.html"),
+    ("x" * 200, "x" * 60 + "-2026-02-03.html"),
+])
+def test_the_file_name_follows_the_title(title, name):
+    assert report_file_name(title, date(2026, 2, 3)) == name
+    assert re.fullmatch(r"[a-z0-9-]+\.html", name)
+
+
+def test_the_report_page_names_the_file_after_its_title():
+    # the page passes the title it shows to report_file_name (a download's name is not in
+    # what AppTest sees; the browser test checks the downloaded name)
+    source = (Path(__file__).resolve().parents[1] / "pages" / "report.py").read_text()
+    assert "file_name=report.report_file_name(title)" in source
+
+
+# --- printed by a real browser ---------------------------------------------------------------
+
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+CHROMIUM_FLAGS = ["--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                  "--disable-component-update", "--disable-sync", "--no-first-run"]
+ARTIFACTS = Path(__file__).resolve().parents[1] / "tests" / "artifacts"
+A4_TEXT_WIDTH_PX = 680  # 180 mm at 96 px per inch (CSS 2.1 reference pixel)
+
+
+def _require_browser():
+    if CHROMIUM is None:
+        if os.environ.get("CEILING_LAB_REQUIRE_BROWSER") == "1":
+            pytest.fail("chromium is required for the browser tests (apt-get install chromium)")
+        pytest.skip("chromium is not installed")
+
+
+@pytest.mark.browser
+def test_the_report_prints_to_pdf_in_chromium(conservator, tmp_path):
+    _require_browser()
+    from playwright.sync_api import sync_playwright
+
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    source = tmp_path / "report.html"
+    source.write_text(conservator[0], encoding="utf-8")
+    with sync_playwright() as playwright:
+        browser = playwright.chromium.launch(executable_path=CHROMIUM, headless=True,
+                                             args=CHROMIUM_FLAGS)
+        try:
+            page = browser.new_page(viewport={"width": A4_TEXT_WIDTH_PX, "height": 1000})
+            failed = []
+            page.on("requestfailed", lambda request: failed.append(request.url))
+            requested = []
+            page.on("request", lambda request: requested.append(request.url))
+            page.goto(source.as_uri(), wait_until="load")
+            page.emulate_media(media="print")
+            # every chart and drawing drawn, nothing wider than an A4 page's text
+            graphs = page.locator(".plotly-graph-div").count()
+            assert graphs == conservator[0].count("Plotly.newPlot(") >= 6
+            assert page.locator(".js-plotly-plot .main-svg").count() >= graphs
+            assert page.evaluate("document.documentElement.scrollWidth") <= A4_TEXT_WIDTH_PX
+            assert page.locator(".modebar").count() == 0 or not page.locator(
+                ".modebar").first.is_visible()
+            pdf = page.pdf(path=str(ARTIFACTS / "report-conservator.pdf"), format="A4",
+                           print_background=True)
+        finally:
+            browser.close()
+    assert requested == [source.as_uri()] and not failed  # nothing fetched from outside
+    assert pdf.startswith(b"%PDF-")
+    pages = len(re.findall(rb"/Type\s*/Page(?![s\w])", pdf))
+    # verdict, machines, findings, charts (two pages), method: page breaks before each
+    assert pages >= 6
