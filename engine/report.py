@@ -822,8 +822,13 @@ def _comparison_html(derived: pd.DataFrame, machine: Machine, sessions: Sequence
              f"{_esc(_session_name(last))} ({comparison['n_b']} readings).")
     notes = " ".join(f"{_esc(note[:1].upper() + note[1:])}." for note in
                      comparison.get("notes") or [])
+    from engine.figures import sessions_compared
+
+    chart = sessions_compared(derived, machine.id, first, last, comparison,
+                              label=machine.label or machine.id)
     return (f'<p class="verdict-item">{heading}. {_esc(comparison["verdict"])}</p>'
-            f'<p class="detail">{means}{" " + notes if notes else ""}</p>')
+            f'<p class="detail">{means}{" " + notes if notes else ""}</p>'
+            + _plot_html(chart, CHART_WIDTH_PX, CHART_HEIGHT_PX))
 
 
 def _delivery_html(findings: pd.DataFrame | None, machine: Machine,

@@ -706,3 +706,10 @@ def test_the_report_prints_to_pdf_in_chromium(conservator, tmp_path):
     pages = len(re.findall(rb"/Type\s*/Page(?![s\w])", pdf))
     # verdict, machines, findings, charts (two pages), method: page breaks before each
     assert pages >= 6
+
+
+def test_the_verdict_draws_before_against_after(conservator, report):
+    verdict = section(conservator[0], "Verdict")
+    assert verdict.count('<div class="chart">') == 1  # one machine with two sessions
+    assert "After minus before at the same speed and humidity" in verdict
+    assert '<div class="chart">' not in section(report, "Verdict")  # one session each
