@@ -1398,7 +1398,7 @@ class LoadLine:
     notes: tuple[str, ...] = ()
 
 
-def fieller_interval(numerator: float, denominator: float, var_numerator: float,
+def ratio_interval(numerator: float, denominator: float, var_numerator: float,
                      var_denominator: float, covariance: float,
                      t_value: float) -> tuple[float, float]:
     """Fieller's confidence interval for a ratio of two estimates, numerator / denominator.
@@ -1462,7 +1462,7 @@ def fit_load_line(current_a, voltage_v, speed_rev_s=None,
     OLS with design [1, f, V] (or [1, V]); cov(b) = s^2 (X^T X)^-1. At the median speed
     f_m: I_sc = b_0 + b_f f_m, its variance g^T cov g with g = (1, f_m, 0); R_leak = -1 / b_V,
     whose interval inverts the t interval of b_V; V_oc = I_sc / (-b_V) with Fieller's
-    interval (:func:`fieller_interval`); P_max = I_sc^2 / (4 (-b_V)) = I_sc V_oc / 4 with
+    interval (:func:`ratio_interval`); the largest power = I_sc^2 / (4 (-b_V)) = I_sc V_oc / 4 with
     the delta method, var = J cov J^T for J = dP/d(I_sc, -b_V). Curvature: the t test of a
     term (V / V_max)^2 added to the design, significant below p = 0.05.
 
@@ -1533,7 +1533,7 @@ def fit_load_line(current_a, voltage_v, speed_rev_s=None,
         values["open_circuit_voltage_v"] = short / falling
         # cov(I_sc, -b_V) = -g^T cov[:, V]
         cross = -float(gradient @ covariance[:, -1])
-        values["open_circuit_voltage_ci"] = fieller_interval(short, falling, short_var,
+        values["open_circuit_voltage_ci"] = ratio_interval(short, falling, short_var,
                                                              slope_var, cross, t_value)
         power = short**2 / (4.0 * falling)
         jacobian = np.array([short / (2.0 * falling), -(short**2) / (4.0 * falling**2)])
