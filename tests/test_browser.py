@@ -5,6 +5,7 @@ Needs Debian's ``chromium``. Locally the test is skipped without it; in CI
 ``tests/artifacts/`` for a person to look at.
 """
 
+import contextlib
 import os
 import shutil
 import socket
@@ -41,10 +42,10 @@ def free_port() -> int:
         return probe.getsockname()[1]
 
 
-@pytest.fixture(scope="module")
-def server(tmp_path_factory):
+@contextlib.contextmanager
+def served(database: Path):
+    """The app on a free localhost port with its own lab file; yields its address."""
     port = free_port()
-    database = tmp_path_factory.mktemp("browser") / "lab.sqlite3"
     environment = {**os.environ, "CEILING_LAB_DB": str(database)}
     process = subprocess.Popen(
         [sys.executable, "-m", "streamlit", "run", "app.py", "--server.port", str(port),
@@ -65,12 +66,20 @@ def server(tmp_path_factory):
             output = process.stdout.read().decode(errors="replace")
             raise RuntimeError(f"the app did not start:\n{output[-3000:]}")
         time.sleep(0.5)
-    yield url
-    process.terminate()
     try:
-        process.wait(timeout=20)
-    except subprocess.TimeoutExpired:
-        process.kill()
+        yield url
+    finally:
+        process.terminate()
+        try:
+            process.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            process.kill()
+
+
+@pytest.fixture(scope="module")
+def server(tmp_path_factory):
+    with served(tmp_path_factory.mktemp("browser") / "lab.sqlite3") as url:
+        yield url
 
 
 @pytest.fixture(scope="module")
@@ -137,3 +146,184 @@ def test_the_html_report_downloads_self_contained(server, browser, tmp_path):
         assert "does not make a set-up safe" in html
     finally:
         page.close()
+
+
+# --- the users' paths, step by step, with a screenshot at each step ----------------------------
+
+def _settle(page) -> None:
+    wait_until_drawn(page)
+
+
+def _type(page, label: str, text: str) -> None:
+    box = page.get_by_label(label, exact=True).first
+    box.fill(text)
+    box.press("Enter")
+    _settle(page)
+
+
+def _click(page, name: str) -> None:
+    page.get_by_role("button", name=name, exact=True).first.click()
+    _settle(page)
+
+
+def _shot(page, name: str) -> None:
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    page.screenshot(path=str(ARTIFACTS / f"path-{name}.png"), full_page=True)
+
+
+def _open(page, url: str) -> None:
+    page.goto(url, wait_until="domcontentloaded", timeout=90_000)
+    _settle(page)
+
+
+def _no_errors(page) -> None:
+    assert page.locator("[data-testid='stException']").count() == 0
+    errors = page.locator("[data-testid='stAlertContentError']")
+    assert errors.count() == 0, errors.all_inner_texts()
+
+
+def _upload(page, path: Path, which: int = 0) -> None:
+    page.locator("[data-testid='stFileUploader'] input[type=file]").nth(which).set_input_files(
+        str(path))
+    _settle(page)
+    page.wait_for_timeout(1500)
+    _settle(page)
+
+
+def _readings_file(path: Path, day: str, base: float) -> Path:
+    """An invented session of the gallery's machine, without a session column."""
+    lines = ["machine,time,speed [rpm],current [uA],rh [%]"]
+    lines += [f"gallery-twin,{day}T10:{minute:02d}:00,{120 + 30 * minute},"
+              f"{base * (120 + 30 * minute) / 300:.3f},{45 + minute % 3}"
+              for minute in range(16)]
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return path
+
+
+def test_the_conservator_s_path(browser, tmp_path):
+    """Describe a machine, import before and after, compare, download the report."""
+    with served(tmp_path / "museum.sqlite3") as url:
+        page = browser.new_page(viewport={"width": 1400, "height": 1800},
+                                accept_downloads=True)
+        try:
+            _open(page, url)
+            assert "demonstration lab" in page.locator("body").inner_text()
+            _click(page, "Start my own lab")
+            _shot(page, "conservator-1-own-lab")
+            _open(page, f"{url}/machines")
+            assert "Where is your lab?" in page.locator("body").inner_text()
+            _type(page, "Id (letters, digits, '-' and '_')", "gallery-twin")
+            _type(page, "Name shown on charts", "Gallery twin-disc machine")
+            _type(page, "outer diameter", "44 cm")
+            _type(page, "inner diameter", "26 cm")
+            _type(page, "sector fill", "0.5")
+            _shot(page, "conservator-2-machine")
+            body = page.locator("body").inner_text()
+            assert "twin-disc with sectors = 1 unit" in body
+            _click(page, "Add this machine")
+            assert "Saved machine 'gallery-twin'" in page.locator("body").inner_text()
+            _no_errors(page)
+            _open(page, f"{url}/readings")
+            _upload(page, _readings_file(tmp_path / "before.csv", "2025-11-08", 1.2))
+            _type(page, "Session", "before restoration")
+            _shot(page, "conservator-3-before")
+            _click(page, "Save the readings")
+            assert "session 'before restoration'" in page.locator("body").inner_text()
+            _upload(page, _readings_file(tmp_path / "after.csv", "2026-03-14", 2.4))
+            _type(page, "Session", "after restoration")
+            _click(page, "Save the readings")
+            assert "session 'after restoration'" in page.locator("body").inner_text()
+            _no_errors(page)
+            _open(page, f"{url}/sessions")
+            page.wait_for_selector("[data-testid='stPlotlyChart'] .main-svg", timeout=60_000)
+            body = page.locator("body").inner_text()
+            assert "'after restoration' session delivers" in body and "more" in body
+            _shot(page, "conservator-4-sessions")
+            _no_errors(page)
+            _open(page, f"{url}/report")
+            _type(page, "Report title", "Gallery twin-disc before and after restoration")
+            with page.expect_download(timeout=120_000) as download_info:
+                page.get_by_role("button", name="HTML report").click()
+            target = tmp_path / "report.html"
+            download_info.value.save_as(target)
+            assert download_info.value.suggested_filename.startswith(
+                "gallery-twin-disc-before-and-after-restoration")
+            html = target.read_text(encoding="utf-8")
+            verdict = html.index("Verdict")
+            assert html.index("after restoration", verdict) < html.index("Machines", verdict)
+            _shot(page, "conservator-5-report")
+        finally:
+            page.close()
+
+
+TEACHER_MACHINES = """
+[site]
+altitude = "120 m"
+
+[[machine]]
+id = "bench-1"
+label = "Bench 1 twin-disc"
+carrier = "disc"
+outer_diameter = "30 cm"
+inner_diameter = "16 cm"
+sector_fill = 0.5
+arrangement = "twin-disc"
+
+[[machine]]
+id = "bench-2"
+label = "Bench 2 belt"
+carrier = "belt"
+width = "4 cm"
+roller_diameter = "4 cm"
+
+[[machine]]
+id = "bench-3"
+label = "Bench 3 cylinder"
+carrier = "cylinder"
+diameter = "10 cm"
+active_length = "20 cm"
+"""
+
+
+def test_the_teacher_s_path(browser, tmp_path):
+    """Three machines from a file, two lessons in one readings file, compare."""
+    machines = tmp_path / "benches.toml"
+    machines.write_text(TEACHER_MACHINES, encoding="utf-8")
+    lines = ["machine,session,time,speed [rpm],current [uA],rh [%]"]
+    for lesson, day, factor in (("lesson 1", "2026-02-02", 1.0), ("lesson 2", "2026-02-09", 0.8)):
+        for bench, top in (("bench-1", 600), ("bench-2", 2400), ("bench-3", 300)):
+            for step in range(8):
+                speed = top * (step + 2) / 10
+                current = factor * 0.004 * speed * {"bench-1": 1, "bench-2": 0.2,
+                                                    "bench-3": 4}[bench]
+                lines.append(f"{bench},{lesson},{day}T09:{step:02d}:{len(lines) % 60:02d},"
+                             f"{speed:.0f},{current:.3f},{40 + step}")
+    readings = tmp_path / "lessons.csv"
+    readings.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    with served(tmp_path / "school.sqlite3") as url:
+        page = browser.new_page(viewport={"width": 1400, "height": 1800})
+        try:
+            _open(page, url)
+            _click(page, "Start my own lab")
+            _open(page, f"{url}/machines")
+            page.get_by_role("tab", name="Machines file (TOML)").click()
+            _upload(page, machines)
+            _click(page, "Import these machines")
+            assert "Imported 3 machines" in page.locator("body").inner_text()
+            _shot(page, "teacher-1-machines")
+            _open(page, f"{url}/readings")
+            _upload(page, readings)
+            assert "have no session" not in page.locator("body").inner_text()
+            _click(page, "Save the readings")
+            _no_errors(page)
+            _shot(page, "teacher-2-readings")
+            _open(page, f"{url}/compare")
+            page.wait_for_selector("[data-testid='stPlotlyChart'] .main-svg", timeout=60_000)
+            assert page.locator("[data-testid='stPlotlyChart']").count() == 4
+            body = page.locator("body").inner_text()
+            for label in ("Bench 1 twin-disc", "Bench 2 belt", "Bench 3 cylinder"):
+                assert label in body
+            _shot(page, "teacher-3-compare")
+            _no_errors(page)
+        finally:
+            page.close()
