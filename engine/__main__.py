@@ -430,7 +430,7 @@ def _format_finding(record: dict, reference_rh: float) -> str:
              record.get("observed_units") or math.nan, record.get("units") or math.nan,
              record.get("units_basis") or "")) else "")),
         ("humidity slope", _number(record.get("humidity_slope_per_10pct"), "+.1f",
-                                   "% points per +10 % RH", 100)),
+                                   "percentage points per +10 % RH", 100)),
         (f"efficiency at {reference_rh:g} % RH",
          _number(record.get("efficiency_at_reference_rh"), ".1f", "%", 100)
          + (f" (from the {record['humidity_model']})" if record.get("humidity_model") else "")),

@@ -42,11 +42,11 @@ from engine.units import speed_unit_conversion, split_quantity
 CONFIDENCE = 0.95
 #: Fewest usable readings for a straight-line fit (two parameters and one degree of freedom).
 MIN_READINGS_FOR_FIT = 3
-#: Smallest spread of relative humidity for the humidity fit [-] (5 % points).
+#: Smallest spread of relative humidity for the humidity fit [-] (5 percentage points).
 MIN_RH_SPAN = 0.05
 #: Fewest usable readings with humidity for the logistic decline.
 LOGISTIC_MIN_READINGS = 10
-#: Smallest spread of relative humidity for the logistic decline [-] (20 % points).
+#: Smallest spread of relative humidity for the logistic decline [-] (20 percentage points).
 LOGISTIC_MIN_RH_SPAN = 0.20
 #: The wettest quarter of the readings must keep at most this share of the driest quarter's
 #: median efficiency for the data to "span the drop" of the logistic decline [-].
@@ -836,16 +836,17 @@ def findings(derived: pd.DataFrame, machines: Mapping[str, Machine] | MachineFil
           (sigma_limit and the geometry taken as exact). A machine "delivers observed_units of
           the units its arrangement allows".
         - Humidity fit, least squares efficiency = a + b RH: ``humidity_slope_per_10pct`` is
-          b * 0.1 (fraction of efficiency per +10 % points of RH), and
+          b * 0.1 (fraction of efficiency per +10 percentage points of RH), and
           ``efficiency_at_reference_rh`` is a + b * reference_rh with the interval of the
           fitted mean (``humidity_model`` "straight line"). It needs 3 readings and an RH
-          spread of at least 5 % points. Where the logistic decline below is fitted, the
+          spread of at least 5 percentage points. Where the logistic decline below is fitted, the
           efficiency at the reference humidity comes from it instead (``humidity_model``
           "logistic decline"), with a first-order (delta-method) interval from the fit's
           covariance.
         - Logistic decline eta = e_dry / (1 + exp((RH - RH_half) / w)), fitted with
           scipy.optimize.curve_fit only where the data span the drop: at least 10 readings with
-          humidity, RH spread of at least 20 % points, and the median efficiency of the wettest
+          humidity, RH spread of at least 20 percentage points, and the median efficiency of the
+          wettest
           quarter of the readings at most half that of the driest quarter. The fit is kept
           when it converges with a finite covariance, e_dry > 0, w > 0 and RH_half within the
           measured RH range.
@@ -1017,7 +1018,7 @@ def _humidity_findings(row: dict, notes: list[str], used: np.ndarray,
         return
     span = float(np.ptp(rh))
     if span < MIN_RH_SPAN:
-        notes.append(f"RH spans less than {MIN_RH_SPAN * 100:.0f} % points "
+        notes.append(f"RH spans less than {MIN_RH_SPAN * 100:.0f} percentage points "
                      f"({span * 100:.1f}): no humidity fit")
         return
     fit = fit_line(rh, efficiency)
@@ -1043,7 +1044,7 @@ def _logistic_findings(row: dict, notes: list[str], rh: np.ndarray, efficiency: 
         return
     if span < LOGISTIC_MIN_RH_SPAN:
         notes.append(f"logistic decline not fitted: RH spans less than "
-                     f"{LOGISTIC_MIN_RH_SPAN * 100:.0f} % points")
+                     f"{LOGISTIC_MIN_RH_SPAN * 100:.0f} percentage points")
         return
     dry_limit, wet_limit = np.quantile(rh, [0.25, 0.75])
     dry = float(np.median(efficiency[rh <= dry_limit]))
@@ -1133,7 +1134,7 @@ def compare_sessions(derived: pd.DataFrame, machine_id: str, session_a: str,
         computed), ``adjusted_for`` (the terms kept, e.g. ["speed", "humidity"]), ``n_adjusted``
         (readings in the regression), ``notes`` (list of str: terms dropped and why),
         ``disjoint_conditions`` (the adjusted-for terms whose ranges in the two sessions do not
-        overlap) and ``verdict`` (plain words, differences in % points with the 95 %
+        overlap) and ``verdict`` (plain words, differences in percentage points with the 95 %
         half-width; it says when the data cannot tell the machine from the conditions: the
         ranges do not overlap, or the adjusted interval holds both zero and the plain
         difference).
@@ -1316,20 +1317,21 @@ def _verdict(session_a: str, session_b: str, raw: float, raw_ci, adjusted: float
     if interval[0] <= 0 <= interval[1]:
         signed, _ = _round_pair(value * 100, half * 100)
         verdict = (f"No clear difference between '{session_b}' and '{session_a}' {condition}: "
-                   f"{signed} ± {shown_half} % points (95 % interval, it includes zero).")
+                   f"{signed} ± {shown_half} percentage points (95 % interval, it includes zero).")
         raw_is_clear = raw_ci is not None and not (raw_ci[0] <= 0 <= raw_ci[1])
         if adjusted_used and raw_is_clear and not caution:
             if interval[0] <= raw <= interval[1]:
-                verdict += (f" The plain difference of {raw_shown} % points also lies within "
-                            "that interval: the data cannot tell whether it comes from the "
-                            "machine or from the sessions' different speed or humidity.")
+                verdict += (f" The plain difference of {raw_shown} percentage points also lies "
+                            "within that interval: the data cannot tell whether it comes from "
+                            "the machine or from the sessions' different speed or humidity.")
             else:
-                verdict += (f" The plain difference of {raw_shown} % points comes from the "
-                            "sessions' different speed or humidity, not from the machine.")
+                verdict += (f" The plain difference of {raw_shown} percentage points comes from "
+                            "the sessions' different speed or humidity, not from the machine.")
         return verdict + caution
     direction = "more" if value > 0 else "less"
-    return (f"The '{session_b}' session delivers {shown} ± {shown_half} % points {direction} "
-            f"efficiency than '{session_a}' {condition} (± is the 95 % interval)." + caution)
+    return (f"The '{session_b}' session delivers {shown} ± {shown_half} percentage points "
+            f"{direction} efficiency than '{session_a}' {condition} (± is the 95 % interval)."
+            + caution)
 
 
 

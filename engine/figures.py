@@ -776,7 +776,7 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
             else:
                 line_efficiency = _percent(at_reference
                                            + slope * (line_rh - reference_rh_pct) / 10)
-                what = f"Humidity fit: {_percent(slope):+.1f} % points per +10 % RH"
+                what = f"Humidity fit: {_percent(slope):+.1f} percentage points per +10 % RH"
             figure.add_trace(go.Scatter(
                 x=line_rh, y=line_efficiency, mode="lines",
                 name=_fit_name(label, _escape(session)), legendgroup=machine_id,
@@ -1363,5 +1363,5 @@ def sessions_compared(derived: pd.DataFrame | None, machine_id: str, session_a: 
             half = (interval[1] - interval[0]) / 2
             condition = f" at the same {' and '.join(terms)}" if terms else ""
             _add_notes(figure, [f"After minus before{condition}: {adjusted * 100:+.1f} ± "
-                                f"{half * 100:.1f} % points (95 % interval)"])
+                                f"{half * 100:.1f} percentage points (95 % interval)"])
     return figure

@@ -426,7 +426,7 @@ def findings_table(findings: pd.DataFrame, labels: dict[str, str] | None = None,
                                 findings["units_basis"], strict=True)],
         f"efficiency at {rh_text} [%]": [_number_text(value, ".1f", 100) for value in
                                          findings["efficiency_at_reference_rh"]],
-        "change per +10 % RH [% points]": [_number_text(value, "+.1f", 100) for value in
+        "change per +10 % RH [percentage points]": [_number_text(value, "+.1f", 100) for value in
                                            findings["humidity_slope_per_10pct"]],
         "charge per revolution [nC]": [_number_text(value, ",.4g")
                                        for value in findings["charge_per_rev_nC"]],

@@ -529,7 +529,7 @@ def _humidity_frame(machine_id, efficiency, rh, rng):
 def test_findings_recover_a_linear_humidity_slope():
     rng = np.random.default_rng(24)
     rh = rng.uniform(0.30, 0.60, 150)
-    # truth: eta = 0.40 - 0.6 (RH - 0.45): -0.06 per +10 % points, 0.40 at 45 %
+    # truth: eta = 0.40 - 0.6 (RH - 0.45): -0.06 per +10 percentage points, 0.40 at 45 %
     efficiency = 0.40 - 0.6 * (rh - 0.45) + rng.normal(0, 0.01, 150)
     machines = machines_of("drum")
     row = findings(derive(_humidity_frame("drum", efficiency, rh, rng), machines),
@@ -609,8 +609,8 @@ def test_findings_say_why_a_fit_was_not_possible():
     assert "fewer than 3 usable readings" in table.loc["twin", "notes"]
     assert "no spread in speed" in table.loc["drum", "notes"]
     assert math.isnan(table.loc["drum", "charge_per_rev_nC"])
-    assert "RH spans less than 5 % points" in table.loc["drum", "notes"]
-    assert "RH spans less than 5 % points" in table.loc["odd", "notes"]
+    assert "RH spans less than 5 percentage points" in table.loc["drum", "notes"]
+    assert "RH spans less than 5 percentage points" in table.loc["odd", "notes"]
     assert math.isfinite(table.loc["odd", "charge_per_rev_nC"])
     assert table.loc["odd", "humidity_slope_per_10pct_ci"] is None
     assert "not in the machines list" in table.loc["ghost", "notes"]
@@ -687,8 +687,8 @@ def test_compare_sessions_matches_statsmodels_and_scipy():
     half = (high - low) / 2 * 100
     shown, shown_half = analysis._round_pair(result["adjusted_difference"] * 100, half)
     assert result["verdict"] == (
-        f"The 'after' session delivers {shown} ± {shown_half} % points more efficiency than "
-        "'before' at the same speed and humidity (± is the 95 % interval).")
+        f"The 'after' session delivers {shown} ± {shown_half} percentage points more efficiency "
+        "than 'before' at the same speed and humidity (± is the 95 % interval).")
 
 
 def test_compare_sessions_says_less_and_no_clear_difference():
