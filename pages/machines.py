@@ -48,7 +48,10 @@ if machine_file.machines:
         rows.append(row)
     st.dataframe(pd.DataFrame(rows), hide_index=True, key="machines-table",
                  column_config={"area per rev [cm²]": st.column_config.NumberColumn(format="%.1f"),
-                                "ceiling [µA]": st.column_config.NumberColumn(format="%.3g")})
+                                "ceiling [µA]": st.column_config.NumberColumn(format="%.3g"),
+                                "how the units are counted":
+                                    st.column_config.TextColumn(width="large"),
+                                "geometry": st.column_config.TextColumn(width="large")})
     st.caption(f"{shared.site_words(site)} A blank ceiling means the machine needs the "
                "other kind of speed (rpm or m/s).")
 else:
