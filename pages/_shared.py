@@ -6,6 +6,7 @@ Pages call these and the engine; nothing here computes physics.
 from __future__ import annotations
 
 import math
+import re
 from pathlib import Path
 
 import pandas as pd
@@ -287,7 +288,7 @@ def colours_for(machine_file: MachineFile) -> dict[str, str]:
 
 def site_words(site) -> str:
     """The air that the lab's ceilings use, in words."""
-    where = ", ".join(f"{key} {value}" for key, value in site.spec.items())
+    where = plain(", ".join(f"{key} {value}" for key, value in site.spec.items()))
     return (f"Air for these ceilings: {site.pressure_pa / 1e3:.4g} kPa, "
             f"{site.temperature_k - 273.15:.1f} °C ("
             + (f"the lab's site: {where})." if where else
@@ -350,9 +351,20 @@ def load_derived() -> pd.DataFrame:
     return derived_readings(str(lab_path()), store_signature())
 
 
+_MARKDOWN_MARKS = re.compile(r"([\\`*_{}\[\]()#+\-.!|<>~$:])")
+
+
+def plain(text: object) -> str:
+    """Text from a user's file or form, made safe for elements that render Markdown: every mark
+    that could make a link, an image, emphasis, a heading or a colour directive is escaped, so
+    the text shows as it was written and the browser fetches nothing."""
+    return _MARKDOWN_MARKS.sub(r"\\\1", str(text))
+
+
 def show_error(error: Exception) -> None:
-    """Show an engine error as the message it carries."""
-    st.error(str(error) if isinstance(error, InputError) else f"Something went wrong: {error}")
+    """Show an engine error as the message it carries (it may quote a file: shown as text)."""
+    st.error(plain(error) if isinstance(error, InputError) else
+             f"Something went wrong: {plain(error)}")
 
 
 def carrier_choices() -> tuple[str, ...]:
@@ -369,7 +381,7 @@ def show_flash() -> None:
     """Show and forget the message kept by :func:`flash`."""
     message = st.session_state.pop("_flash", None)
     if message:
-        st.success(message)
+        st.success(plain(message))
 
 
 @st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=16)
@@ -467,7 +479,7 @@ def undescribed_warning(derived: pd.DataFrame, machines) -> None:
     unknown = ids[~ids.isin(list(machines))].value_counts()
     if unknown.empty:
         return
-    listed = ", ".join(f"'{machine_id}' ({count:,} reading{'s' if count != 1 else ''})"
+    listed = ", ".join(f"'{plain(machine_id)}' ({count:,} reading{'s' if count != 1 else ''})"
                        for machine_id, count in unknown.head(10).items())
     st.warning(f"Readings name machines the lab does not describe: {listed}. They have no "
                "ceiling and are not in the findings. Add a machine with that id on the Machines "
@@ -506,8 +518,9 @@ def stored_imports(current_store: Store) -> None:
     if remove is None:
         return
     row = names.loc[remove]
-    st.warning(f"Removing '{row['name']}' deletes its {int(row['rows']):,} readings (machines "
-               f"{row['machines'] or '-'}; sessions {row['sessions'] or '-'}) and its humidity "
+    st.warning(f"Removing '{plain(row['name'])}' deletes its {int(row['rows']):,} readings "
+               f"(machines {plain(row['machines'] or '-')}; sessions "
+               f"{plain(row['sessions'] or '-')}) and its humidity "
                "log from the lab. The machines stay. Keep a copy first: the bundle below puts "
                "the import back when restored on the Report page.")
     copy, yes, no = st.columns(3)

@@ -87,7 +87,7 @@ with edit_tab:
     undo = st.session_state.get("machines-undo")
     if undo is not None:
         note, put_back = st.columns([3, 1])
-        note.info(f"Deleted machine '{undo.id}'. Its readings stay in the lab.")
+        note.info(f"Deleted machine '{shared.plain(undo.id)}'. Its readings stay in the lab.")
         if put_back.button(f"Undo: put '{undo.id}' back", key="machines-undo-button"):
             store.save_machine(undo)
             st.session_state.pop("machines-undo", None)
@@ -107,7 +107,8 @@ with edit_tab:
                                  disabled=current is not None, placeholder="e.g. gallery-twin")
     taken = current is None and machine_id.strip() in existing
     if taken:
-        st.error(f"A machine with the id '{machine_id.strip()}' is already in the lab. Give the "
+        st.error(f"A machine with the id '{shared.plain(machine_id.strip())}' is already in the "
+                 "lab. Give the "
                  "new machine another id, or choose that machine above to edit it.")
     label = right.text_input("Name shown on charts", current.label if current else "",
                              key=f"machines-label-{chosen}",
@@ -175,7 +176,7 @@ with edit_tab:
         if speed is not None and speed_kind in machine.carrier.speed_kinds:
             figures = ceiling_figures(machine, speed, speed_kind, site.pressure_pa,
                                       site.temperature_k)
-            figures_column.metric(f"Ceiling at {speed_text}",
+            figures_column.metric(f"Ceiling at {shared.plain(speed_text)}",
                                   "{:.3g} µA".format(figures["ceiling_current_uA"]))
             figures_column.caption("{:g} x {:.3g} µA, the ceiling of one carrier's charged "
                                    "area (one unit)".format(figures["units"],
@@ -205,7 +206,8 @@ with edit_tab:
             readings = int((derived[col.MACHINE] == current.id).sum())
             what = (f"its {readings:,} readings stay in the lab, shown as readings of a machine "
                     "that is not described" if readings else "it has no readings")
-            st.warning(f"Delete machine '{current.id}' ({current.label})? Its description goes; "
+            st.warning(f"Delete machine '{shared.plain(current.id)}' "
+                       f"({shared.plain(current.label)})? Its description goes; "
                        f"{what}. You can undo this right after.")
             yes, no = st.columns(2)
             yes.button("Yes, delete it", key=f"machines-delete-yes-{chosen}",
@@ -230,8 +232,8 @@ with file_tab:
             except UnicodeDecodeError:
                 raise InputError(f"{upload.name}: a machines file must be UTF-8 text") from None
             imported = parse_machines_text(text, upload.name)
-            st.write(f"{len(imported.machines)} machines in {upload.name}: "
-                     + ", ".join(machine.id for machine in imported.machines))
+            st.write(shared.plain(f"{len(imported.machines)} machines in {upload.name}: "
+                                  + ", ".join(machine.id for machine in imported.machines)))
             replaced = [machine.id for machine in imported.machines if machine.id in existing]
             if replaced:
                 st.warning("These will replace the stored machines of the same id: "

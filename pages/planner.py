@@ -88,7 +88,7 @@ if machine is not None:
             st.info("The curve is drawn against rotation rate; give this belt a roller diameter "
                     "to see it. The figures below use the belt speed.")
         left, right = st.columns(2)
-        left.metric(f"Ceiling at {top_text}", f"{here['ceiling_current_uA']:.3g} µA",
+        left.metric(f"Ceiling at {shared.plain(top_text)}", f"{here['ceiling_current_uA']:.3g} µA",
                     delta=f"{(density - 1) * 100:+.1f} % against sea-level reference air",
                     delta_color="off")
         right.metric("Charge density limit here", f"{here['charge_density_limit_uC_m2']:.3g} µC/m²",
@@ -127,7 +127,7 @@ if machine is not None:
         what, size = size_for_current(machine, target_a, at_speed, at_kind, pressure_pa,
                                       temperature_k)
         shown = f"{size:.4g} m²" if what == "area per revolution" else f"{size * 100:.4g} cm"
-        speed_column.success(f"{what.capitalize()} needed at {at_text}: **{shown}** "
+        speed_column.success(f"{what.capitalize()} needed at {shared.plain(at_text)}: **{shown}** "
                              f"({SIZES_HELD[machine.kind]}).")
     except InputError as error:
         shared.show_error(error)

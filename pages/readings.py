@@ -235,12 +235,13 @@ if unnamed:
 else:
     session_name = ""
     sessions_found = sorted(set(frame[col.SESSION].astype("str")))
-    st.caption(f"Sessions in the file: {', '.join(sessions_found[:12])}"
+    st.caption(f"Sessions in the file: {shared.plain(', '.join(sessions_found[:12]))}"
                + (" ..." if len(sessions_found) > 12 else ""))
 saved = st.session_state.get("readings-saved")
 fingerprint = (upload.name, upload.size)
 if saved is not None and saved[0] == fingerprint:
-    st.success(f"This file is saved as '{saved[1]}'. Choose another file to import more, or "
+    st.success(f"This file is saved as '{shared.plain(saved[1])}'. Choose another file to "
+               "import more, or "
                "open the Compare page.")
     allowed = False
 else:
@@ -248,7 +249,8 @@ else:
     same = imports[(imports["source"] == upload.name) & (imports["rows"] == len(frame))]
     allowed = True
     if not same.empty:
-        st.warning(f"A file named {upload.name} with {len(frame):,} readings was saved before "
+        st.warning(f"A file named {shared.plain(upload.name)} with {len(frame):,} readings was "
+                   "saved before "
                    f"(as '{same['name'].iloc[0]}'). Saving it again counts the same readings "
                    "twice in every finding.")
         allowed = st.checkbox("Save it again anyway", False, key="readings-save-again")

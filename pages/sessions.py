@@ -89,13 +89,13 @@ else:
                              format_func=lambda name: name or "(no session)")
     try:
         comparison = analysis.compare_sessions(derived, machine_id, first, second)
-        st.success(comparison["verdict"])
+        st.success(shared.plain(comparison["verdict"]))
         st.plotly_chart(figures.sessions_compared(derived, machine_id, first, second,
                                                   comparison, labels.get(machine_id)),
                         key="sessions-compared")
         metrics = st.columns(3)
-        metrics[0].metric(f"Mean efficiency, {first}", f"{comparison['mean_a'] * 100:.1f} %")
-        metrics[1].metric(f"Mean efficiency, {second}", f"{comparison['mean_b'] * 100:.1f} %",
+        metrics[0].metric(f"Mean efficiency, {shared.plain(first)}", f"{comparison['mean_a'] * 100:.1f} %")
+        metrics[1].metric(f"Mean efficiency, {shared.plain(second)}", f"{comparison['mean_b'] * 100:.1f} %",
                           delta=f"{comparison['raw_difference'] * 100:+.1f} percentage points",
                           help="Mean over the clean readings; the findings tables show medians.")
         adjusted = comparison.get("adjusted_difference")

@@ -606,3 +606,37 @@ def test_readings_page_shows_decisions_and_offers_the_sheet_and_the_log_clock(em
     preview = table_with(app, "RH [%]")
     # hand-worked: 10:00 takes the log's 09:00 + 1 h (40 %), 10:10 takes 09:10 + 1 h (41 %)
     assert preview["RH [%]"].tolist()[:2] == pytest.approx([40.0, 41.0])
+
+
+HOSTILE = "![x](http://example.invalid/p.png) [click](http://example.invalid) :red[loud]"
+
+
+def _rendered_texts(app) -> str:
+    """Everything the pages pass to elements that render Markdown."""
+    parts = [texts(app)]
+    parts += [str(metric.label) for metric in app.metric]
+    return "\n".join(parts)
+
+
+@pytest.mark.parametrize("page", PAGES)
+def test_text_from_files_is_never_rendered_as_markdown(empty_lab, tmp_path, page):
+    from engine.machines import machine_from_table
+    from engine.readings import read_readings
+
+    with open_store(empty_lab) as store:
+        store.save_machine(machine_from_table({
+            "id": "m1", "carrier": "disc", "outer_diameter": "40 cm", "inner_diameter": "20 cm",
+            "label": HOSTILE, "notes": HOSTILE, "material": HOSTILE}))
+        lines = ["machine,session,time,speed [rpm],current [uA],note"]
+        for step in range(10):
+            for session, day in (("before " + HOSTILE, "01"), ("after " + HOSTILE, "02")):
+                lines.append(f'm1,"{session}",2026-02-{day}T10:{step:02d}:00,'
+                             f'{200 + 20 * step},{1 + step / 10},"{HOSTILE}"')
+        lines.append(f'"{HOSTILE}",s,2026-02-03T10:00:00,300,1,')
+        path = tmp_path / "hostile.csv"
+        path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        store.import_readings(read_readings(path).frame, HOSTILE, source="hostile.csv")
+    app = open_page(page, empty=True)
+    rendered = _rendered_texts(app)
+    # A link or an image in Markdown is "](": escaped, it shows as text and fetches nothing.
+    assert "](http" not in rendered and ":red[" not in rendered
