@@ -94,8 +94,10 @@ else:
                                                   comparison, labels.get(machine_id)),
                         key="sessions-compared")
         metrics = st.columns(3)
-        metrics[0].metric(f"Mean efficiency, {shared.plain(first)}", f"{comparison['mean_a'] * 100:.1f} %")
-        metrics[1].metric(f"Mean efficiency, {shared.plain(second)}", f"{comparison['mean_b'] * 100:.1f} %",
+        metrics[0].metric(f"Mean efficiency, {shared.plain(first)}",
+                          f"{comparison['mean_a'] * 100:.1f} %")
+        metrics[1].metric(f"Mean efficiency, {shared.plain(second)}",
+                          f"{comparison['mean_b'] * 100:.1f} %",
                           delta=f"{comparison['raw_difference'] * 100:+.1f} percentage points",
                           help="Mean over the clean readings; the findings tables show medians.")
         adjusted = comparison.get("adjusted_difference")
