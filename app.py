@@ -5,7 +5,7 @@ import streamlit as st
 
 from pages import _shared as shared
 
-st.set_page_config(page_title="Ceiling Lab", page_icon=":material/bolt:", layout="wide")
+st.set_page_config(page_title="Ceiling Lab", page_icon=shared.app_icon(), layout="wide")
 
 # On a first start (an empty lab of the user's own) the app opens on the demonstration lab, a
 # store of its own: see shared.active_lab.

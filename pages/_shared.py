@@ -89,6 +89,20 @@ FIELD_HELP = {
 CARRIER_LABELS = {"disc": "disc (twin-disc, multi-disc stack, single disc)",
                   "belt": "belt", "cylinder": "cylinder", "custom": "custom (area given)"}
 
+@st.cache_resource(show_spinner=False)
+def app_icon():
+    """The browser tab's icon, drawn here (a spark between two balls): an icon by name would
+    make the browser fetch it from a font server, and the app asks nothing of the internet."""
+    from PIL import Image, ImageDraw
+
+    icon = Image.new("RGBA", (64, 64), (0, 0, 0, 0))
+    draw = ImageDraw.Draw(icon)
+    draw.ellipse((2, 22, 22, 42), fill=(0, 114, 178, 255))
+    draw.ellipse((42, 22, 62, 42), fill=(0, 114, 178, 255))
+    draw.line([(22, 32), (30, 24), (34, 40), (42, 32)], fill=(230, 159, 0, 255), width=5)
+    return icon
+
+
 #: Session key of the lab that is open: "own" (the user's) or "demo" (the demonstration lab).
 LAB_KEY = "lab"
 LAB_NAMES = {"own": "My lab", "demo": "Demonstration lab (invented)"}

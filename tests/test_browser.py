@@ -108,6 +108,8 @@ def wait_until_drawn(page) -> None:
 def test_every_page_opens_without_error(server, browser, path):
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
     page = browser.new_page(viewport={"width": 1400, "height": 2000})
+    requested: list[str] = []
+    page.on("request", lambda request: requested.append(request.url))
     try:
         page.goto(f"{server}/{path}", wait_until="domcontentloaded", timeout=90_000)
         wait_until_drawn(page)
@@ -123,6 +125,10 @@ def test_every_page_opens_without_error(server, browser, path):
         # The app's own navigation, never one entry per file of the pages folder.
         sidebar = page.locator("[data-testid='stSidebarNav']").inner_text()
         assert "Safety and method" in sidebar and "_shared" not in sidebar
+        # The app asks nothing of the internet: every request goes to the app itself.
+        outside = [url for url in requested
+                   if not url.startswith((server, "data:", "blob:", "about:"))]
+        assert outside == [], outside
     finally:
         page.close()
 
