@@ -566,3 +566,21 @@ def measured_efficiency(machine_id: str) -> tuple[float, float, float] | None:
     if not (isinstance(interval, tuple) and math.isfinite(observed) and units > 0):
         return None
     return observed / units, interval[0] / units, interval[1] / units
+
+
+@st.cache_resource(max_entries=2, show_spinner=False)
+def _read_upload(digest: str, name: str, options, kind: str, _data: bytes):  # noqa: ARG001
+    from engine.readings import read_environment, read_readings
+
+    reader = read_readings if kind == "readings" else read_environment
+    return reader(_data, options, name=name)
+
+
+def read_upload(upload, options, kind: str = "readings"):
+    """An uploaded file read once per content and options (a rerun, a toggle, does not read
+    it again): the engine's read result, shared, never changed by the pages."""
+    import hashlib
+
+    data = upload.getvalue()
+    digest = hashlib.sha256(data).hexdigest()
+    return _read_upload(digest, upload.name, options, kind, data)

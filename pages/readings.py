@@ -14,8 +14,6 @@ from engine.readings import (
     default_session_name,
     merge_environment,
     name_sessions,
-    read_environment,
-    read_readings,
     unnamed_readings,
     workbook_sheets,
 )
@@ -98,7 +96,7 @@ options = ReadOptions(
 )
 try:
     with st.status("Reading the file...", expanded=False) as status:
-        result = read_readings(upload, options, name=upload.name)
+        result = shared.read_upload(upload, options)
         frame = result.frame
         environment = None
         log_messages: list[str] = []
@@ -106,8 +104,8 @@ try:
         clock = None
         if log_upload is not None:
             status.update(label="Matching the humidity log by time...")
-            log = read_environment(log_upload, ReadOptions(day_first=options.day_first),
-                                   name=log_upload.name)
+            log = shared.read_upload(log_upload, ReadOptions(day_first=options.day_first),
+                                     kind="environment")
             environment = log.frame
             log_messages = log.messages
             log_decisions = log.decisions

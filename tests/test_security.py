@@ -512,3 +512,50 @@ def test_a_bundle_whose_member_names_climb_out_is_refused_whatever_the_spelling(
             with pytest.raises(InputError, match="not a file of a lab bundle"):
                 store.import_bundle(buffer.getvalue())
         assert store.is_empty()
+
+
+def _workbook_with_shared_strings(entries: int) -> bytes:
+    """A tiny workbook whose table of texts holds ``entries`` entries that no cell uses."""
+    book = openpyxl.Workbook()
+    book.active.append(["machine", "time", "speed [rpm]", "current [uA]"])
+    book.active.append(["m", "2026-01-01T10:00", 300, 1.0])
+    buffer = io.BytesIO()
+    book.save(buffer)
+    source = zipfile.ZipFile(io.BytesIO(buffer.getvalue()))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as archive:
+        for info in source.infolist():
+            data = source.read(info.filename)
+            if info.filename == "[Content_Types].xml":
+                data = data.replace(b"</Types>", b'<Override PartName="/xl/sharedStrings.xml" '
+                                    b'ContentType="application/vnd.openxmlformats-officedocument'
+                                    b'.spreadsheetml.sharedStrings+xml"/></Types>')
+            if info.filename == "xl/_rels/workbook.xml.rels":
+                data = data.replace(b"</Relationships>", b'<Relationship Id="rId99" Type="http://'
+                                    b'schemas.openxmlformats.org/officeDocument/2006/relationships'
+                                    b'/sharedStrings" Target="sharedStrings.xml"/></Relationships>')
+            archive.writestr(info, data)
+        archive.writestr("xl/sharedStrings.xml", (
+            '<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n<sst xmlns="http://schemas.'
+            f'openxmlformats.org/spreadsheetml/2006/main" count="{entries}" '
+            f'uniqueCount="{entries}">' + "<si><t>x</t></si>" * entries + "</sst>").encode())
+    return out.getvalue()
+
+
+@pytest.mark.timeout(60)
+def test_a_tiny_workbook_with_a_huge_table_of_texts_is_refused_at_once(tmp_path):
+    hostile = _workbook_with_shared_strings(3_000_000)
+    assert len(hostile) < 500_000  # under half a megabyte on disk
+    with pytest.raises(InputError, match="far larger than its sheets could use"):
+        read_readings(hostile, name="tiny.xlsx")
+    # on the command line: one line, status 2
+    path = tmp_path / "tiny.xlsx"
+    path.write_bytes(hostile)
+    machines = tmp_path / "m.toml"
+    machines.write_text(GOOD_MACHINES, encoding="utf-8")
+    err = io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(io.StringIO()):
+        status = main(["evaluate", str(machines), str(path)])
+    assert status == 2 and "far larger than its sheets could use" in err.getvalue()
+    # A workbook with a table its sheets can use reads as before.
+    assert len(read_readings(_workbook_with_shared_strings(50), name="small.xlsx").frame) == 1

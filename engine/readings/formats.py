@@ -330,7 +330,58 @@ def _pandas_read_csv(inp: _Input, encoding: str, kwargs: dict) -> pd.DataFrame:
         raise InputError(f"{inp.name}: cannot be read as CSV ({error})") from None
 
 
+#: Smallest size of one cell in a sheet's XML [bytes] (``<c r="A1"><v>0</v></c>`` is 25): a
+#: sheet of N bytes holds at most N / 10 cells, so it can use at most that many shared strings.
+_MIN_CELL_BYTES = 10
+#: Largest shared-strings part accepted, uncompressed [bytes].
+MAX_SHARED_STRINGS_BYTES = 256 * 1024 * 1024
+
+
+def check_workbook_parts(inp: _Input) -> None:
+    """Refuse a workbook whose shared-strings table is far larger than its sheets could use.
+
+    Reading a workbook reads its whole shared-strings table first; a file of a few hundred
+    kilobytes can hold millions of entries that no cell refers to and cost minutes and
+    gigabytes. The table's declared entries (or its size) are bounded by the cells the
+    sheets' XML could hold, before anything is parsed.
+
+    Raises
+    ------
+    InputError
+        Naming the file and what to do.
+    """
+    import re
+    import zipfile
+
+    try:
+        with zipfile.ZipFile(inp.open()) as archive:
+            parts = {info.filename: info for info in archive.infolist()}
+            strings = parts.get("xl/sharedStrings.xml")
+            if strings is None:
+                return
+            sheet_bytes = sum(info.file_size for name, info in parts.items()
+                              if name.startswith("xl/worksheets/") and name.endswith(".xml"))
+            most_cells = sheet_bytes // _MIN_CELL_BYTES + 1000
+            with archive.open(strings) as handle:
+                head = handle.read(4096).decode("utf-8", "replace")
+    except (zipfile.BadZipFile, OSError, ValueError, KeyError):
+        return  # not a zip at all: the workbook reader says so
+    declared = re.search(r'uniqueCount="(\d+)"', head)
+    entries = int(declared.group(1)) if declared else None
+    if strings.file_size > MAX_SHARED_STRINGS_BYTES or (
+            entries is not None and entries > most_cells) or (
+            entries is None and strings.file_size > 64 * (sheet_bytes + 1_000_000)):
+        raise InputError(
+            f"{inp.name}: the workbook's table of texts ("
+            + (f"{entries:,} entries" if entries is not None else
+               f"{strings.file_size / 1e6:,.0f} MB")
+            + f") is far larger than its sheets could use (at most about {most_cells:,} "
+            "cells); it is damaged or not a spreadsheet's own file. Open it in a spreadsheet "
+            "program and save it again as XLSX, or export the readings as CSV")
+
+
 def _read_xlsx(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Table:
+    check_workbook_parts(inp)
     try:
         book = pd.ExcelFile(inp.open(), engine="openpyxl")
     except Exception as error:  # noqa: BLE001 - any failure of a corrupt workbook
@@ -435,6 +486,7 @@ def workbook_sheets(source: str | os.PathLike | bytes | BinaryIO, name: str | No
     if not inp.sample.startswith(b"PK\x03\x04"):
         return []
     try:
+        check_workbook_parts(inp)
         with pd.ExcelFile(inp.open(), engine="openpyxl") as book:
             return [str(sheet) for sheet in book.sheet_names]
     except Exception:  # noqa: BLE001 - a damaged workbook is refused when it is read
