@@ -94,6 +94,7 @@ if len(shown) > figures.MAX_DRAWN_POINTS:
     st.caption(f"The charts draw at most {figures.MAX_DRAWN_POINTS:,} evenly spaced readings per "
                "machine so that the browser stays quick; the fits and the table use all "
                f"{len(shown):,}.")
+st.caption(shared.site_words(machine_file.site))
 flagged = int((shown[col.FLAGS] != "").sum())
 st.subheader("Findings")
 st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "

@@ -19,7 +19,9 @@ if derived.empty:
     st.info("No readings to report yet. Import readings first, or restore a lab bundle below.")
 else:
     labels = {machine.id: machine.label for machine in machine_file.machines}
-    machine_ids = sorted(derived[col.MACHINE].unique())
+    shared.undescribed_warning(derived, machines)
+    present = set(derived[col.MACHINE])
+    machine_ids = [machine_id for machine_id in machines if machine_id in present]
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids, key="report-machines",
                             format_func=lambda key: labels.get(key, key))
     sessions = sorted(derived.loc[derived[col.MACHINE].isin(chosen), col.SESSION].unique())
