@@ -14,7 +14,7 @@ import pandas as pd
 from engine.errors import InputError
 from engine.readings.options import ReadOptions, _quoted, _Table
 from engine.readings.quantities import _numbers, _scaled, _text, _to_float
-from engine.units import unit_conversion
+from engine.units import one_line, unit_conversion
 
 # --- Times ------------------------------------------------------------------------------------
 _ISO_RE = (r"^\d{4}-\d{2}-\d{2}(?:[T ]\d{1,2}:\d{2}(?::\d{2}(?:\.\d+)?)?)?"
@@ -204,7 +204,7 @@ def _parse_numeric_dates(
                 f"{source}: some dates have the day first and others the month first; read "
                 f"day first, the others are bad_time. {_DATE_ORDER_FIX}")
         else:
-            example = text[present].iloc[0]
+            example = one_line(text[present].iloc[0])[:40]  # a cell quoted in a message
             by_sequence = _order_from_sequence(text)
             if by_sequence is not None:
                 day_first = by_sequence
