@@ -778,6 +778,12 @@ FINDINGS_COLUMNS = (
 )
 """Columns of :func:`findings`, in order."""
 
+#: Columns of the derived readings that :func:`findings` reads (a cache may load only these).
+FINDINGS_INPUT_COLUMNS = (
+    col.MACHINE, col.SESSION, col.FLAGS, col.CURRENT_A, col.SPEED_REV_S, col.BELT_SPEED_M_S,
+    col.EFFICIENCY, col.EFFICIENCY_U, col.RH, col.RELATIVE_AIR_DENSITY,
+)
+
 
 def _check_derived(derived: pd.DataFrame) -> pd.DataFrame:
     derived = _check_readings(derived, "derived readings")
