@@ -116,3 +116,24 @@ def test_an_empty_store_gives_an_empty_frame(tmp_path):
         frame = DerivedCache(store).read(columns=[col.MACHINE, col.EFFICIENCY])
     assert frame.empty
     assert list(frame.columns) == [col.MACHINE, col.EFFICIENCY, IMPORT_ID]
+
+
+@pytest.mark.parametrize(("machines", "sessions"), [
+    (["twin-disc", "school-belt", "stack", "not-described"], ["morning", "afternoon"]),
+    (["school-belt", "not-described"], ["morning", "afternoon"]),
+    (["stack", "not-described", "twin-disc"], ["afternoon"]),
+    (["not-described"], ["morning"]),
+])
+def test_findings_of_whole_groups_are_the_findings_of_those_readings(lab, machines, sessions):
+    machine_file = lab.machines()
+    derived = DerivedCache(lab).read(columns=analysis.FINDINGS_INPUT_COLUMNS)
+    # sessions first met in another order than the machines: afternoon first for one machine
+    derived.loc[derived.index[:5], col.SESSION] = "afternoon"
+    all_findings = analysis.findings(derived, machine_file, by_session=True)
+    chosen = derived[col.MACHINE].isin(machines) & derived[col.SESSION].isin(sessions)
+    expected = analysis.findings(derived[chosen], machine_file, by_session=True)
+    got = analysis.findings_of_groups(all_findings, analysis.group_first_rows(derived),
+                                      machine_file, machines, sessions)
+    assert len(got) == len(expected) > 0
+    assert list(got.dtypes) == list(expected.dtypes)
+    assert_same_findings(got, expected)
