@@ -48,6 +48,8 @@ FLAGGED_COLOUR = "#8C8C8C"
 WEBGL_THRESHOLD = 20_000
 #: Most readings one trace draws; more are thinned to evenly spaced ones.
 MAX_DRAWN_POINTS = 25_000
+#: Most readings a whole chart is given by :func:`chart_sample` (all machines together).
+MAX_CHART_POINTS = 40_000
 #: What an empty chart says.
 NO_READINGS = "No readings to show"
 #: Reference relative humidity of the humidity fit [%], unless told otherwise.
@@ -211,6 +213,51 @@ def _scatter(points: int, **trace: object) -> go.Scatter | go.Scattergl:
     if points > WEBGL_THRESHOLD:
         return go.Scattergl(**trace)
     return go.Scatter(**trace)
+
+
+def chart_sample(derived: pd.DataFrame, max_points: int = MAX_CHART_POINTS) -> pd.DataFrame:
+    """At most about ``max_points`` readings to draw, spread evenly over each machine's readings.
+
+    A chart built from millions of readings is slow to build and heavy to send: the scatter
+    charts are drawn from this sample, while findings, fits and intervals come from all the
+    readings. Each machine's clean readings get an equal share (a machine with fewer keeps all
+    of them), evenly spaced in their order so that a session's course keeps its shape; flagged
+    readings get a quarter of the budget the same way.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with ``machine`` (and ``flags``).
+    max_points : int
+        Budget of readings [-]; the result may exceed it by at most one reading per machine.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``derived`` itself when it is within the budget, else a subset of its rows in their
+        order (a copy, and a small one).
+    """
+    if len(derived) <= max_points:
+        return derived
+    flagged = _flagged(derived)
+    if col.MACHINE in derived:
+        machine_codes, uniques = pd.factorize(derived[col.MACHINE], use_na_sentinel=False)
+    else:
+        machine_codes, uniques = np.zeros(len(derived), dtype=np.intp), [""]
+    clean_share = max(1, (max_points - max_points // 4) // max(len(uniques), 1))
+    kept = []
+    # One stable sort groups the rows of each machine, in their order.
+    codes = np.where(flagged, -1, machine_codes)
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(-1, len(uniques) + 1))
+    for number in range(len(uniques) + 1):
+        rows = order[bounds[number]:bounds[number + 1]]
+        share = max_points // 4 if number == 0 else clean_share
+        if rows.size > share:
+            rows = rows[np.linspace(0, rows.size - 1, share).round().astype(np.int64)]
+        kept.append(rows)
+    positions = np.sort(np.concatenate(kept))
+    return derived.iloc[positions]
 
 
 def _empty_figure(title: str = "", message: str = NO_READINGS) -> go.Figure:

@@ -9,12 +9,14 @@ import pandas as pd
 import streamlit as st
 
 from engine import analysis
+from engine import columns as col
 from engine.arrangements import ARRANGEMENT_LABELS, COLLECTOR_LABELS, delivery_sentence
 from engine.carriers import CARRIER_KINDS, SPEC_KEYS
 from engine.errors import InputError
 from engine.figures import PALETTE
 from engine.machines import Machine, MachineFile, dump_machines, machine_from_table
 from engine.store import Store, default_store_path, open_store
+from engine.store.cache import DerivedCache
 
 # A page opened by a direct link as the first request after the server starts is run by
 # Streamlit's older folder-based navigation (it sees the pages/ folder before app.py has called
@@ -190,24 +192,94 @@ def colours_for(machine_file: MachineFile) -> dict[str, str]:
 
 
 def store_signature() -> tuple:
-    """Changes whenever the store's content changes; keys the cached loaders."""
+    """Changes whenever the store's content changes; keys the cached loaders.
+
+    The imports (id, time stored, readings) and the machines file: cheap to read, also with
+    millions of readings (no count over the readings table).
+    """
     current = store()
     imports = current.imports()
-    return (tuple(sorted(current.counts().items())), tuple(imports["id"].tolist()),
+    return (tuple(zip(imports["id"].tolist(), imports["created_at"].tolist(),
+                      imports["rows"].tolist(), strict=True)),
             dump_machines(current.machines()))
 
 
-@st.cache_data(show_spinner="Computing ceilings and efficiencies...", max_entries=4)
-def derived_readings(path: str, signature: tuple) -> pd.DataFrame:  # noqa: ARG001 - cache key
-    """All stored readings with their derived columns (cached until the store changes)."""
+#: Columns of the derived readings that the Compare, Sessions and Overview pages read (the
+#: derived cache reads only these from disk).
+DASHBOARD_COLUMNS = (
+    col.ROW, col.MACHINE, col.SESSION, col.TIME, col.ELAPSED_S, col.SPEED_REV_S,
+    col.BELT_SPEED_M_S, col.CURRENT_A, col.RH, col.TEMPERATURE_K, col.VOLTAGE_V, col.NOTE,
+    col.FLAGS, col.CEILING_A, col.EFFICIENCY, col.EFFICIENCY_U, col.CHARGE_PER_REV_C,
+    col.RELATIVE_AIR_DENSITY,
+)
+
+_last_signature: list[tuple] = []
+
+
+def _forget_older(signature: tuple) -> None:
+    """Drop the cached frames of an older state of the store, so that they free memory."""
+    if _last_signature and _last_signature[0] != signature:
+        derived_readings.clear()
+        _group_findings.clear()
+    _last_signature[:] = [signature]
+
+
+# cache_resource, not cache_data: the frame is shared as it is, never pickled and copied on a
+# rerun. Pages only read it (filters make new frames).
+@st.cache_resource(show_spinner="Reading the derived readings...", max_entries=3)
+def derived_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
+                     columns: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """Stored readings with their derived columns, from the derived cache beside the store.
+
+    Only ``columns`` are read (None: all). The cache derives each import once and keeps it
+    until a machine or the site changes.
+    """
     current = store()
-    machine_file = current.machines()
-    return analysis.derive(current.readings(), machine_file.by_id(), machine_file.site)
+    return DerivedCache(current).read(columns=columns, machine_file=current.machines())
 
 
-def load_derived() -> pd.DataFrame:
-    """Derived readings of the whole store, from the cache when nothing changed."""
-    return derived_readings(str(default_store_path()), store_signature())
+def load_derived(columns: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """Derived readings of the whole store (cached until the store changes); do not modify it.
+
+    Parameters
+    ----------
+    columns : tuple of str, optional
+        Columns to read; None reads every column (the Report page's tables).
+    """
+    signature = store_signature()
+    _forget_older(signature)
+    return derived_readings(str(default_store_path()), signature, columns)
+
+
+@st.cache_resource(show_spinner="Fitting speed and humidity...", max_entries=8)
+def _group_findings(path: str, signature: tuple,
+                    reference_rh: float) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Findings per machine and session of all readings, and each group's first reading."""
+    derived = derived_readings(path, signature, DASHBOARD_COLUMNS)
+    machine_file = store().machines()
+    return (analysis.findings(derived, machine_file.by_id(), by_session=True,
+                              reference_rh=reference_rh),
+            analysis.group_first_rows(derived))
+
+
+def findings_of(shown: pd.DataFrame, machine_ids, sessions, whole_groups: bool,
+                reference_rh: float = 0.45) -> pd.DataFrame:
+    """Findings per machine and session of the readings shown.
+
+    When the filters keep whole machine-session groups (``whole_groups``), they are taken from
+    the cached findings of all readings (:func:`engine.analysis.findings_of_groups`, the same
+    values); otherwise computed from ``shown``.
+    """
+    machine_file = store().machines()
+    if not whole_groups:
+        return analysis.findings(shown, machine_file.by_id(), by_session=True,
+                                 reference_rh=reference_rh)
+    signature = store_signature()
+    _forget_older(signature)
+    by_session, first_rows = _group_findings(str(default_store_path()), signature,
+                                             float(reference_rh))
+    return analysis.findings_of_groups(by_session, first_rows, machine_file.by_id(),
+                                       list(machine_ids), list(sessions))
 
 
 def show_error(error: Exception) -> None:
@@ -233,16 +305,19 @@ def show_flash() -> None:
 
 
 @st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=16)
-def _findings(path: str, signature: tuple, by_session: bool,  # noqa: ARG001 - cache keys
+def _findings(path: str, signature: tuple, by_session: bool,
               reference_rh: float) -> pd.DataFrame:
     machine_file = store().machines()
-    return analysis.findings(derived_readings(path, signature), machine_file.by_id(),
-                             by_session=by_session, reference_rh=reference_rh)
+    return analysis.findings(derived_readings(path, signature, DASHBOARD_COLUMNS),
+                             machine_file.by_id(), by_session=by_session,
+                             reference_rh=reference_rh)
 
 
 def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.DataFrame:
-    """Findings of the whole store (cached until the store changes)."""
-    return _findings(str(default_store_path()), store_signature(), by_session, reference_rh)
+    """Findings of the whole store (cached until the store changes; a small frame)."""
+    signature = store_signature()
+    _forget_older(signature)
+    return _findings(str(default_store_path()), signature, by_session, reference_rh)
 
 
 def _interval_text(interval, scale: float = 1.0) -> str:

@@ -1,13 +1,14 @@
 """Compare: every machine against its ceiling on one screen, with filters and the findings."""
 
+import pandas as pd
 import streamlit as st
 
-from engine import analysis, figures, report
 from engine import columns as col
+from engine import figures, report
 from pages import _shared as shared
 
 st.title("Compare")
-derived = shared.load_derived()
+derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
 machine_file = shared.store().machines()
 machines = machine_file.by_id()
 labels = {machine_id: machine.label for machine_id, machine in machines.items()}
@@ -32,12 +33,13 @@ with st.container(border=True):
     reference_rh = third.number_input("Reference RH [%]", 0, 100, 45, key="compare-ref-rh") / 100
     rh_known = derived[col.RH].dropna()
     rh_range = (0, 100)
+    rh_whole = True  # the humidity filter keeps every reading
     if not rh_known.empty:
         low = int(rh_known.min() * 100)
         high = int(rh_known.max() * 100) + 1
-        rh_range = first.slider("Relative humidity [%]", 0, 100,
-                                (max(0, min(low, 100)), max(0, min(high, 100))),
-                                key="compare-rh")
+        rh_bounds = (max(0, min(low, 100)), max(0, min(high, 100)))
+        rh_range = first.slider("Relative humidity [%]", 0, 100, rh_bounds, key="compare-rh")
+        rh_whole = rh_range[0] <= rh_bounds[0] and rh_range[1] >= rh_bounds[1]
     times = derived[col.TIME].dropna()
     date_range = None
     if not times.empty:
@@ -45,45 +47,56 @@ with st.container(border=True):
         if first_day < last_day:
             date_range = second.slider("Dates", first_day, last_day, (first_day, last_day),
                                        key="compare-dates")
+            if date_range[0] <= first_day and date_range[1] >= last_day:
+                date_range = None  # every day kept
 
 mask = derived[col.MACHINE].isin(chosen) & derived[col.SESSION].isin(chosen_sessions)
-rh_percent = derived[col.RH] * 100
-# The slider stops at 0 and 100 %: readings outside (flagged) stay with the nearest end.
-mask &= (rh_percent.isna() | rh_percent.between(*rh_range)
-         | ((rh_range[1] == 100) & (rh_percent > 100)) | ((rh_range[0] == 0) & (rh_percent < 0)))
+if not rh_whole:
+    rh_percent = derived[col.RH] * 100
+    # The slider stops at 0 and 100 %: readings outside (flagged) stay with the nearest end.
+    mask &= (rh_percent.isna() | rh_percent.between(*rh_range)
+             | ((rh_range[1] == 100) & (rh_percent > 100))
+             | ((rh_range[0] == 0) & (rh_percent < 0)))
 if date_range is not None:
-    days = derived[col.TIME].dt.date
-    mask &= days.isna() | ((days >= date_range[0]) & (days <= date_range[1]))
-shown = derived[mask]
+    # Whole days in the times' own zone, compared as times (no date object per reading).
+    time_column = derived[col.TIME]
+    zone = getattr(time_column.dt, "tz", None)
+    start = pd.Timestamp(date_range[0]).tz_localize(zone)
+    stop = (pd.Timestamp(date_range[1]) + pd.Timedelta(days=1)).tz_localize(zone)
+    mask &= time_column.isna() | ((time_column >= start) & (time_column < stop))
+# Whole machine-session groups: their findings come from the cache of all readings.
+whole_groups = rh_whole and date_range is None
+shown = derived if bool(mask.all()) else derived[mask]
 if shown.empty:
     st.warning("No readings match these filters: widen the humidity range or pick more "
                "machines or sessions.")
     st.stop()
 
-findings = analysis.findings(shown, machines, by_session=True, reference_rh=reference_rh)
+findings = shared.findings_of(shown, chosen, chosen_sessions, whole_groups, reference_rh)
 colours = shared.colours_for(machine_file)
 arguments = {"findings": findings, "machines": machines, "colours": colours,
              "show_flagged": show_flagged}
+# The charts are built from a bounded sample; the fits and the table use every reading.
+drawn = figures.chart_sample(shown)
 top_left, top_right = st.columns(2)
-top_left.plotly_chart(figures.current_vs_speed(shown, **arguments), key="compare-current")
-top_right.plotly_chart(figures.efficiency_vs_speed(shown, **arguments), key="compare-efficiency")
+top_left.plotly_chart(figures.current_vs_speed(drawn, **arguments), key="compare-current")
+top_right.plotly_chart(figures.efficiency_vs_speed(drawn, **arguments), key="compare-efficiency")
 bottom_left, bottom_right = st.columns(2)
-bottom_left.plotly_chart(figures.charge_per_rev(shown, **arguments), key="compare-charge")
-bottom_right.plotly_chart(figures.efficiency_vs_humidity(shown, **arguments,
+bottom_left.plotly_chart(figures.charge_per_rev(drawn, **arguments), key="compare-charge")
+bottom_right.plotly_chart(figures.efficiency_vs_humidity(drawn, **arguments,
                                                         reference_rh_pct=reference_rh * 100),
                           key="compare-humidity")
 
-if len(shown) > figures.MAX_DRAWN_POINTS:
-    st.caption(f"The charts draw at most {figures.MAX_DRAWN_POINTS:,} evenly spaced readings per "
-               "machine so that the browser stays quick; the fits and the table use all "
-               f"{len(shown):,}.")
+if len(drawn) < len(shown):
+    st.caption(f"The charts draw {len(drawn):,} evenly spaced readings so that the browser "
+               f"stays quick; the fits and the table use all {len(shown):,}.")
 flagged = int((shown[col.FLAGS] != "").sum())
 st.subheader("Findings")
 st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "
            "One row per machine and session; intervals are 95 % confidence intervals.")
 st.dataframe(shared.findings_table(findings, labels, reference_rh), hide_index=True,
              column_config=shared.findings_formats(reference_rh), key="compare-findings")
-unknown = sorted(set(shown[col.MACHINE]) - set(machines))
+unknown = sorted(set(shown[col.MACHINE].unique()) - set(machines))
 if unknown:
     st.warning("Readings name machines that are not described: " + ", ".join(unknown)
                + ". Add them on the Machines page to get their ceiling.")

@@ -8,7 +8,7 @@ from engine.errors import InputError
 from pages import _shared as shared
 
 st.title("Sessions")
-derived = shared.load_derived()
+derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
 machine_file = shared.store().machines()
 labels = {machine.id: machine.label for machine in machine_file.machines}
 if derived.empty:
@@ -26,7 +26,9 @@ session = st.selectbox("Session", sessions, key="sessions-session",
                        format_func=lambda name: name or "(no session)")
 one_session = of_machine[of_machine[col.SESSION] == session]
 flagged = one_session[one_session[col.FLAGS] != ""]
-st.plotly_chart(figures.session_timeline(one_session, machine_id, shared.colours_for(machine_file),
+# Charts from a bounded sample of the session; the fits use all its readings.
+st.plotly_chart(figures.session_timeline(figures.chart_sample(one_session), machine_id,
+                                         shared.colours_for(machine_file),
                                          label=labels.get(machine_id), session=session),
                 key="sessions-timeline")
 st.caption(f"{len(one_session):,} readings, {len(flagged):,} flagged (marked with x).")
@@ -38,7 +40,8 @@ if not flagged.empty:
 if one_session[col.VOLTAGE_V].notna().any():
     st.subheader("Load line: current against terminal voltage")
     load_line = analysis.load_line_findings(one_session).iloc[0].to_dict()
-    st.plotly_chart(figures.load_line_chart(one_session, machine_id, load_line,
+    st.plotly_chart(figures.load_line_chart(figures.chart_sample(one_session), machine_id,
+                                            load_line,
                                             machine_file.by_id().get(machine_id), session,
                                             shared.colours_for(machine_file),
                                             label=labels.get(machine_id)),

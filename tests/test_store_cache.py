@@ -137,3 +137,19 @@ def test_findings_of_whole_groups_are_the_findings_of_those_readings(lab, machin
     assert len(got) == len(expected) > 0
     assert list(got.dtypes) == list(expected.dtypes)
     assert_same_findings(got, expected)
+
+
+def test_a_chart_sample_is_bounded_keeps_every_machine_and_the_order_of_readings(lab):
+    from engine import figures
+
+    derived = DerivedCache(lab).read()
+    sample = figures.chart_sample(derived, max_points=400)
+    assert len(sample) <= 400
+    assert sample.index.is_monotonic_increasing
+    # clean readings: 300 of the budget shared by the 4 machines, 75 each
+    clean = sample[sample[col.FLAGS] == ""]
+    for machine, count in derived.loc[derived[col.FLAGS] == "", col.MACHINE].value_counts().items():
+        assert (clean[col.MACHINE] == machine).sum() == min(count, 75), machine
+    flagged = (derived[col.FLAGS] != "").sum()
+    assert (sample[col.FLAGS] != "").sum() == min(flagged, 100)
+    assert figures.chart_sample(derived, max_points=len(derived)) is derived
