@@ -50,6 +50,8 @@ WEBGL_THRESHOLD = 20_000
 MAX_DRAWN_POINTS = 25_000
 #: Most readings a whole chart is given by :func:`chart_sample` (all machines together).
 MAX_CHART_POINTS = 40_000
+#: Most readings of a session's charts (each reading carries several traces and its time).
+MAX_SESSION_CHART_POINTS = 6_000
 #: What an empty chart says.
 NO_READINGS = "No readings to show"
 #: Reference relative humidity of the humidity fit [%], unless told otherwise.

@@ -27,7 +27,8 @@ session = st.selectbox("Session", sessions, key="sessions-session",
 one_session = of_machine[of_machine[col.SESSION] == session]
 flagged = one_session[one_session[col.FLAGS] != ""]
 # Charts from a bounded sample of the session; the fits use all its readings.
-st.plotly_chart(figures.session_timeline(figures.chart_sample(one_session), machine_id,
+drawn = figures.chart_sample(one_session, figures.MAX_SESSION_CHART_POINTS)
+st.plotly_chart(figures.session_timeline(drawn, machine_id,
                                          shared.colours_for(machine_file),
                                          label=labels.get(machine_id), session=session),
                 key="sessions-timeline")
@@ -40,8 +41,7 @@ if not flagged.empty:
 if one_session[col.VOLTAGE_V].notna().any():
     st.subheader("Load line: current against terminal voltage")
     load_line = analysis.load_line_findings(one_session).iloc[0].to_dict()
-    st.plotly_chart(figures.load_line_chart(figures.chart_sample(one_session), machine_id,
-                                            load_line,
+    st.plotly_chart(figures.load_line_chart(drawn, machine_id, load_line,
                                             machine_file.by_id().get(machine_id), session,
                                             shared.colours_for(machine_file),
                                             label=labels.get(machine_id)),
