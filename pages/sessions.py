@@ -21,6 +21,7 @@ machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
 of_machine = derived[derived[col.MACHINE] == machine_id]
 # Sessions in the order they were run (first reading first), so "before" comes before "after".
 first_times = of_machine.groupby(col.SESSION, sort=False)[col.TIME].min()
+first_times.index = first_times.index.astype(str)  # ties in name order, also from categoricals
 sessions = list(first_times.sort_index().sort_values(kind="stable", na_position="last").index)
 session = st.selectbox("Session", sessions, key="sessions-session",
                        format_func=lambda name: name or "(no session)")

@@ -50,6 +50,9 @@ ROW_GROUP_ROWS = 1_000_000
 #: Engine modules whose code decides the derived columns: their source is part of the key.
 _DERIVE_MODULES = ("analysis", "air", "carriers", "ceiling", "machines", "arrangements",
                    "units", "columns")
+# Text columns of few distinct values: read as pandas categoricals (a byte or two per reading
+# instead of the text itself).
+_TEXT_COLUMNS = (col.MACHINE, col.SESSION, col.FLAGS, col.NOTE)
 _FILE_PATTERN = re.compile(r"^import-(\d+)-([0-9a-f]{16})\.parquet$")
 _engine_digest: str | None = None
 
@@ -204,7 +207,9 @@ class DerivedCache:
             filters = [(col.MACHINE, "in", [str(name) for name in machines])]
         tables = []
         for import_id, path in files.items():
-            table = pq.read_table(path, columns=wanted, filters=filters)
+            table = pq.read_table(path, columns=wanted, filters=filters,
+                                  read_dictionary=[name for name in _TEXT_COLUMNS
+                                                   if wanted is None or name in wanted])
             tables.append(table.append_column(
                 IMPORT_ID, pa.array(np.full(table.num_rows, import_id, dtype=np.int64))))
         if not tables:
