@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import html
 import math
+import weakref
 from collections.abc import Iterable, Mapping, Sequence
 
 import numpy as np
@@ -364,11 +365,21 @@ def _ceiling_at_density(machine: Machine, speed_rev_s, relative_density: float):
     return np.asarray(result.ceiling_current_a, dtype=float)
 
 
+# The findings table last grouped by machine (charts ask once per machine, four charts a run).
+_grouped_findings: list = [None, {}]
+
+
 def _findings_rows(findings: pd.DataFrame | None, machine_id: str) -> list[dict[str, object]]:
     if findings is None or len(findings) == 0 or "machine" not in findings:
         return []
-    machine = findings["machine"].astype(object).where(findings["machine"].notna(), "")
-    return findings[machine.astype(str) == machine_id].to_dict("records")
+    held = _grouped_findings[0]() if _grouped_findings[0] is not None else None
+    if held is not findings:
+        machine = findings["machine"].astype(object).where(findings["machine"].notna(), "")
+        grouped: dict[str, list[dict[str, object]]] = {}
+        for key, row in zip(machine.astype(str), findings.to_dict("records"), strict=True):
+            grouped.setdefault(key, []).append(row)
+        _grouped_findings[:] = [weakref.ref(findings), grouped]
+    return [dict(row) for row in _grouped_findings[1].get(machine_id, [])]
 
 
 def _session_of(row: Mapping[str, object]) -> str:
@@ -380,7 +391,12 @@ def _session_rows(frame: pd.DataFrame, session: str) -> np.ndarray:
     """Rows of ``frame`` in ``session``; all rows when no session is asked for."""
     if not session or col.SESSION not in frame:
         return np.ones(len(frame), dtype=bool)
-    sessions = frame[col.SESSION].astype(object).where(frame[col.SESSION].notna(), "")
+    column = frame[col.SESSION]
+    if isinstance(column.dtype, pd.CategoricalDtype) or (
+            pd.api.types.is_string_dtype(column.dtype) and column.dtype != object):
+        # text or categorical: compared without a Python string per reading
+        return (column == session).to_numpy(dtype=bool, na_value=False)
+    sessions = column.astype(object).where(column.notna(), "")
     return (sessions.astype(str) == session).to_numpy(dtype=bool)
 
 
