@@ -218,7 +218,8 @@ def _scatter(points: int, **trace: object) -> go.Scatter | go.Scattergl:
     return go.Scatter(**trace)
 
 
-def chart_sample(derived: pd.DataFrame, max_points: int = MAX_CHART_POINTS) -> pd.DataFrame:
+def chart_sample(derived: pd.DataFrame, max_points: int = MAX_CHART_POINTS,
+                 rows: np.ndarray | None = None) -> pd.DataFrame:
     """At most about ``max_points`` readings to draw, spread evenly over each machine's readings.
 
     A chart built from millions of readings is slow to build and heavy to send: the scatter
@@ -233,15 +234,22 @@ def chart_sample(derived: pd.DataFrame, max_points: int = MAX_CHART_POINTS) -> p
         Readings with ``machine`` (and ``flags``).
     max_points : int
         Budget of readings [-]; the result may exceed it by at most one reading per machine.
+    rows : numpy.ndarray of bool, optional
+        Readings to sample from (e.g. those a filter keeps); None: all. The filtered frame is
+        never copied whole.
 
     Returns
     -------
     pandas.DataFrame
-        ``derived`` itself when it is within the budget, else a subset of its rows in their
-        order (a copy, and a small one).
+        ``derived`` itself when all of it is asked for and within the budget, else a subset
+        of its rows in their order (a copy, and a small one).
     """
-    if len(derived) <= max_points:
+    if rows is not None and bool(rows.all()):
+        rows = None
+    if rows is None and len(derived) <= max_points:
         return derived
+    if rows is not None and np.count_nonzero(rows) <= max_points:
+        return derived.iloc[np.flatnonzero(rows)]
     flagged = _flagged(derived)
     if col.MACHINE in derived:
         machine_codes, uniques = pd.factorize(derived[col.MACHINE], use_na_sentinel=False)
@@ -251,9 +259,11 @@ def chart_sample(derived: pd.DataFrame, max_points: int = MAX_CHART_POINTS) -> p
     kept = []
     # One stable sort groups the rows of each machine, in their order.
     codes = np.where(flagged, -1, machine_codes)
+    if rows is not None:
+        codes = np.where(rows, codes, len(uniques))  # left out: a group of their own, not drawn
     order = np.argsort(codes, kind="stable")
     bounds = np.searchsorted(codes[order], np.arange(-1, len(uniques) + 1))
-    for number in range(len(uniques) + 1):
+    for number in range(len(uniques) + 1):  # the flagged first, then machine by machine
         rows = order[bounds[number]:bounds[number + 1]]
         share = max_points // 4 if number == 0 else clean_share
         if rows.size > share:

@@ -317,6 +317,8 @@ def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.Da
     """Findings of the whole store (cached until the store changes; a small frame)."""
     signature = store_signature()
     _forget_older(signature)
+    if by_session:  # the same table the Compare page starts from: computed once for both
+        return _group_findings(str(default_store_path()), signature, float(reference_rh))[0]
     return _findings(str(default_store_path()), signature, by_session, reference_rh)
 
 

@@ -66,8 +66,11 @@ if date_range is not None:
     mask &= time_column.isna() | ((time_column >= start) & (time_column < stop))
 # Whole machine-session groups: their findings come from the cache of all readings.
 whole_groups = rh_whole and date_range is None
-shown = derived if bool(mask.all()) else derived[mask]
-if shown.empty:
+selected = mask.to_numpy(dtype=bool)
+shown_count = int(selected.sum())
+# The readings shown are copied out only when their findings must be computed from them.
+shown = derived if shown_count == len(derived) else None if whole_groups else derived[selected]
+if shown_count == 0:
     st.warning("No readings match these filters: widen the humidity range or pick more "
                "machines or sessions.")
     st.stop()
@@ -77,7 +80,7 @@ colours = shared.colours_for(machine_file)
 arguments = {"findings": findings, "machines": machines, "colours": colours,
              "show_flagged": show_flagged}
 # The charts are built from a bounded sample; the fits and the table use every reading.
-drawn = figures.chart_sample(shown)
+drawn = figures.chart_sample(derived, rows=selected)
 top_left, top_right = st.columns(2)
 top_left.plotly_chart(figures.current_vs_speed(drawn, **arguments), key="compare-current")
 top_right.plotly_chart(figures.efficiency_vs_speed(drawn, **arguments), key="compare-efficiency")
@@ -87,16 +90,16 @@ bottom_right.plotly_chart(figures.efficiency_vs_humidity(drawn, **arguments,
                                                         reference_rh_pct=reference_rh * 100),
                           key="compare-humidity")
 
-if len(drawn) < len(shown):
+if len(drawn) < shown_count:
     st.caption(f"The charts draw {len(drawn):,} evenly spaced readings so that the browser "
-               f"stays quick; the fits and the table use all {len(shown):,}.")
-flagged = int((shown[col.FLAGS] != "").sum())
+               f"stays quick; the fits and the table use all {shown_count:,}.")
+flagged = int(((derived[col.FLAGS] != "").to_numpy(dtype=bool) & selected).sum())
 st.subheader("Findings")
-st.caption(f"{len(shown):,} readings shown, {flagged:,} flagged and left out of the fits. "
+st.caption(f"{shown_count:,} readings shown, {flagged:,} flagged and left out of the fits. "
            "One row per machine and session; intervals are 95 % confidence intervals.")
 st.dataframe(shared.findings_table(findings, labels, reference_rh), hide_index=True,
              column_config=shared.findings_formats(reference_rh), key="compare-findings")
-unknown = sorted(set(shown[col.MACHINE].unique()) - set(machines))
+unknown = sorted(set(derived[col.MACHINE][selected].unique()) - set(machines))
 if unknown:
     st.warning("Readings name machines that are not described: " + ", ".join(unknown)
                + ". Add them on the Machines page to get their ceiling.")

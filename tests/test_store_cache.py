@@ -157,3 +157,14 @@ def test_a_chart_sample_is_bounded_keeps_every_machine_and_the_order_of_readings
     flagged = (derived[col.FLAGS] != "").sum()
     assert (sample[col.FLAGS] != "").sum() == min(flagged, 100)
     assert figures.chart_sample(derived, max_points=len(derived)) is derived
+
+
+def test_a_chart_sample_of_filtered_rows_draws_only_those(lab):
+    from engine import figures
+
+    derived = DerivedCache(lab).read()
+    kept = (derived[col.MACHINE] != "stack").to_numpy()
+    sample = figures.chart_sample(derived, max_points=400, rows=kept)
+    assert len(sample) <= 400 and "stack" not in set(sample[col.MACHINE])
+    small = figures.chart_sample(derived, max_points=400, rows=np.arange(len(derived)) < 50)
+    assert small.equals(derived.iloc[:50])
