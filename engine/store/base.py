@@ -224,9 +224,46 @@ class Store(abc.ABC):
     @abc.abstractmethod
     def export_bundle(self, import_ids: Iterable[int] | int | None = None) -> bytes:
         """The lab as a bundle (:mod:`engine.store.bundle`): a zip of machines, readings and
-        environment logs; ``import_ids`` None includes every import."""
+        environment logs.
+
+        Parameters
+        ----------
+        import_ids : iterable of int, optional
+            Imports to include; None includes all. The site and all machines are always
+            included.
+
+        Returns
+        -------
+        bytes
+            A zip with ``manifest.json`` (format ``ceiling-lab-bundle``, version, counts and the
+            imports), ``machines.toml``, ``readings.csv`` and ``environment.csv``.
+
+        Raises
+        ------
+        InputError
+            When an asked import is not in the store.
+        """
 
     @abc.abstractmethod
     def import_bundle(self, data: bytes) -> list[int]:
-        """Add a bundle's machines and imports to the store, in one transaction; returns the
-        ids of the new imports, in the bundle's order."""
+        """Add a bundle's machines and imports to the store, in one transaction.
+
+        Machines of the bundle replace stored machines of the same id; the bundle's site is
+        taken only when the store has none. Every import of the bundle becomes a new import.
+
+        Parameters
+        ----------
+        data : bytes
+            A bundle made by :meth:`export_bundle`.
+
+        Returns
+        -------
+        list of int
+            Ids of the new imports, in the bundle's order.
+
+        Raises
+        ------
+        InputError
+            When the data is not a bundle, is too large, or any member is damaged. Nothing is
+            stored then.
+        """

@@ -239,15 +239,7 @@ class SQLiteStore(Store):
 
     # --- machines and site ---------------------------------------------------------------------
     def save_machine(self, machine: Machine, demo: bool = False) -> None:
-        """Store a machine, replacing one of the same id (which keeps its place in the list).
-
-        Parameters
-        ----------
-        machine : Machine
-            Stored as its TOML table, so the units the user wrote are kept.
-        demo : bool
-            Whether it belongs to the demonstration data (see :meth:`remove_demo`).
-        """
+        """See :meth:`engine.store.base.Store.save_machine`."""
         text = dump_machines([machine])
         restored = parse_machines_text(text, f"machine '{machine.id}'").machines
         if len(restored) != 1 or restored[0].id != machine.id:
@@ -270,21 +262,7 @@ class SQLiteStore(Store):
         return MachineFile(site, machines)
 
     def save_site(self, site_spec: Mapping[str, str], demo: bool = False) -> None:
-        """Replace the site by the ``[site]`` keys given as the user wrote them.
-
-        Parameters
-        ----------
-        site_spec : mapping of str to str
-            ``altitude`` or ``pressure``, and ``temperature``, e.g. ``{"pressure": "97 kPa"}``;
-            empty for the reference atmosphere.
-        demo : bool
-            Whether it is the demonstration lab's site (removed by :meth:`remove_demo`).
-
-        Raises
-        ------
-        InputError
-            For unknown keys or values that are not quantities of the right kind.
-        """
+        """See :meth:`engine.store.base.Store.save_site`."""
         spec = {str(key): str(value) for key, value in site_spec.items()}
         site_from_table(spec, "site")  # validates
 
@@ -298,33 +276,7 @@ class SQLiteStore(Store):
     # --- imports -------------------------------------------------------------------------------
     def import_readings(self, frame: pd.DataFrame, name: str, source: str = "",
                         environment: pd.DataFrame | None = None, demo: bool = False) -> int:
-        """Store a frame of readings (and its environment log) as one import, in one transaction.
-
-        Parameters
-        ----------
-        frame : pandas.DataFrame
-            Columns :data:`~engine.columns.READING_COLUMNS` (SI units); other columns are not
-            stored. At least one reading.
-        name : str
-            Name of the import shown to the user; default the source, else "readings".
-        source : str
-            Name of the file the readings came from.
-        environment : pandas.DataFrame, optional
-            Columns :data:`~engine.columns.ENVIRONMENT_COLUMNS`: the humidity log.
-        demo : bool
-            Whether it belongs to the demonstration data.
-
-        Returns
-        -------
-        int
-            Id of the new import.
-
-        Raises
-        ------
-        InputError
-            When a column is missing or a value cannot be stored (naming the reading, its row
-            and the column). Nothing is stored then.
-        """
+        """See :meth:`engine.store.base.Store.import_readings`."""
         name, source = _import_names(name, source)
         where = source or name  # messages name the file the user knows
         prepared = _prepare(frame, READING_COLUMNS, _READING_FLOATS, where)
@@ -338,23 +290,7 @@ class SQLiteStore(Store):
     def readings(self, machines: Iterable[str] | str | None = None,
                  sessions: Iterable[str] | str | None = None,
                  import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
-        """Stored readings, in the order they were imported, filtered if asked.
-
-        Parameters
-        ----------
-        machines, sessions : iterable of str, optional
-            Keep readings of these machine ids / session names; None keeps all.
-        import_ids : iterable of int, optional
-            Keep readings of these imports; None keeps all.
-
-        Returns
-        -------
-        pandas.DataFrame
-            Columns :data:`~engine.columns.READING_COLUMNS` and ``import_id``, with the dtypes
-            the frames had when imported. When imports of differing time dtypes are read
-            together, time is zone-aware UTC if any of them was zone-aware (naive times taken
-            as UTC), else naive, in nanoseconds.
-        """
+        """See :meth:`engine.store.base.Store.readings`."""
         filters = [(MACHINE, _texts(machines)), (SESSION, _texts(sessions)),
                    (IMPORT_ID, _ids(import_ids))]
         return self._read_table("readings", READING_COLUMNS, _READING_FLOATS, filters,
@@ -418,15 +354,7 @@ class SQLiteStore(Store):
         return pd.DataFrame(data, columns=[*columns, IMPORT_ID])
 
     def imports(self) -> pd.DataFrame:
-        """The imports, oldest first.
-
-        Returns
-        -------
-        pandas.DataFrame
-            Columns ``id``, ``name``, ``source``, ``created_at`` (UTC, ISO 8601 text),
-            ``is_demo`` (bool), ``rows`` (number of readings), ``machines`` and ``sessions``
-            (their names, joined by ", "), ``environment_rows``.
-        """
+        """The imports, oldest first (see :meth:`Store.imports`)."""
         columns = ["id", "name", "source", "created_at", "is_demo", "rows", "machines",
                    "sessions", "environment_rows"]
         rows = self._query(f"SELECT {', '.join(columns)} FROM imports ORDER BY id")
@@ -445,13 +373,7 @@ class SQLiteStore(Store):
 
     # --- demonstration data and counts ---------------------------------------------------------
     def remove_demo(self) -> dict[str, int]:
-        """Remove the demonstration machines, imports (with their readings) and site.
-
-        Returns
-        -------
-        dict of str to int
-            How many ``machines``, ``imports`` and ``readings`` were removed.
-        """
+        """See :meth:`engine.store.base.Store.remove_demo`."""
 
         def work(connection: sqlite3.Connection) -> dict[str, int]:
             readings = connection.execute(
@@ -496,25 +418,7 @@ class SQLiteStore(Store):
 
     # --- lab bundle ----------------------------------------------------------------------------
     def export_bundle(self, import_ids: Iterable[int] | int | None = None) -> bytes:
-        """The lab as a bundle: a zip of machines, readings and environment logs.
-
-        Parameters
-        ----------
-        import_ids : iterable of int, optional
-            Imports to include; None includes all. The site and all machines are always
-            included.
-
-        Returns
-        -------
-        bytes
-            A zip with ``manifest.json`` (format ``ceiling-lab-bundle``, version, counts and the
-            imports), ``machines.toml``, ``readings.csv`` and ``environment.csv``.
-
-        Raises
-        ------
-        InputError
-            When an asked import is not in the store.
-        """
+        """See :meth:`engine.store.base.Store.export_bundle`."""
         wanted = _ids(import_ids)
         with self._snapshot():  # the members agree with each other
             imports = self.imports()
@@ -537,27 +441,7 @@ class SQLiteStore(Store):
                             demo_machines, demo_site)
 
     def import_bundle(self, data: bytes) -> list[int]:
-        """Add a bundle's machines and imports to the store, in one transaction.
-
-        Machines of the bundle replace stored machines of the same id; the bundle's site is
-        taken only when the store has none. Every import of the bundle becomes a new import.
-
-        Parameters
-        ----------
-        data : bytes
-            A bundle made by :meth:`export_bundle`.
-
-        Returns
-        -------
-        list of int
-            Ids of the new imports, in the bundle's order.
-
-        Raises
-        ------
-        InputError
-            When the data is not a bundle, is too large, or any member is damaged. Nothing is
-            stored then.
-        """
+        """See :meth:`engine.store.base.Store.import_bundle`."""
         machine_file, demo_machines, demo_site, imports = read_bundle(data)
         texts = {machine.id: dump_machines([machine]) for machine in machine_file.machines}
 
