@@ -204,13 +204,18 @@ def store_signature() -> tuple:
             dump_machines(current.machines()))
 
 
-#: Columns of the derived readings that the Compare, Sessions and Overview pages read (the
-#: derived cache reads only these from disk).
+#: Columns of the derived readings of the whole store that the Overview, Compare and Sessions
+#: pages read (the derived cache reads only these from disk): the findings' and the comparison
+#: charts' columns, and the time.
 DASHBOARD_COLUMNS = (
-    col.ROW, col.MACHINE, col.SESSION, col.TIME, col.ELAPSED_S, col.SPEED_REV_S,
-    col.BELT_SPEED_M_S, col.CURRENT_A, col.RH, col.TEMPERATURE_K, col.VOLTAGE_V, col.NOTE,
-    col.FLAGS, col.CEILING_A, col.EFFICIENCY, col.EFFICIENCY_U, col.CHARGE_PER_REV_C,
+    col.MACHINE, col.SESSION, col.TIME, col.FLAGS, col.SPEED_REV_S, col.BELT_SPEED_M_S,
+    col.CURRENT_A, col.RH, col.EFFICIENCY, col.EFFICIENCY_U, col.CHARGE_PER_REV_C,
     col.RELATIVE_AIR_DENSITY,
+)
+#: Columns of one machine's readings on the Sessions page (timeline, load line, flagged).
+MACHINE_COLUMNS = (
+    *DASHBOARD_COLUMNS, col.ROW, col.ELAPSED_S, col.TEMPERATURE_K, col.VOLTAGE_V, col.NOTE,
+    col.CEILING_A,
 )
 
 _last_signature: list[tuple] = []
@@ -221,6 +226,7 @@ def _forget_older(signature: tuple) -> None:
     if _last_signature and _last_signature[0] != signature:
         derived_readings.clear()
         _group_findings.clear()
+        _machine_readings.clear()
     _last_signature[:] = [signature]
 
 
@@ -249,6 +255,22 @@ def load_derived(columns: tuple[str, ...] | None = None) -> pd.DataFrame:
     signature = store_signature()
     _forget_older(signature)
     return derived_readings(str(default_store_path()), signature, columns)
+
+
+@st.cache_resource(show_spinner="Reading the machine's readings...", max_entries=2)
+def _machine_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
+                      machine_id: str) -> pd.DataFrame:
+    current = store()
+    return DerivedCache(current).read(columns=MACHINE_COLUMNS, machines=[machine_id],
+                                      machine_file=current.machines())
+
+
+def load_machine(machine_id: str) -> pd.DataFrame:
+    """One machine's derived readings with the columns of :data:`MACHINE_COLUMNS`, in stored
+    order (cached until the store changes); do not modify it."""
+    signature = store_signature()
+    _forget_older(signature)
+    return _machine_readings(str(default_store_path()), signature, str(machine_id))
 
 
 @st.cache_resource(show_spinner="Fitting speed and humidity...", max_entries=8)

@@ -18,7 +18,8 @@ if derived.empty:
 machine_ids = sorted(derived[col.MACHINE].unique())
 machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
                           format_func=lambda key: labels.get(key, key))
-of_machine = derived[derived[col.MACHINE] == machine_id]
+# Only this machine's readings, with the columns of its charts and tables, from the cache.
+of_machine = shared.load_machine(machine_id)
 # Sessions in the order they were run (first reading first), so "before" comes before "after".
 first_times = of_machine.groupby(col.SESSION, sort=False)[col.TIME].min()
 first_times.index = first_times.index.astype(str)  # ties in name order, also from categoricals
@@ -81,7 +82,7 @@ else:
     second = right.selectbox("After", sessions, index=len(sessions) - 1, key="sessions-b",
                              format_func=lambda name: name or "(no session)")
     try:
-        comparison = analysis.compare_sessions(derived, machine_id, first, second)
+        comparison = analysis.compare_sessions(of_machine, machine_id, first, second)
         st.success(comparison["verdict"])
         metrics = st.columns(3)
         metrics[0].metric(f"Mean efficiency, {first}", f"{comparison['mean_a'] * 100:.1f} %")
