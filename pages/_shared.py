@@ -230,7 +230,7 @@ def _forget_older(signature: tuple) -> None:
     _last_signature[:] = [signature]
 
 
-# cache_resource, not cache_data: the frame is shared as it is, never pickled and copied on a
+# cache_resource, not cache_data: the frame is shared as it is, never serialised and copied on a
 # rerun. Pages only read it (filters make new frames).
 @st.cache_resource(show_spinner="Reading the derived readings...", max_entries=3)
 def derived_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
