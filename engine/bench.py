@@ -3,6 +3,7 @@
 ::
 
     python -m engine.bench [--rows N] [--machines M] [--json] [--no-scaling] [--keep DIR]
+    python -m engine.bench --dashboard [--rows N] [--imports K] [--json] [--keep DIR]
 
 generates N synthetic readings of M machines of every carrier kind (disc, belt with a roller,
 belt known only by its width and read in m/s, cylinder, custom) with an environment log, then
@@ -24,13 +25,18 @@ measures on the same data, in one run:
 ``peak_rss_mb``
     Peak resident memory of that process [MiB], from the resource usage that ``os.wait4``
     returns for it (``ru_maxrss``, exact on Linux, where it is in KiB). Only that child counts.
+``floor_s``, ``floor_peak_rss_mb``
+    :func:`engine.floor.evaluate_floor` (the same work straight in pandas and numpy: pyarrow
+    reads, ``merge_asof`` within 5 minutes, bare numpy, a pyarrow CSV write) as a separate
+    process, timed and measured like ``evaluate``; the two run in turns, best of two.
 ``summary_s``
     :func:`engine.analysis.findings` for all machines.
 ``import_s``
     :meth:`engine.store.Store.import_readings` of all readings and the log into a new SQLite
     store.
 
-with ``derive_vs_floor`` = derive_s / numpy_floor_s, ``speedup_vs_per_row`` =
+with ``evaluate_vs_floor`` = evaluate_s / floor_s, ``derive_vs_floor`` = derive_s /
+numpy_floor_s, ``speedup_vs_per_row`` =
 per_row_s / derive_s, and ``derive_s`` again at 10^4, 10^5 and 10^6 readings with the growth
 exponent b of cost ~ N^b (least squares of log time on log N). Each in-process time is the
 best of a few runs with the garbage collector off (the machine is shared: the minimum is the
@@ -45,6 +51,8 @@ with the log (one entry a minute over the whole span) fills them. The file has o
 column in rpm, so it cannot carry the linear-only belt's speed in m/s: those readings are
 written with their m/s number under ``speed [rpm]`` and the command line flags them
 ``speed_kind``, as it should. The in-memory frame holds them as linear speeds.
+
+With ``--dashboard`` the dashboard benchmark runs instead (:mod:`engine.dashboard_bench`).
 
 Progress goes to stderr, results to stdout: a table, or with ``--json`` one object with the
 keys of :data:`RESULT_KEYS`. The targets (:data:`TARGETS`) are meant for N = 10^6 and M = 20 on
