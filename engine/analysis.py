@@ -778,6 +778,12 @@ FINDINGS_COLUMNS = (
 )
 """Columns of :func:`findings`, in order."""
 
+#: Columns of the derived readings that :func:`findings` reads (a cache may load only these).
+FINDINGS_INPUT_COLUMNS = (
+    col.MACHINE, col.SESSION, col.FLAGS, col.CURRENT_A, col.SPEED_REV_S, col.BELT_SPEED_M_S,
+    col.EFFICIENCY, col.EFFICIENCY_U, col.RH, col.RELATIVE_AIR_DENSITY,
+)
+
 
 def _check_derived(derived: pd.DataFrame) -> pd.DataFrame:
     derived = _check_readings(derived, "derived readings")
@@ -1092,6 +1098,98 @@ def _logistic_findings(row: dict, notes: list[str], rh: np.ndarray, efficiency: 
     row["efficiency_at_reference_rh_ci"] = (at_reference - half * spread,
                                             at_reference + half * spread)
     row["humidity_model"] = "logistic decline"
+
+
+# --- findings of whole groups ----------------------------------------------------------------
+
+def group_first_rows(derived: pd.DataFrame) -> pd.DataFrame:
+    """Each (machine, session) group of readings and the position of its first reading.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with at least ``machine`` (and ``session``, else all are session "").
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``machine``, ``session`` (missing as "") and ``first`` (0-based position of the
+        group's first reading), one row per group present; see :func:`findings_of_groups`.
+    """
+    machines = derived[col.MACHINE].fillna("") if col.MACHINE in derived else pd.Series(
+        "", index=derived.index)
+    sessions = derived[col.SESSION].fillna("") if col.SESSION in derived else pd.Series(
+        "", index=derived.index)
+    machine_codes, machine_uniques = pd.factorize(machines)
+    session_codes, session_uniques = pd.factorize(sessions)
+    codes = machine_codes.astype(np.int64) * max(len(session_uniques), 1) + session_codes
+    present, first = np.unique(codes, return_index=True)
+    width = max(len(session_uniques), 1)
+    return pd.DataFrame({
+        "machine": [str(machine_uniques[code // width]) for code in present],
+        "session": [str(session_uniques[code % width]) for code in present],
+        "first": first.astype(np.int64),
+    })
+
+
+def findings_of_groups(by_session: pd.DataFrame, first_rows: pd.DataFrame,
+                       machines: Mapping[str, Machine] | MachineFile,
+                       machine_ids: Sequence[str], sessions: Sequence[str]) -> pd.DataFrame:
+    """The findings per session of the readings of some machines and sessions, from the findings
+    of all readings.
+
+    Findings per machine and session use only the readings of their group, so the findings of a
+    selection of whole groups are rows of the findings of all readings. This gives exactly
+    ``findings(derived[machine in machine_ids and session in sessions], machines,
+    by_session=True)`` (same rows, same order, same values) without touching the readings.
+
+    Parameters
+    ----------
+    by_session : pandas.DataFrame
+        ``findings(derived, machines, by_session=True, ...)`` of all the readings.
+    first_rows : pandas.DataFrame
+        ``group_first_rows(derived)`` of the same readings.
+    machines : mapping of str to Machine, or MachineFile
+        The machines given to :func:`findings`.
+    machine_ids, sessions : sequence of str
+        The machines and sessions kept ("" for readings without a session).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns :data:`FINDINGS_COLUMNS`; machines in machines-file order, then ids not in the
+        file in order of their first reading among those kept; sessions in order of their
+        first reading among those kept.
+    """
+    machine_map = _as_mapping(machines)
+    kept = first_rows[first_rows["machine"].isin([str(key) for key in machine_ids])
+                      & first_rows["session"].isin([str(name) for name in sessions])]
+    if kept.empty:
+        return by_session.iloc[0:0].reset_index(drop=True)
+    machine_first = kept.groupby("machine")["first"].min()
+    session_first = kept.groupby("session")["first"].min()
+    file_order = {machine_id: index for index, machine_id in enumerate(machine_map)}
+    machine_key = {machine_id: (file_order.get(machine_id, len(file_order)),
+                                int(machine_first[machine_id]) if machine_id not in file_order
+                                else 0)
+                   for machine_id in machine_first.index}
+    order = sorted(zip(kept["machine"], kept["session"], strict=True),
+                   key=lambda pair: (machine_key[pair[0]], int(session_first[pair[1]])))
+    sessions_of = by_session["session"].fillna("").astype(str)
+    position = {(str(machine_id), session): index for index, (machine_id, session)
+                in enumerate(zip(by_session["machine"].astype(str), sessions_of, strict=True))}
+    chosen = by_session.iloc[[position[pair] for pair in order]]
+    # Rebuilt from its rows as findings builds its frame, so that each column's dtype is the
+    # one the findings of these readings alone would have (a text column that holds only
+    # missing values there is object with None, not text with NaN).
+    records = chosen.astype(object).to_dict("records")
+    texts = [name for name in chosen.columns if pd.api.types.is_string_dtype(chosen[name].dtype)
+             and not chosen[name].dtype == object]
+    for record in records:
+        for name in texts:
+            if record[name] is not None and record[name] != record[name]:
+                record[name] = None
+    return pd.DataFrame(records, columns=list(FINDINGS_COLUMNS))
 
 
 # --- compare_sessions ------------------------------------------------------------------------

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import html
 import math
+import weakref
 from collections.abc import Iterable, Mapping, Sequence
 
 import numpy as np
@@ -48,6 +49,10 @@ FLAGGED_COLOUR = "#8C8C8C"
 WEBGL_THRESHOLD = 20_000
 #: Most readings one trace draws; more are thinned to evenly spaced ones.
 MAX_DRAWN_POINTS = 25_000
+#: Most readings a whole chart is given by :func:`chart_sample` (all machines together).
+MAX_CHART_POINTS = 40_000
+#: Most readings of a session's charts (each reading carries several traces and its time).
+MAX_SESSION_CHART_POINTS = 6_000
 #: What an empty chart says.
 NO_READINGS = "No readings to show"
 #: Reference relative humidity of the humidity fit [%], unless told otherwise.
@@ -213,6 +218,63 @@ def _scatter(points: int, **trace: object) -> go.Scatter | go.Scattergl:
     return go.Scatter(**trace)
 
 
+def chart_sample(derived: pd.DataFrame, max_points: int = MAX_CHART_POINTS,
+                 rows: np.ndarray | None = None) -> pd.DataFrame:
+    """At most about ``max_points`` readings to draw, spread evenly over each machine's readings.
+
+    A chart built from millions of readings is slow to build and heavy to send: the scatter
+    charts are drawn from this sample, while findings, fits and intervals come from all the
+    readings. Each machine's clean readings get an equal share (a machine with fewer keeps all
+    of them), evenly spaced in their order so that a session's course keeps its shape; flagged
+    readings get a quarter of the budget the same way.
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with ``machine`` (and ``flags``).
+    max_points : int
+        Budget of readings [-]; the result may exceed it by at most one reading per machine.
+    rows : numpy.ndarray of bool, optional
+        Readings to sample from (e.g. those a filter keeps); None: all. The filtered frame is
+        never copied whole.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``derived`` itself when all of it is asked for and within the budget, else a subset
+        of its rows in their order (a copy, and a small one).
+    """
+    if rows is not None and bool(rows.all()):
+        rows = None
+    if rows is None and len(derived) <= max_points:
+        return derived
+    if rows is not None and np.count_nonzero(rows) <= max_points:
+        return derived.iloc[np.flatnonzero(rows)]
+    flagged = _flagged(derived)
+    if col.MACHINE in derived:
+        machine_codes, uniques = pd.factorize(derived[col.MACHINE], use_na_sentinel=False)
+    else:
+        machine_codes, uniques = np.zeros(len(derived), dtype=np.intp), [""]
+    clean_share = max(1, (max_points - max_points // 4) // max(len(uniques), 1))
+    kept = []
+    # One stable sort groups the rows of each machine, in their order.
+    codes = np.where(flagged, -1, machine_codes)
+    if rows is not None:
+        codes = np.where(rows, codes, len(uniques))  # left out: a group of their own, not drawn
+    if len(uniques) < np.iinfo(np.int16).max:
+        codes = codes.astype(np.int16)  # numpy sorts small integers stably by radix: O(N)
+    order = np.argsort(codes, kind="stable")
+    bounds = np.searchsorted(codes[order], np.arange(-1, len(uniques) + 1))
+    for number in range(len(uniques) + 1):  # the flagged first, then machine by machine
+        rows = order[bounds[number]:bounds[number + 1]]
+        share = max_points // 4 if number == 0 else clean_share
+        if rows.size > share:
+            rows = rows[np.linspace(0, rows.size - 1, share).round().astype(np.int64)]
+        kept.append(rows)
+    positions = np.sort(np.concatenate(kept))
+    return derived.iloc[positions]
+
+
 def _empty_figure(title: str = "", message: str = NO_READINGS) -> go.Figure:
     figure = go.Figure()
     figure.add_annotation(text=message, x=0.5, y=0.5, xref="paper", yref="paper",
@@ -321,11 +383,21 @@ def _ceiling_at_density(machine: Machine, speed_rev_s, relative_density: float):
     return np.asarray(result.ceiling_current_a, dtype=float)
 
 
+# The findings table last grouped by machine (charts ask once per machine, four charts a run).
+_grouped_findings: list = [None, {}]
+
+
 def _findings_rows(findings: pd.DataFrame | None, machine_id: str) -> list[dict[str, object]]:
     if findings is None or len(findings) == 0 or "machine" not in findings:
         return []
-    machine = findings["machine"].astype(object).where(findings["machine"].notna(), "")
-    return findings[machine.astype(str) == machine_id].to_dict("records")
+    held = _grouped_findings[0]() if _grouped_findings[0] is not None else None
+    if held is not findings:
+        machine = findings["machine"].astype(object).where(findings["machine"].notna(), "")
+        grouped: dict[str, list[dict[str, object]]] = {}
+        for key, row in zip(machine.astype(str), findings.to_dict("records"), strict=True):
+            grouped.setdefault(key, []).append(row)
+        _grouped_findings[:] = [weakref.ref(findings), grouped]
+    return [dict(row) for row in _grouped_findings[1].get(machine_id, [])]
 
 
 def _session_of(row: Mapping[str, object]) -> str:
@@ -337,7 +409,12 @@ def _session_rows(frame: pd.DataFrame, session: str) -> np.ndarray:
     """Rows of ``frame`` in ``session``; all rows when no session is asked for."""
     if not session or col.SESSION not in frame:
         return np.ones(len(frame), dtype=bool)
-    sessions = frame[col.SESSION].astype(object).where(frame[col.SESSION].notna(), "")
+    column = frame[col.SESSION]
+    if isinstance(column.dtype, pd.CategoricalDtype) or (
+            pd.api.types.is_string_dtype(column.dtype) and column.dtype != object):
+        # text or categorical: compared without a Python string per reading
+        return (column == session).to_numpy(dtype=bool, na_value=False)
+    sessions = column.astype(object).where(column.notna(), "")
     return (sessions.astype(str) == session).to_numpy(dtype=bool)
 
 

@@ -28,6 +28,7 @@ from engine.machines import (
     site_from_table,
 )
 from engine.store import Store, default_store_path, open_store
+from engine.store.cache import DerivedCache
 
 # A page opened by a direct link as the first request after the server starts is run by
 # Streamlit's older folder-based navigation (it sees the pages/ folder before app.py has called
@@ -345,24 +346,116 @@ def site_form(current_store: Store, site) -> None:
 
 
 def store_signature() -> tuple:
-    """Changes whenever the store's content changes; keys the cached loaders."""
+    """Changes whenever the store's content changes; keys the cached loaders.
+
+    The imports (id, time stored, readings) and the machines file: cheap to read, also with
+    millions of readings (no count over the readings table).
+    """
     current = store()
     imports = current.imports()
-    return (tuple(sorted(current.counts().items())), tuple(imports["id"].tolist()),
+    return (tuple(zip(imports["id"].tolist(), imports["created_at"].tolist(),
+                      imports["rows"].tolist(), strict=True)),
             dump_machines(current.machines()))
 
 
-@st.cache_data(show_spinner="Computing ceilings and efficiencies...", max_entries=4)
-def derived_readings(path: str, signature: tuple) -> pd.DataFrame:  # noqa: ARG001 - cache key
-    """All stored readings with their derived columns (cached until the store changes)."""
+#: Columns of the derived readings of the whole store that the Overview, Compare and Sessions
+#: pages read (the derived cache reads only these from disk): the findings' and the comparison
+#: charts' columns, and the time.
+DASHBOARD_COLUMNS = (
+    col.MACHINE, col.SESSION, col.TIME, col.FLAGS, col.SPEED_REV_S, col.BELT_SPEED_M_S,
+    col.CURRENT_A, col.RH, col.EFFICIENCY, col.EFFICIENCY_U, col.CHARGE_PER_REV_C,
+    col.RELATIVE_AIR_DENSITY,
+)
+#: Columns of one machine's readings on the Sessions page (timeline, load line, flagged).
+MACHINE_COLUMNS = (
+    *DASHBOARD_COLUMNS, col.ROW, col.ELAPSED_S, col.TEMPERATURE_K, col.VOLTAGE_V, col.NOTE,
+    col.CEILING_A,
+)
+
+_last_signature: list[tuple] = []
+
+
+def _forget_older(signature: tuple) -> None:
+    """Drop the cached frames of an older state of the store, so that they free memory."""
+    if _last_signature and _last_signature[0] != signature:
+        derived_readings.clear()
+        _group_findings.clear()
+        _machine_readings.clear()
+    _last_signature[:] = [signature]
+
+
+# cache_resource, not cache_data: the frame is shared as it is, never serialised and copied on a
+# rerun. Pages only read it (filters make new frames).
+@st.cache_resource(show_spinner="Reading the derived readings...", max_entries=3)
+def derived_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
+                     columns: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """Stored readings with their derived columns, from the derived cache beside the store.
+
+    Only ``columns`` are read (None: all). The cache derives each import once and keeps it
+    until a machine or the site changes.
+    """
     current = store()
-    machine_file = current.machines()
-    return analysis.derive(current.readings(), machine_file.by_id(), machine_file.site)
+    return DerivedCache(current).read(columns=columns, machine_file=current.machines())
 
 
-def load_derived() -> pd.DataFrame:
-    """Derived readings of the whole store, from the cache when nothing changed."""
-    return derived_readings(str(lab_path()), store_signature())
+def load_derived(columns: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """Derived readings of the whole store (cached until the store changes); do not modify it.
+
+    Parameters
+    ----------
+    columns : tuple of str, optional
+        Columns to read; None reads every column (the Report page's tables).
+    """
+    signature = store_signature()
+    _forget_older(signature)
+    return derived_readings(str(lab_path()), signature, columns)
+
+
+@st.cache_resource(show_spinner="Reading the machine's readings...", max_entries=2)
+def _machine_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
+                      machine_id: str) -> pd.DataFrame:
+    current = store()
+    return DerivedCache(current).read(columns=MACHINE_COLUMNS, machines=[machine_id],
+                                      machine_file=current.machines())
+
+
+def load_machine(machine_id: str) -> pd.DataFrame:
+    """One machine's derived readings with the columns of :data:`MACHINE_COLUMNS`, in stored
+    order (cached until the store changes); do not modify it."""
+    signature = store_signature()
+    _forget_older(signature)
+    return _machine_readings(str(lab_path()), signature, str(machine_id))
+
+
+@st.cache_resource(show_spinner="Fitting speed and humidity...", max_entries=8)
+def _group_findings(path: str, signature: tuple,
+                    reference_rh: float) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Findings per machine and session of all readings, and each group's first reading."""
+    derived = derived_readings(path, signature, DASHBOARD_COLUMNS)
+    machine_file = store().machines()
+    return (analysis.findings(derived, machine_file.by_id(), by_session=True,
+                              reference_rh=reference_rh),
+            analysis.group_first_rows(derived))
+
+
+def findings_of(shown: pd.DataFrame, machine_ids, sessions, whole_groups: bool,
+                reference_rh: float = 0.45) -> pd.DataFrame:
+    """Findings per machine and session of the readings shown.
+
+    When the filters keep whole machine-session groups (``whole_groups``), they are taken from
+    the cached findings of all readings (:func:`engine.analysis.findings_of_groups`, the same
+    values); otherwise computed from ``shown``.
+    """
+    machine_file = store().machines()
+    if not whole_groups:
+        return analysis.findings(shown, machine_file.by_id(), by_session=True,
+                                 reference_rh=reference_rh)
+    signature = store_signature()
+    _forget_older(signature)
+    by_session, first_rows = _group_findings(str(lab_path()), signature,
+                                             float(reference_rh))
+    return analysis.findings_of_groups(by_session, first_rows, machine_file.by_id(),
+                                       list(machine_ids), list(sessions))
 
 
 _MARKDOWN_MARKS = re.compile(r"([\\`*_{}\[\]()#+\-.!|<>~$:])")
@@ -399,16 +492,21 @@ def show_flash() -> None:
 
 
 @st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=16)
-def _findings(path: str, signature: tuple, by_session: bool,  # noqa: ARG001 - cache keys
+def _findings(path: str, signature: tuple, by_session: bool,
               reference_rh: float) -> pd.DataFrame:
     machine_file = store().machines()
-    return analysis.findings(derived_readings(path, signature), machine_file.by_id(),
-                             by_session=by_session, reference_rh=reference_rh)
+    return analysis.findings(derived_readings(path, signature, DASHBOARD_COLUMNS),
+                             machine_file.by_id(), by_session=by_session,
+                             reference_rh=reference_rh)
 
 
 def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.DataFrame:
-    """Findings of the whole store (cached until the store changes)."""
-    return _findings(str(lab_path()), store_signature(), by_session, reference_rh)
+    """Findings of the whole store (cached until the store changes; a small frame)."""
+    signature = store_signature()
+    _forget_older(signature)
+    if by_session:  # the same table the Compare page starts from: computed once for both
+        return _group_findings(str(lab_path()), signature, float(reference_rh))[0]
+    return _findings(str(lab_path()), signature, by_session, reference_rh)
 
 
 DASH = "—"
@@ -489,8 +587,8 @@ def show_findings(findings: pd.DataFrame, machines, reference_rh: float = 0.45,
 
 def undescribed_warning(derived: pd.DataFrame, machines) -> None:
     """Readings of machine ids the lab does not describe: a warning with the fix, not findings."""
-    ids = derived[col.MACHINE].astype("str")
-    unknown = ids[~ids.isin(list(machines))].value_counts()
+    counts = derived[col.MACHINE].value_counts()  # one count per id (cheap on categories)
+    unknown = counts[~counts.index.astype("str").isin(list(machines)) & (counts > 0)]
     if unknown.empty:
         return
     listed = ", ".join(f"'{plain(machine_id)}' ({count:,} reading{'s' if count != 1 else ''})"

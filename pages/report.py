@@ -20,7 +20,7 @@ if derived.empty:
 else:
     labels = {machine.id: machine.label for machine in machine_file.machines}
     shared.undescribed_warning(derived, machines)
-    present = set(derived[col.MACHINE])
+    present = set(derived[col.MACHINE].unique())
     machine_ids = [machine_id for machine_id in machines if machine_id in present]
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids, key="report-machines",
                             format_func=lambda key: labels.get(key, key))

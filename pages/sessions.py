@@ -9,7 +9,7 @@ from engine.errors import InputError
 from pages import _shared as shared
 
 st.title("Sessions")
-derived = shared.load_derived()
+derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
 machine_file = shared.store().machines()
 labels = {machine.id: machine.label for machine in machine_file.machines}
 if derived.empty:
@@ -18,21 +18,26 @@ if derived.empty:
 
 shared.undescribed_warning(derived, labels)
 machine_ids = [machine_id for machine_id in labels
-               if machine_id in set(derived[col.MACHINE])]
+               if machine_id in set(derived[col.MACHINE].unique())]
 if not machine_ids:
     st.info("No readings of a described machine yet: add the machines on the Machines page.")
     st.stop()
 machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
                           format_func=lambda key: labels.get(key, key))
-of_machine = derived[derived[col.MACHINE] == machine_id]
+# Only this machine's readings, with the columns of its charts and tables, from the cache.
+of_machine = shared.load_machine(machine_id)
 # Sessions in the order they were run (first reading first), so "before" comes before "after".
 first_times = of_machine.groupby(col.SESSION, sort=False)[col.TIME].min()
+first_times.index = first_times.index.astype(str)  # ties in name order, also from categoricals
 sessions = list(first_times.sort_index().sort_values(kind="stable", na_position="last").index)
 session = st.selectbox("Session", sessions, key="sessions-session",
                        format_func=lambda name: name or "(no session)")
 one_session = of_machine[of_machine[col.SESSION] == session]
 flagged = one_session[one_session[col.FLAGS] != ""]
-st.plotly_chart(figures.session_timeline(one_session, machine_id, shared.colours_for(machine_file),
+# Charts from a bounded sample of the session; the fits use all its readings.
+drawn = figures.chart_sample(one_session, figures.MAX_SESSION_CHART_POINTS)
+st.plotly_chart(figures.session_timeline(drawn, machine_id,
+                                         shared.colours_for(machine_file),
                                          label=labels.get(machine_id), session=session),
                 key="sessions-timeline")
 st.caption(f"{len(one_session):,} readings, {len(flagged):,} flagged (marked with x).")
@@ -49,7 +54,7 @@ if not flagged.empty:
 if one_session[col.VOLTAGE_V].notna().any():
     st.subheader("Load line: current against terminal voltage")
     load_line = analysis.load_line_findings(one_session).iloc[0].to_dict()
-    st.plotly_chart(figures.load_line_chart(one_session, machine_id, load_line,
+    st.plotly_chart(figures.load_line_chart(drawn, machine_id, load_line,
                                             machine_file.by_id().get(machine_id), session,
                                             shared.colours_for(machine_file),
                                             label=labels.get(machine_id)),
@@ -88,9 +93,9 @@ else:
     second = right.selectbox("After", sessions, index=len(sessions) - 1, key="sessions-b",
                              format_func=lambda name: name or "(no session)")
     try:
-        comparison = analysis.compare_sessions(derived, machine_id, first, second)
+        comparison = analysis.compare_sessions(of_machine, machine_id, first, second)
         st.success(shared.plain(comparison["verdict"]))
-        st.plotly_chart(figures.sessions_compared(derived, machine_id, first, second,
+        st.plotly_chart(figures.sessions_compared(of_machine, machine_id, first, second,
                                                   comparison, labels.get(machine_id)),
                         key="sessions-compared")
         metrics = st.columns(3)

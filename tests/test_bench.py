@@ -10,6 +10,7 @@ import math
 import tempfile
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from engine import analysis, bench
@@ -21,8 +22,9 @@ FLOOR_COLUMNS = (
     col.SURFACE_DENSITY_C_M2, col.RELATIVE_AIR_DENSITY, col.ABS_HUMIDITY_KG_M3,
     col.DEW_POINT_K, col.SPEED_REV_S,
 )
-TIMES = ("derive_s", "numpy_floor_s", "per_row_s", "evaluate_s", "summary_s", "import_s",
-         "peak_rss_mb", "derive_vs_floor", "speedup_vs_per_row")
+TIMES = ("derive_s", "numpy_floor_s", "per_row_s", "evaluate_s", "floor_s", "summary_s",
+         "import_s", "peak_rss_mb", "floor_peak_rss_mb", "derive_vs_floor", "evaluate_vs_floor",
+         "speedup_vs_per_row")
 
 
 @pytest.fixture(scope="module")
@@ -192,4 +194,39 @@ def test_targets_are_judged_by_their_bound():
     assert bench.targets_met(result) == {
         "derive_vs_floor": True, "speedup_vs_per_row": False, "evaluate_s": False,
         "peak_rss_mb": True, "summary_s": True, "import_s": False, "growth_exponent": None,
+        "evaluate_vs_floor": None,
     }
+
+
+def test_dashboard_run_at_small_size_prints_every_figure_and_finds_the_findings_exact(capsys):
+    from engine import dashboard_bench
+
+    assert bench.main(["--dashboard", "--rows", "6000", "--machines", "5", "--imports", "3",
+                       "--json"]) == 0
+    result = json.loads(capsys.readouterr().out)
+    assert list(result) == list(dashboard_bench.DASHBOARD_KEYS)
+    assert result["rows"] == 6000
+    assert result["findings_exact"] is True
+    assert result["findings_max_relative_difference"] == 0.0
+    for key in dashboard_bench.DASHBOARD_TARGETS:
+        assert isinstance(result[key], (int, float)) and result[key] >= 0, key
+    # the Compare page's four charts, twice, and the Sessions page's timeline at least
+    assert len(result["chart_bytes"]) >= 9
+    table = dashboard_bench.format_dashboard_table(result)
+    for key in dashboard_bench.DASHBOARD_KEYS:
+        if key not in ("targets", "met", "chart_bytes"):
+            assert key in table, key
+
+
+def test_findings_that_differ_are_seen_by_the_exactness_check():
+    from engine import dashboard_bench
+
+    frame = pd.DataFrame({"machine": ["a"], "slope": [1.0], "interval": [(0.5, 1.5)]})
+    same = frame.copy()
+    assert dashboard_bench.frames_difference(same, frame) == 0.0
+    nudged = frame.copy()
+    nudged.loc[0, "slope"] = 1.0 + 1e-8
+    assert dashboard_bench.frames_difference(nudged, frame) > dashboard_bench.EXACT_RELATIVE
+    widened = frame.copy()
+    widened.at[0, "interval"] = (0.5, 1.6)
+    assert dashboard_bench.frames_difference(widened, frame) > dashboard_bench.EXACT_RELATIVE

@@ -19,7 +19,8 @@ import pandas as pd
 import platformdirs
 import pytest
 
-import engine.store as store_module
+import engine.store.bundle as bundle_module
+import engine.store.sqlite as store_module
 from engine.columns import (
     CURRENT_A,
     ELAPSED_S,
@@ -642,7 +643,7 @@ def test_data_that_is_not_a_zip_is_refused(store):
 
 def test_a_zip_bomb_is_refused_before_anything_is_unpacked(store, machine_file, monkeypatch):
     members = bundle_members(store, machine_file)
-    monkeypatch.setattr(store_module, "MAX_BUNDLE_BYTES", 2_000_000)
+    monkeypatch.setattr(bundle_module, "MAX_BUNDLE_BYTES", 2_000_000)
     data = zip_of({**members, "environment.csv": b"0" * 3_000_000})  # packs to a few kB
     assert len(data) < 200_000
 

@@ -73,7 +73,7 @@ def say(text: str) -> None:
 
 
 def main(argv: list[str]) -> int:
-    import engine.store as store_module
+    import engine.store.sqlite as store_module
 
     path, mode = Path(argv[0]), argv[1]
     if mode == "import":

@@ -1,0 +1,269 @@
+"""The store's contract: what every back end offers, and where the lab's store is.
+
+:class:`Store` is the interface the pages, the command line and the derived cache use. The
+embedded back end (:class:`engine.store.sqlite.SQLiteStore`, one SQLite file) implements it; a
+shared server for a classroom can sit beside it behind the same methods. Frames go in and out in
+the columns of :mod:`engine.columns` (SI units) with ``import_id``, whatever the back end.
+"""
+
+from __future__ import annotations
+
+import abc
+import os
+from collections.abc import Iterable, Mapping
+from pathlib import Path
+
+import pandas as pd
+import platformdirs
+
+from engine.machines import Machine, MachineFile
+
+#: Environment variable that names the store file.
+STORE_ENV_VAR = "CEILING_LAB_DB"
+#: File name of the store in the user's data folder.
+STORE_FILE_NAME = "ceiling-lab.sqlite3"
+#: Column of the frames returned by :meth:`Store.readings` and :meth:`Store.environment`.
+IMPORT_ID = "import_id"
+
+
+def default_store_path() -> Path:
+    """Path of the store: ``$CEILING_LAB_DB``, else a file in the user's data folder.
+
+    Returns
+    -------
+    Path
+        ``CEILING_LAB_DB`` when it is set and not empty; otherwise
+        ``platformdirs.user_data_dir("ceiling-lab") / "ceiling-lab.sqlite3"``. The folder is
+        created by :func:`engine.store.open_store`, not here.
+    """
+    named = os.environ.get(STORE_ENV_VAR, "").strip()
+    if named:
+        return Path(named).expanduser()
+    return Path(platformdirs.user_data_dir("ceiling-lab")) / STORE_FILE_NAME
+
+
+class Store(abc.ABC):
+    """An open store of a lab: machines, the site, imports of readings and environment logs.
+
+    Every write is one transaction: all of it is stored or none. A store can be used from
+    several threads. Use :func:`engine.store.open_store` to get one; close it with
+    :meth:`close` or use it in a ``with`` block.
+    """
+
+    # --- life cycle ----------------------------------------------------------------------------
+    @property
+    @abc.abstractmethod
+    def path(self) -> Path:
+        """Where the store is (its file, for the embedded store)."""
+
+    @property
+    @abc.abstractmethod
+    def schema_version(self) -> int:
+        """Schema version of the open store."""
+
+    @property
+    def cache_folder(self) -> Path:
+        """Folder of the derived cache (:mod:`engine.store.cache`) of this store."""
+        return Path(platformdirs.user_cache_dir("ceiling-lab")) / "derived"
+
+    @abc.abstractmethod
+    def close(self) -> None:
+        """Close the store; it cannot be used afterwards."""
+
+    def __enter__(self) -> Store:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    # --- machines and site ---------------------------------------------------------------------
+    @abc.abstractmethod
+    def save_machine(self, machine: Machine, demo: bool = False) -> None:
+        """Store a machine, replacing one of the same id (which keeps its place in the list).
+
+        Parameters
+        ----------
+        machine : Machine
+            Stored as its TOML table, so the units the user wrote are kept.
+        demo : bool
+            Whether it belongs to the demonstration data (see :meth:`remove_demo`).
+        """
+
+    @abc.abstractmethod
+    def delete_machine(self, machine_id: str) -> bool:
+        """Remove a machine; its readings stay. Returns whether it was in the store."""
+
+    @abc.abstractmethod
+    def machines(self) -> MachineFile:
+        """The site and the machines, in the order they were first saved."""
+
+    @abc.abstractmethod
+    def save_site(self, site_spec: Mapping[str, str], demo: bool = False) -> None:
+        """Replace the site by the ``[site]`` keys given as the user wrote them.
+
+        Parameters
+        ----------
+        site_spec : mapping of str to str
+            ``altitude`` or ``pressure``, and ``temperature``, e.g. ``{"pressure": "97 kPa"}``;
+            empty for the reference atmosphere.
+        demo : bool
+            Whether it is the demonstration lab's site (removed by :meth:`remove_demo`).
+
+        Raises
+        ------
+        InputError
+            For unknown keys or values that are not quantities of the right kind.
+        """
+
+    # --- imports -------------------------------------------------------------------------------
+    @abc.abstractmethod
+    def import_readings(self, frame: pd.DataFrame, name: str, source: str = "",
+                        environment: pd.DataFrame | None = None, demo: bool = False) -> int:
+        """Store a frame of readings (and its environment log) as one import, in one transaction.
+
+        Parameters
+        ----------
+        frame : pandas.DataFrame
+            Columns :data:`~engine.columns.READING_COLUMNS` (SI units); other columns are not
+            stored. At least one reading.
+        name : str
+            Name of the import shown to the user; default the source, else "readings".
+        source : str
+            Name of the file the readings came from.
+        environment : pandas.DataFrame, optional
+            Columns :data:`~engine.columns.ENVIRONMENT_COLUMNS`: the humidity log.
+        demo : bool
+            Whether it belongs to the demonstration data.
+
+        Returns
+        -------
+        int
+            Id of the new import.
+
+        Raises
+        ------
+        InputError
+            When a column is missing or a value cannot be stored (naming the reading, its row
+            and the column). Nothing is stored then.
+        """
+
+    @abc.abstractmethod
+    def readings(self, machines: Iterable[str] | str | None = None,
+                 sessions: Iterable[str] | str | None = None,
+                 import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
+        """Stored readings, in the order they were imported, filtered if asked.
+
+        Parameters
+        ----------
+        machines, sessions : iterable of str, optional
+            Keep readings of these machine ids / session names; None keeps all.
+        import_ids : iterable of int, optional
+            Keep readings of these imports; None keeps all.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns :data:`~engine.columns.READING_COLUMNS` and ``import_id``, with the dtypes
+            the frames had when imported. When imports of differing time dtypes are read
+            together, time is zone-aware UTC if any of them was zone-aware (naive times taken
+            as UTC), else naive, in nanoseconds.
+        """
+
+    @abc.abstractmethod
+    def environment(self, import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
+        """Stored environment logs, columns ENVIRONMENT_COLUMNS and ``import_id``."""
+
+    @abc.abstractmethod
+    def imports(self) -> pd.DataFrame:
+        """The imports, oldest first.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns ``id``, ``name``, ``source``, ``created_at`` (UTC, ISO 8601 text),
+            ``is_demo`` (bool), ``rows`` (number of readings), ``machines`` and ``sessions``
+            (their names, joined by ", "), ``environment_rows``.
+        """
+
+    @abc.abstractmethod
+    def delete_import(self, import_id: int) -> bool:
+        """Remove an import with its readings and environment log. Returns whether it existed."""
+
+    # --- demonstration data, settings and counts -----------------------------------------------
+    @abc.abstractmethod
+    def remove_demo(self) -> dict[str, int]:
+        """Remove the demonstration machines, imports (with their readings) and site.
+
+        Returns
+        -------
+        dict of str to int
+            How many ``machines``, ``imports`` and ``readings`` were removed.
+        """
+
+    @abc.abstractmethod
+    def setting(self, key: str, default: str | None = None) -> str | None:
+        """A stored setting, or ``default`` when it was never saved."""
+
+    @abc.abstractmethod
+    def save_setting(self, key: str, value: str) -> None:
+        """Store a setting (text), replacing any earlier value of the same key."""
+
+    @abc.abstractmethod
+    def has_demo(self) -> bool:
+        """Whether any demonstration machine or import is stored (a demo site alone is not)."""
+
+    @abc.abstractmethod
+    def counts(self) -> dict[str, int]:
+        """Numbers of machines, imports, sessions (distinct session names) and readings."""
+
+    @abc.abstractmethod
+    def is_empty(self) -> bool:
+        """Whether the store holds no machine and no import (the site does not count)."""
+
+    # --- lab bundle ----------------------------------------------------------------------------
+    @abc.abstractmethod
+    def export_bundle(self, import_ids: Iterable[int] | int | None = None) -> bytes:
+        """The lab as a bundle (:mod:`engine.store.bundle`): a zip of machines, readings and
+        environment logs.
+
+        Parameters
+        ----------
+        import_ids : iterable of int, optional
+            Imports to include; None includes all. The site and all machines are always
+            included.
+
+        Returns
+        -------
+        bytes
+            A zip with ``manifest.json`` (format ``ceiling-lab-bundle``, version, counts and the
+            imports), ``machines.toml``, ``readings.csv`` and ``environment.csv``.
+
+        Raises
+        ------
+        InputError
+            When an asked import is not in the store.
+        """
+
+    @abc.abstractmethod
+    def import_bundle(self, data: bytes) -> list[int]:
+        """Add a bundle's machines and imports to the store, in one transaction.
+
+        Machines of the bundle replace stored machines of the same id; the bundle's site is
+        taken only when the store has none. Every import of the bundle becomes a new import.
+
+        Parameters
+        ----------
+        data : bytes
+            A bundle made by :meth:`export_bundle`.
+
+        Returns
+        -------
+        list of int
+            Ids of the new imports, in the bundle's order.
+
+        Raises
+        ------
+        InputError
+            When the data is not a bundle, is too large, or any member is damaged. Nothing is
+            stored then.
+        """

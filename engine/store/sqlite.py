@@ -1,0 +1,498 @@
+"""The embedded store of record: machines, the site, imports of readings and environment logs in
+one SQLite file.
+
+:func:`open_store` opens (and creates, or migrates) the file::
+
+    with open_store() as store:
+        store.save_machine(machine)
+        import_id = store.import_readings(frame, "Tuesday session", source="meter.csv")
+        frame = store.readings(machines=["gallery-twin"])
+
+The schema and its migrations are in :mod:`engine.store.schema`; the frames' conversions in
+:mod:`engine.store.frames`; the lab bundle in :mod:`engine.store.bundle`.
+
+Every write is one transaction (``BEGIN IMMEDIATE`` ... ``COMMIT``): an import is stored whole
+or not at all, also when the program is killed half-way. A store that another program is
+writing waits (``busy_timeout``) and retries with backoff for at most :data:`LOCK_WAIT_S`.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import sqlite3
+import threading
+import time
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from pathlib import Path
+from typing import TypeVar
+
+import numpy as np
+import pandas as pd
+
+from engine.columns import (
+    ENVIRONMENT_COLUMNS,
+    MACHINE,
+    READING_COLUMNS,
+    ROW,
+    SESSION,
+    TIME,
+)
+from engine.errors import InputError
+from engine.machines import (
+    Machine,
+    MachineFile,
+    dump_machines,
+    parse_machines_text,
+    site_from_table,
+)
+from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store, default_store_path
+from engine.store.bundle import read_bundle, write_bundle
+from engine.store.frames import (
+    _TEXT_DTYPE,
+    _ids,
+    _import_names,
+    _now_text,
+    _prepare,
+    _Prepared,
+    _restore_time,
+    _texts,
+)
+from engine.store.schema import (
+    _ENVIRONMENT_FLOATS,
+    _ENVIRONMENT_SQL,
+    _NAT_NS,
+    _READING_FLOATS,
+    _READING_SQL,
+    _TIME_NS,
+    migrate,
+    schema_version,
+)
+
+#: How long SQLite itself waits for another writer before it reports "database is locked" [s].
+BUSY_TIMEOUT_S = 30.0
+#: Longest total wait, retries included, before a write gives up on a locked store [s].
+LOCK_WAIT_S = 120.0
+#: Readings written per ``executemany`` call.
+CHUNK_ROWS = 20_000
+_MAX_LISTED_VALUES = 500  # longer filter lists go to SQLite as one JSON array
+_FETCH_ROWS = 10_000  # rows converted at a time when reading
+
+_Result = TypeVar("_Result")
+
+
+def open_store(path: str | os.PathLike[str] | None = None) -> Store:
+    """Open the store file, creating it and its folders, and migrating an older one.
+
+    Parameters
+    ----------
+    path : str or path-like, optional
+        The SQLite file; default :func:`default_store_path`.
+
+    Returns
+    -------
+    Store
+        Open; close it with :meth:`Store.close` or use it in a ``with`` block.
+
+    Raises
+    ------
+    InputError
+        When the folder cannot be created, the file is not a Ceiling Lab store, or it was
+        written by a newer version.
+    """
+    path = Path(path) if path is not None else default_store_path()
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as error:
+        raise InputError(f"{path.parent}: the store's folder cannot be created "
+                         f"({error.strerror or error}); set {STORE_ENV_VAR} to a writable "
+                         "file") from None
+    try:
+        connection = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                                     check_same_thread=False)
+    except sqlite3.Error as error:
+        raise InputError(f"{path}: the store cannot be opened ({error})") from None
+    try:
+        _retry(lambda: _configure(connection), path)
+        _retry(lambda: migrate(connection, path), path)
+    except sqlite3.DatabaseError as error:
+        connection.close()
+        raise InputError(f"{path}: cannot be opened as a Ceiling Lab store ({error}); choose "
+                         f"another file with {STORE_ENV_VAR}") from None
+    except BaseException:
+        connection.close()
+        raise
+    return SQLiteStore(connection, path)
+
+def _configure(connection: sqlite3.Connection) -> None:
+    connection.execute(f"PRAGMA busy_timeout = {int(BUSY_TIMEOUT_S * 1000)}")
+    connection.execute("PRAGMA foreign_keys = ON")
+    connection.execute("PRAGMA journal_mode = WAL")
+    # In WAL mode NORMAL loses no committed transaction when a program dies, only on a power cut.
+    connection.execute("PRAGMA synchronous = NORMAL")
+    connection.execute("PRAGMA cache_size = -65536")  # 64 MiB: big imports touch many pages
+
+
+def _is_locked(error: sqlite3.OperationalError) -> bool:
+    text = str(error).lower()
+    return "locked" in text or "busy" in text
+
+
+def _retry(work: Callable[[], _Result], path: Path) -> _Result:
+    """Run ``work``, again with backoff while the store is locked, for at most LOCK_WAIT_S."""
+    deadline = time.monotonic() + LOCK_WAIT_S
+    delay = 0.05
+    while True:
+        try:
+            return work()
+        except sqlite3.OperationalError as error:
+            if not _is_locked(error):
+                raise
+            if time.monotonic() + delay > deadline:
+                raise InputError(f"{path}: the store is busy: another program has been writing "
+                                 f"to it for more than {LOCK_WAIT_S:.0f} s; close the other "
+                                 "Ceiling Lab window or command and try again") from None
+            time.sleep(delay)
+            delay = min(2 * delay, 2.0)
+
+
+def _insert_chunk(connection: sqlite3.Connection, statement: str,
+                  rows: Iterable[tuple[object, ...]]) -> None:
+    """Write one chunk of rows (a seam for tests that make a chunk fail)."""
+    connection.executemany(statement, rows)
+
+
+
+class SQLiteStore(Store):
+    """The embedded store of record: one SQLite file, a connection and the operations on it.
+
+    Use :func:`open_store` to make one. A store can be used from several threads (each call
+    holds a lock); several programs may open the same file at once.
+    """
+
+    def __init__(self, connection: sqlite3.Connection, path: Path) -> None:
+        self._connection = connection
+        self._path = path
+        self._lock = threading.RLock()
+
+    # --- life cycle ----------------------------------------------------------------------------
+    @property
+    def path(self) -> Path:
+        """The store's file."""
+        return self._path
+
+    @property
+    def schema_version(self) -> int:
+        """Schema version of the open store (equal to :data:`SCHEMA_VERSION`)."""
+        with self._lock:
+            return schema_version(self._connection)
+
+    def close(self) -> None:
+        """Close the connection; the store cannot be used afterwards."""
+        with self._lock:
+            self._connection.close()
+
+    @property
+    def cache_folder(self) -> Path:
+        """The derived cache's folder, beside the file: ``<file>.derived``."""
+        return self._path.with_name(self._path.name + ".derived")
+
+    def __repr__(self) -> str:
+        return f"Store({str(self._path)!r})"
+
+    def _write(self, work: Callable[[sqlite3.Connection], _Result]) -> _Result:
+        """Run ``work`` in one write transaction; all of it is stored or none."""
+        connection = self._connection
+
+        def attempt() -> _Result:
+            connection.execute("BEGIN IMMEDIATE")
+            try:
+                result = work(connection)
+                connection.execute("COMMIT")
+            except BaseException:
+                if connection.in_transaction:
+                    connection.execute("ROLLBACK")
+                raise
+            return result
+
+        with self._lock:
+            return _retry(attempt, self._path)
+
+    @contextlib.contextmanager
+    def _snapshot(self) -> Iterator[None]:
+        """Hold one read transaction, so that several queries see the same state of the file."""
+        with self._lock:
+            if self._connection.in_transaction:
+                yield
+                return
+            self._connection.execute("BEGIN")
+            try:
+                yield
+            finally:
+                self._connection.execute("COMMIT")
+
+    def _query(self, statement: str, parameters: Sequence[object] = ()) -> list[tuple]:
+        with self._lock:
+            return _retry(lambda: self._connection.execute(statement, parameters).fetchall(),
+                          self._path)
+
+    # --- machines and site ---------------------------------------------------------------------
+    def save_machine(self, machine: Machine, demo: bool = False) -> None:
+        """See :meth:`engine.store.base.Store.save_machine`."""
+        text = dump_machines([machine])
+        restored = parse_machines_text(text, f"machine '{machine.id}'").machines
+        if len(restored) != 1 or restored[0].id != machine.id:
+            raise InputError(f"machine '{machine.id}': it cannot be written as a machines file")
+        self._write(lambda connection: _save_machine(connection, machine, text, demo))
+
+    def delete_machine(self, machine_id: str) -> bool:
+        """Remove a machine; its readings stay. Returns whether it was in the store."""
+        return self._write(lambda connection: connection.execute(
+            "DELETE FROM machines WHERE id = ?", (machine_id,)).rowcount > 0)
+
+    def machines(self) -> MachineFile:
+        """The site and the machines, in the order they were first saved."""
+        with self._snapshot():
+            site_rows = self._query("SELECT key, value FROM site ORDER BY rowid")
+            machine_rows = self._query("SELECT id, toml FROM machines ORDER BY rowid")
+        site = site_from_table(dict(site_rows), f"{self._path}, site")
+        machines = tuple(parse_machines_text(text, f"{self._path}, machine '{machine_id}'")
+                         .machines[0] for machine_id, text in machine_rows)
+        return MachineFile(site, machines)
+
+    def save_site(self, site_spec: Mapping[str, str], demo: bool = False) -> None:
+        """See :meth:`engine.store.base.Store.save_site`."""
+        spec = {str(key): str(value) for key, value in site_spec.items()}
+        site_from_table(spec, "site")  # validates
+
+        def work(connection: sqlite3.Connection) -> None:
+            connection.execute("DELETE FROM site")
+            connection.executemany("INSERT INTO site (key, value, is_demo) VALUES (?, ?, ?)",
+                                   [(key, value, int(bool(demo))) for key, value in spec.items()])
+
+        self._write(work)
+
+    # --- imports -------------------------------------------------------------------------------
+    def import_readings(self, frame: pd.DataFrame, name: str, source: str = "",
+                        environment: pd.DataFrame | None = None, demo: bool = False) -> int:
+        """See :meth:`engine.store.base.Store.import_readings`."""
+        name, source = _import_names(name, source)
+        where = source or name  # messages name the file the user knows
+        prepared = _prepare(frame, READING_COLUMNS, _READING_FLOATS, where)
+        prepared_environment = (None if environment is None else
+                                _prepare(environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
+                                         f"{where}, environment log"))
+        meta = {"name": name, "source": source, "created_at": _now_text(), "is_demo": demo}
+        return self._write(lambda connection: _insert_import(connection, prepared,
+                                                             prepared_environment, meta))
+
+    def readings(self, machines: Iterable[str] | str | None = None,
+                 sessions: Iterable[str] | str | None = None,
+                 import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
+        """See :meth:`engine.store.base.Store.readings`."""
+        filters = [(MACHINE, _texts(machines)), (SESSION, _texts(sessions)),
+                   (IMPORT_ID, _ids(import_ids))]
+        return self._read_table("readings", READING_COLUMNS, _READING_FLOATS, filters,
+                                "time_dtype")
+
+    def environment(self, import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
+        """Stored environment logs, columns ENVIRONMENT_COLUMNS and ``import_id``."""
+        return self._read_table("environment", ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
+                                [(IMPORT_ID, _ids(import_ids))], "environment_time_dtype")
+
+    def _read_table(self, table: str, columns: Sequence[str], floats: Sequence[str],
+                    filters: Sequence[tuple[str, list | None]],
+                    dtype_column: str) -> pd.DataFrame:
+        sql_columns = [_TIME_NS if column == TIME else column for column in columns]
+        selected = [f"IFNULL({_TIME_NS}, ?)" if column == _TIME_NS else f'"{column}"'
+                    for column in sql_columns]
+        parameters: list[object] = [int(_NAT_NS)]
+        conditions = []
+        for column, values in filters:
+            if values is None:
+                continue
+            if len(values) > _MAX_LISTED_VALUES:  # past SQLite's limit on parameters
+                conditions.append(f'"{column}" IN (SELECT value FROM json_each(?))')
+                parameters.append(json.dumps(values))
+            else:
+                conditions.append(f'"{column}" IN ({", ".join("?" * len(values))})')
+                parameters.extend(values)
+        statement = f"SELECT import_id, {', '.join(selected)} FROM {table}"
+        if conditions:
+            statement += " WHERE " + " AND ".join(conditions)
+        statement += " ORDER BY rowid"
+        kinds = ["id"] + ["int" if column in (ROW, TIME) else "float" if column in floats
+                          else "text" for column in columns]
+        pieces: list[list[np.ndarray]] = []
+        with self._snapshot():
+            cursor = _retry(lambda: self._connection.execute(statement, parameters), self._path)
+            # Block by block: a 2-D object array (built in C), then one conversion per column,
+            # so that only one block of Python objects is alive at a time.
+            while batch := cursor.fetchmany(_FETCH_ROWS):
+                block = np.array(batch, dtype=object)
+                pieces.append([block[:, number].copy() if kind == "text" else
+                               block[:, number].astype(np.float64 if kind == "float"
+                                                       else np.int64)
+                               for number, kind in enumerate(kinds)])
+            dtypes = dict(self._query(f"SELECT id, {dtype_column} FROM imports"))
+        empty = {"id": np.int64, "int": np.int64, "float": np.float64, "text": object}
+        gathered = [np.concatenate([piece[number] for piece in pieces]) if pieces
+                    else np.empty(0, dtype=empty[kind]) for number, kind in enumerate(kinds)]
+        import_ids = gathered[0]
+        data: dict[str, object] = {}
+        for column, values in zip(columns, gathered[1:], strict=True):
+            if column == TIME:
+                present = {dtypes.get(import_id, "datetime64[ns]")
+                           for import_id in np.unique(import_ids).tolist()}
+                data[column] = _restore_time(values, present)
+            elif column in floats or column == ROW:
+                data[column] = values  # NULL (None) became NaN in the float conversion
+            else:
+                data[column] = pd.Series(values, dtype=object).astype(_TEXT_DTYPE)
+        data[IMPORT_ID] = import_ids
+        return pd.DataFrame(data, columns=[*columns, IMPORT_ID])
+
+    def imports(self) -> pd.DataFrame:
+        """The imports, oldest first (see :meth:`Store.imports`)."""
+        columns = ["id", "name", "source", "created_at", "is_demo", "rows", "machines",
+                   "sessions", "environment_rows"]
+        rows = self._query(f"SELECT {', '.join(columns)} FROM imports ORDER BY id")
+        frame = pd.DataFrame(rows, columns=columns)
+        for column in ("id", "rows", "environment_rows"):
+            frame[column] = frame[column].astype(np.int64)
+        frame["is_demo"] = frame["is_demo"].astype(bool)
+        for column in ("name", "source", "created_at", "machines", "sessions"):
+            frame[column] = frame[column].astype(object).astype(_TEXT_DTYPE)
+        return frame
+
+    def delete_import(self, import_id: int) -> bool:
+        """Remove an import with its readings and environment log. Returns whether it existed."""
+        return self._write(lambda connection: connection.execute(
+            "DELETE FROM imports WHERE id = ?", (int(import_id),)).rowcount > 0)
+
+    # --- demonstration data and counts ---------------------------------------------------------
+    def remove_demo(self) -> dict[str, int]:
+        """See :meth:`engine.store.base.Store.remove_demo`."""
+
+        def work(connection: sqlite3.Connection) -> dict[str, int]:
+            readings = connection.execute(
+                "SELECT COUNT(*) FROM readings WHERE import_id IN "
+                "(SELECT id FROM imports WHERE is_demo = 1)").fetchone()[0]
+            imports = connection.execute("DELETE FROM imports WHERE is_demo = 1").rowcount
+            machines = connection.execute("DELETE FROM machines WHERE is_demo = 1").rowcount
+            connection.execute("DELETE FROM site WHERE is_demo = 1")
+            return {"machines": machines, "imports": imports, "readings": readings}
+
+        return self._write(work)
+
+    def setting(self, key: str, default: str | None = None) -> str | None:
+        """A stored setting, or ``default`` when it was never saved."""
+        rows = self._query("SELECT value FROM settings WHERE key = ?", (key,))
+        return rows[0][0] if rows else default
+
+    def save_setting(self, key: str, value: str) -> None:
+        """Store a setting (text), replacing any earlier value of the same key."""
+        self._write(lambda connection: connection.execute(
+            "INSERT INTO settings (key, value) VALUES (?, ?) "
+            "ON CONFLICT(key) DO UPDATE SET value = excluded.value", (key, value)))
+
+    def has_demo(self) -> bool:
+        """Whether any demonstration machine or import is stored (a demo site alone is not)."""
+        return bool(self._query(
+            "SELECT EXISTS (SELECT 1 FROM machines WHERE is_demo = 1) "
+            "OR EXISTS (SELECT 1 FROM imports WHERE is_demo = 1)")[0][0])
+
+    def counts(self) -> dict[str, int]:
+        """Numbers of machines, imports, sessions (distinct session names) and readings."""
+        machines, imports, sessions, readings = self._query(
+            "SELECT (SELECT COUNT(*) FROM machines), (SELECT COUNT(*) FROM imports), "
+            "(SELECT COUNT(DISTINCT session) FROM readings), (SELECT COUNT(*) FROM readings)")[0]
+        return {"machines": machines, "imports": imports, "sessions": sessions,
+                "readings": readings}
+
+    def is_empty(self) -> bool:
+        """Whether the store holds no machine and no import (the site does not count)."""
+        return not self._query("SELECT EXISTS (SELECT 1 FROM machines) "
+                               "OR EXISTS (SELECT 1 FROM imports)")[0][0]
+
+    # --- lab bundle ----------------------------------------------------------------------------
+    def export_bundle(self, import_ids: Iterable[int] | int | None = None) -> bytes:
+        """See :meth:`engine.store.base.Store.export_bundle`."""
+        wanted = _ids(import_ids)
+        with self._snapshot():  # the members agree with each other
+            imports = self.imports()
+            machine_file = self.machines()
+            demo_machines = [row[0] for row in self._query(
+                "SELECT id FROM machines WHERE is_demo = 1 ORDER BY rowid")]
+            demo_site = bool(self._query(
+                "SELECT EXISTS (SELECT 1 FROM site WHERE is_demo = 1)")[0][0])
+            dtypes = {row[0]: row[1:] for row in self._query(
+                "SELECT id, time_dtype, environment_time_dtype FROM imports")}
+            if wanted is not None:
+                missing = sorted(set(wanted) - set(imports["id"].tolist()))
+                if missing:
+                    raise InputError(f"import {missing[0]} is not in the store; choose "
+                                     "from the imports listed")
+                imports = imports[imports["id"].isin(wanted)]
+            readings = self.readings(import_ids=imports["id"].tolist())
+            environment = self.environment(import_ids=imports["id"].tolist())
+        return write_bundle(machine_file, imports, dtypes, readings, environment,
+                            demo_machines, demo_site)
+
+    def import_bundle(self, data: bytes) -> list[int]:
+        """See :meth:`engine.store.base.Store.import_bundle`."""
+        machine_file, demo_machines, demo_site, imports = read_bundle(data)
+        texts = {machine.id: dump_machines([machine]) for machine in machine_file.machines}
+
+        def work(connection: sqlite3.Connection) -> list[int]:
+            for machine in machine_file.machines:
+                _save_machine(connection, machine, texts[machine.id],
+                              machine.id in demo_machines)
+            has_site = connection.execute("SELECT EXISTS (SELECT 1 FROM site)").fetchone()[0]
+            if machine_file.site.spec and not has_site:
+                connection.executemany(
+                    "INSERT INTO site (key, value, is_demo) VALUES (?, ?, ?)",
+                    [(key, value, int(demo_site)) for key, value in machine_file.site.spec.items()])
+            return [_insert_import(connection, prepared, prepared_environment, meta)
+                    for meta, prepared, prepared_environment in imports]
+
+        return self._write(work)
+
+
+# --- writing ---
+# --- writing -------------------------------------------------------------------------------------
+def _save_machine(connection: sqlite3.Connection, machine: Machine, text: str,
+                  demo: bool) -> None:
+    connection.execute(
+        "INSERT INTO machines (id, label, carrier, toml, is_demo, updated_at) "
+        "VALUES (?, ?, ?, ?, ?, ?) ON CONFLICT (id) DO UPDATE SET label = excluded.label, "
+        "carrier = excluded.carrier, toml = excluded.toml, is_demo = excluded.is_demo, "
+        "updated_at = excluded.updated_at",
+        (machine.id, machine.label, machine.kind, text, int(bool(demo)), _now_text()))
+
+
+
+def _insert_import(connection: sqlite3.Connection, readings: _Prepared,
+                   environment: _Prepared | None, meta: Mapping[str, object]) -> int:
+    """Insert one import inside the caller's transaction; returns its id."""
+    cursor = connection.execute(
+        "INSERT INTO imports (name, source, created_at, is_demo, rows, machines, sessions, "
+        "time_dtype, environment_rows, environment_time_dtype) "
+        "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (meta["name"], meta["source"], meta["created_at"], int(bool(meta["is_demo"])),
+         readings.rows, readings.machines, readings.sessions, readings.time_dtype,
+         0 if environment is None else environment.rows,
+         "datetime64[ns]" if environment is None else environment.time_dtype))
+    import_id = int(cursor.lastrowid)
+    for table, sql_columns, prepared in (("readings", _READING_SQL, readings),
+                                         ("environment", _ENVIRONMENT_SQL, environment)):
+        if prepared is None:
+            continue
+        names = ", ".join(f'"{column}"' for column in ("import_id", *sql_columns))
+        marks = ", ".join("?" * (len(sql_columns) + 1))
+        statement = f"INSERT INTO {table} ({names}) VALUES ({marks})"
+        for rows in prepared.chunks(import_id, CHUNK_ROWS):
+            _insert_chunk(connection, statement, rows)
+    return import_id
+
