@@ -70,13 +70,13 @@ with st.expander("How the file is read", expanded=False):
             units[field] = unit.strip()
 
 if upload is None:
-    shared.stored_imports(store)
     st.download_button("Download an example readings file", EXAMPLE.read_bytes(),
                        file_name="example-readings.csv", mime="text/csv",
                        key="readings-example")
     st.info("Choose a readings file to see how it is read. Accepted spellings of the columns: "
             + "; ".join(f"{field}: {', '.join(names[:3])}" for field, names in ALIASES.items()
                         if field in ("speed", "current", "rh", "temperature")))
+    shared.stored_imports(store)
     st.stop()
 
 # A new file starts its own import: its name and session follow the file, not the last one.
