@@ -10,6 +10,7 @@ from engine.ceiling import ceiling_figures
 from engine.errors import InputError
 from engine.figures import arrangement_diagram, carrier_drawing
 from engine.machines import dump_machines, machine_from_table, parse_machines_text
+from engine.report import describe_machine
 from engine.units import parse_speed
 from pages import _shared as shared
 
@@ -163,6 +164,7 @@ with edit_tab:
         if current is None and not sizes_given:
             raise _NoSizesError
         machine = machine_from_table({"id": machine_id.strip() or "new-machine", **table})
+        st.info(shared.plain(f"In words: {describe_machine(machine)}."))
         drawing_column, figures_column = st.columns([3, 2])
         drawing_column.plotly_chart(carrier_drawing(machine), key=f"machines-drawing-{chosen}")
         if machine.kind == "disc":
