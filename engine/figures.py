@@ -784,6 +784,7 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
                         ticktext=[text if crowded else _wrap(text) for text in tick_text],
                         title_text="", tickangle=-30 if crowded else 0, automargin=True,
                         tickfont={"size": 11 if crowded else 12})
+    figure.update_yaxes(rangemode="tozero")  # a charge per revolution is never negative
     if crowded:  # the slanted names need the room under the axis that the legend takes
         figure.update_layout(height=560, legend={"y": -0.42})
     _add_notes(figure, _not_drawn_notes(machines, no_speed, no_description))
@@ -1408,7 +1409,7 @@ def sessions_compared(derived: pd.DataFrame | None, machine_id: str, session_a: 
             & np.isfinite(speed_rpm) & np.isfinite(efficiency_pct)
         if not rows.any():
             continue
-        shown = f"{name}: {_escape(session)}"
+        shown = _escape(session) or name
         figure.add_trace(_scatter(
             int(rows.sum()), x=speed_rpm[rows], y=efficiency_pct[rows], mode="markers",
             name=shown, legendgroup=name, marker={"color": colour, "size": 6, "opacity": 0.55},

@@ -1043,7 +1043,8 @@ table { border-collapse: collapse; margin: 0.5em 0 1em; font-size: 0.82em; width
         table-layout: fixed; }
 th, td { border: 1px solid #bbb; padding: 0.25em 0.4em; text-align: left; vertical-align: top;
          overflow-wrap: anywhere; hyphens: auto; }
-th { background: #eef2f5; font-weight: 600; }
+/* headings wrap between words, never inside one ("Readin gs") */
+th { background: #eef2f5; font-weight: 600; overflow-wrap: normal; hyphens: manual; }
 .formula { font-size: 1.15em; margin-left: 1.5em; }
 .meta, .detail, figcaption, .table-notes { color: #555; font-size: 0.9em; }
 .verdict-item { font-size: 1.05em; margin-bottom: 0.2em; }

@@ -593,9 +593,11 @@ def undescribed_warning(derived: pd.DataFrame, machines) -> None:
         return
     listed = ", ".join(f"'{plain(machine_id)}' ({count:,} reading{'s' if count != 1 else ''})"
                        for machine_id, count in unknown.head(10).items())
+    planted = (" In the demonstration lab this is a typing slip planted on purpose, to show "
+               "the check." if active_lab() == "demo" else "")
     st.warning(f"Readings name machines the lab does not describe: {listed}. They have no "
                "ceiling and are not in the findings. Add a machine with that id on the Machines "
-               "page, or correct the id in the file and import it again.")
+               "page, or correct the id in the file and import it again." + planted)
 
 
 def machine_labels() -> dict[str, str]:
@@ -652,18 +654,19 @@ def stored_imports(current_store: Store) -> None:
               args=("readings-remove", None))
 
 
-def measured_efficiency(machine_id: str) -> tuple[float, float, float] | None:
-    """A machine's measured efficiency from its readings: observed units over its units, with
-    the 95 % interval of the observed units; None without a speed fit."""
-    findings = load_findings()
+def measured_efficiency(machine_id: str) -> tuple[float, float, float, str] | None:
+    """A machine's measured efficiency in its latest session with a speed fit: observed units
+    over its units, with the 95 % interval of the observed units, and the session's name; None
+    without a speed fit. (A restored machine is planned by what it does now.)"""
+    findings = load_findings(by_session=True)
     rows = findings[findings["machine"] == machine_id]
-    if rows.empty:
-        return None
-    row = rows.iloc[0]
-    observed, units, interval = row["observed_units"], row["units"], row["observed_units_ci"]
-    if not (isinstance(interval, tuple) and math.isfinite(observed) and units > 0):
-        return None
-    return observed / units, interval[0] / units, interval[1] / units
+    for _index, row in rows.iloc[::-1].iterrows():  # sessions in the order they were run
+        observed, units, interval = (row["observed_units"], row["units"],
+                                     row["observed_units_ci"])
+        if isinstance(interval, tuple) and math.isfinite(observed) and units > 0:
+            return (observed / units, interval[0] / units, interval[1] / units,
+                    str(row["session"] or ""))
+    return None
 
 
 @st.cache_resource(max_entries=2, show_spinner=False)

@@ -71,8 +71,8 @@ with site_tab:
 NEW = "(a new machine)"
 
 
-class _NoSizesError(Exception):
-    """A new machine without any size typed yet: nothing to draw or save."""
+class _NothingToDoError(Exception):
+    """Nothing more to draw or save here (a new machine without sizes, a file imported)."""
 
 
 def _delete(machine) -> None:
@@ -162,7 +162,7 @@ with edit_tab:
                 "units and its ceiling.")
     try:
         if current is None and not sizes_given:
-            raise _NoSizesError
+            raise _NothingToDoError
         machine = machine_from_table({"id": machine_id.strip() or "new-machine", **table})
         st.info(shared.plain(f"In words: {describe_machine(machine)}."))
         drawing_column, figures_column = st.columns([3, 2])
@@ -216,7 +216,7 @@ with edit_tab:
                        on_click=_delete, args=(current,))
             no.button("Keep it", key=f"machines-delete-no-{chosen}",
                       on_click=st.session_state.pop, args=("machines-confirm-delete", None))
-    except _NoSizesError:
+    except _NothingToDoError:
         pass
     except InputError as error:
         shared.show_error(error)
@@ -236,16 +236,33 @@ with file_tab:
             imported = parse_machines_text(text, upload.name)
             st.write(shared.plain(f"{len(imported.machines)} machines in {upload.name}: "
                                   + ", ".join(machine.id for machine in imported.machines)))
+            fingerprint = (upload.name, upload.size)
+            if st.session_state.get("machines-imported") == fingerprint:
+                st.success(shared.plain(f"{upload.name} is imported. Choose another file to "
+                                        "import more."))
+                raise _NothingToDoError  # nothing more to do with this file
             replaced = [machine.id for machine in imported.machines if machine.id in existing]
             if replaced:
                 st.warning("These will replace the stored machines of the same id: "
-                           + ", ".join(replaced))
+                           + shared.plain(", ".join(replaced)))
+            take_air = False
+            if imported.site.spec and dict(imported.site.spec) != dict(site.spec):
+                theirs = ", ".join(f"{key} {value}" for key, value in imported.site.spec.items())
+                ours = (", ".join(f"{key} {value}" for key, value in site.spec.items())
+                        or "the reference atmosphere")
+                take_air = st.checkbox(
+                    shared.plain(f"Also take the file's air ({theirs}) instead of the lab's "
+                                 f"({ours}); every ceiling and efficiency of the lab follows it"),
+                    False, key="machines-import-air")
             if st.button("Import these machines", key="machines-import"):
                 for machine in imported.machines:
                     store.save_machine(machine)
-                if imported.site.spec:
+                if take_air or (imported.site.spec and not site.spec):
                     store.save_site(dict(imported.site.spec))
+                st.session_state["machines-imported"] = fingerprint
                 shared.flash(f"Imported {len(imported.machines)} machines.")
                 st.rerun()
+        except _NothingToDoError:
+            pass
         except InputError as error:
             shared.show_error(error)

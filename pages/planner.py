@@ -106,7 +106,7 @@ if machine is not None:
         measured = shared.measured_efficiency(machine.id) if choice == "a stored machine" \
             else None
         if measured is not None:
-            efficiency, low, high = measured
+            efficiency, low, high, session = measured
             speeds_needed = speed_for_current(machine, target_a, top_kind, pressure_pa,
                                               temperature_k, [efficiency, high, low])
 
@@ -116,7 +116,8 @@ if machine is not None:
 
             target_column.info(
                 f"At its measured efficiency ({efficiency * 100:.1f} %, 95 % interval "
-                f"{low * 100:.1f} to {high * 100:.1f} %, from its readings) it needs about "
+                f"{low * 100:.1f} to {high * 100:.1f} %, from its latest session "
+                f"'{shared.plain(session)}') it needs about "
                 f"**{shown_speed(speeds_needed[0])}** ({shown_speed(speeds_needed[1])} to "
                 f"{shown_speed(speeds_needed[2])}).")
         elif choice == "a stored machine":
@@ -126,6 +127,8 @@ if machine is not None:
         at_speed, at_kind = parse_speed(at_text, "at the speed")
         what, size = size_for_current(machine, target_a, at_speed, at_kind, pressure_pa,
                                       temperature_k)
+        if what == "outer radius":  # the form asks for diameters
+            what, size = "outer diameter", 2 * size
         shown = f"{size:.4g} m²" if what == "area per revolution" else f"{size * 100:.4g} cm"
         speed_column.success(f"{what.capitalize()} needed at {shared.plain(at_text)}: **{shown}** "
                              f"({SIZES_HELD[machine.kind]}).")

@@ -42,7 +42,8 @@ with st.expander("How the file is read", expanded=False):
     first, second, third = st.columns(3)
     separator = first.selectbox("Separator", ["detect", ",", ";", "tab"], key="readings-sep")
     decimal = second.selectbox("Decimal mark", ["detect", ".", ","], key="readings-decimal")
-    encoding = third.selectbox("Encoding", ["detect", "utf-8", "latin-1"], key="readings-enc")
+    encoding = third.selectbox("Encoding", ["detect", "utf-8", "utf-16", "cp1252", "latin-1"],
+                               key="readings-enc")
     dates = first.selectbox("Dates such as 03/04/2026", ["detect", "day first", "month first"],
                             key="readings-dates")
     default_machine = second.selectbox("Machine, for a file without a machine column",

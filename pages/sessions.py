@@ -103,14 +103,14 @@ else:
                           f"{comparison['mean_a'] * 100:.1f} %")
         metrics[1].metric(f"Mean efficiency, {shared.plain(second)}",
                           f"{comparison['mean_b'] * 100:.1f} %",
-                          delta=f"{comparison['raw_difference'] * 100:+.1f} percentage points",
+                          delta=f"{comparison['raw_difference'] * 100:+.1f} points",
                           help="Mean over the clean readings; the findings tables show medians.")
         adjusted = comparison.get("adjusted_difference")
         if adjusted is not None and adjusted == adjusted:
             low, high = comparison["adjusted_difference_ci"]
             terms = comparison["adjusted_for"]
-            metrics[2].metric("At the same " + " and ".join(terms) if terms else "Adjusted",
-                              f"{adjusted * 100:+.1f} percentage points",
+            metrics[2].metric(("At the same " + " and ".join(terms) if terms else "Adjusted")
+                              + ", percentage points", f"{adjusted * 100:+.1f}",
                               help=f"95 % CI {low * 100:+.1f} to {high * 100:+.1f} percentage "
                               "points; "
                               f"adjusted for {', '.join(comparison['adjusted_for']) or 'nothing'}")

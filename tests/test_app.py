@@ -456,7 +456,7 @@ def test_planner_answers_the_inverse_questions(demo_lab):
     app.selectbox(key="planner-kind").set_value("disc").run()
     app.text_input(key="planner-target").input("5 uA").run()
     answers = " ".join(shown(item) for item in app.success)
-    assert "rpm" in answers and "Outer radius needed" in answers
+    assert "rpm" in answers and "Outer diameter needed" in answers
     assert len(charts(app)) == 1
 
 

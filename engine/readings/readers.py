@@ -101,8 +101,9 @@ def read_readings(
     else:
         raise InputError(
             f"{source_name}: has no machine column; add one (header 'machine'), or say which "
-            "machine the readings belong to: --machine ID on the command line, 'Machine' on "
-            "the Readings page")
+            "machine the readings belong to: --machine ID on the command line, or on the "
+            "Readings page 'Machine, for a file without a machine column' under 'How the file "
+            "is read'")
     session = _text(table.data.get("session"), length, fill=options.session or "")
     note = _text(table.data.get("note"), length, strip=False)
 
