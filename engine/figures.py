@@ -121,6 +121,12 @@ def _escape(text: object) -> str:
     return html.escape(str(text), quote=False)
 
 
+def _escape_array(values: np.ndarray) -> np.ndarray:
+    """Text for hovers, escaped once per distinct value."""
+    codes, uniques = pd.factorize(pd.Series(values).astype("str"))
+    return np.array([_escape(text) for text in uniques] + [""], dtype=object)[codes]
+
+
 def _escape_series(series: pd.Series) -> pd.Series:
     text = series.astype(object).where(series.notna(), "").astype(str)
     return (text.str.replace("&", "&amp;", regex=False)
@@ -172,6 +178,22 @@ def _chart_basics(derived: pd.DataFrame, colours: Mapping[str, str] | None
     """What every comparison chart starts from: machine ids, colours, flags, machine column."""
     ids = _machine_ids(derived)
     return ids, _colours_for(colours, ids), _flagged(derived), _machine_column(derived)
+
+
+#: Marker shapes that tell one machine's sessions apart (its colour tells the machine).
+_SESSION_SYMBOLS = ("circle", "square", "diamond", "triangle-up", "triangle-down", "cross",
+                    "star", "hexagon")
+
+
+def _session_marks(frame: pd.DataFrame, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """A marker shape per reading, one shape per session of the rows (in order of first
+    appearance), and the session names for the hover."""
+    if col.SESSION not in frame:
+        return np.full(int(rows.sum()), _SESSION_SYMBOLS[0]), np.full(int(rows.sum()), "")
+    names = frame[col.SESSION].to_numpy()[rows]
+    codes, uniques = pd.factorize(pd.Series(names).fillna("").astype("str"))
+    shapes = np.array(_SESSION_SYMBOLS, dtype=object)[codes % len(_SESSION_SYMBOLS)]
+    return shapes, np.asarray(uniques, dtype=object)[codes]
 
 
 def _clean_machines(ids: Sequence[str], machine_column: np.ndarray, flagged: np.ndarray,
@@ -515,10 +537,13 @@ def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None
         if speed_range is None:
             no_speed.append(machine_id)
             continue
+        shapes, session_names = _session_marks(derived, rows)
         figure.add_trace(_scatter(
             int(rows.sum()), x=speed_rpm[rows], y=current_ua[rows], mode="markers", name=label,
-            legendgroup=machine_id, marker={"color": colour, "size": 6, "opacity": 0.75},
-            hovertemplate="Speed %{x:.0f} rpm<br>Current %{y:.3g} µA",
+            legendgroup=machine_id,
+            marker={"color": colour, "size": 6, "opacity": 0.75, "symbol": shapes},
+            customdata=_escape_array(session_names),
+            hovertemplate="Session %{customdata}<br>Speed %{x:.0f} rpm<br>Current %{y:.3g} µA",
         ))
         machine = machines.get(machine_id)
         line_rev_s = np.linspace(*speed_range, _LINE_POINTS)
@@ -602,13 +627,15 @@ def efficiency_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | N
             no_speed.append(machine_id)
             continue
         error = uncertainty_pct[rows]
+        shapes, session_names = _session_marks(derived, rows)
         figure.add_trace(_scatter(
             int(rows.sum()), x=speed_rpm[rows], y=efficiency_pct[rows], mode="markers",
-            name=label, legendgroup=machine_id,
-            marker={"color": colour, "size": 6, "opacity": 0.75},
+            name=label, legendgroup=machine_id, customdata=_escape_array(session_names),
+            marker={"color": colour, "size": 6, "opacity": 0.75, "symbol": shapes},
             error_y={"type": "data", "array": np.nan_to_num(error, nan=0.0),
                      "visible": bool(np.isfinite(error).any()), "thickness": 1, "width": 0},
-            hovertemplate="Speed %{x:.0f} rpm<br>Efficiency %{y:.1f} % ± %{error_y.array:.1f}",
+            hovertemplate="Session %{customdata}<br>Speed %{x:.0f} rpm<br>"
+                          "Efficiency %{y:.1f} % ± %{error_y.array:.1f}",
         ))
         machine = machines.get(machine_id)
         if machine is None:
@@ -828,11 +855,12 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
         if rh_range is None:
             no_humidity.append(label)
             continue
+        shapes, session_names = _session_marks(derived, rows)
         figure.add_trace(_scatter(
             int(rows.sum()), x=rh_pct[rows], y=efficiency_pct[rows], mode="markers",
-            name=label, legendgroup=machine_id,
-            marker={"color": colour, "size": 6, "opacity": 0.75},
-            hovertemplate="RH %{x:.1f} %<br>Efficiency %{y:.1f} %",
+            name=label, legendgroup=machine_id, customdata=_escape_array(session_names),
+            marker={"color": colour, "size": 6, "opacity": 0.75, "symbol": shapes},
+            hovertemplate="Session %{customdata}<br>RH %{x:.1f} %<br>Efficiency %{y:.1f} %",
         ))
         for row in _findings_rows(findings, machine_id):
             at_reference = _number(row.get("efficiency_at_reference_rh"))

@@ -111,7 +111,8 @@ bottom_right.plotly_chart(figures.efficiency_vs_humidity(drawn, **arguments,
 if len(drawn) < shown_count:
     st.caption(f"The charts draw {len(drawn):,} evenly spaced readings so that the browser "
                f"stays quick; the fits and the table use all {shown_count:,}.")
-st.caption(shared.site_words(machine_file.site))
+st.caption("Colour tells the machine; marker shape tells its sessions apart (hover a point "
+           "for its session). " + shared.site_words(machine_file.site))
 flagged = int(((derived[col.FLAGS] != "").to_numpy(dtype=bool) & selected).sum())
 st.subheader("Findings")
 st.caption(f"{shown_count:,} readings shown, {flagged:,} flagged and left out of the fits. "

@@ -601,3 +601,19 @@ def test_load_line_chart_without_voltages_says_so():
     figure = load_line_chart(frame, "m")
     assert "No readings with a terminal voltage" in figure.layout.annotations[0].text
     assert NO_READINGS in load_line_chart(None, "m").layout.annotations[0].text
+
+
+def test_a_machine_s_sessions_get_their_own_marker_shapes():
+    from engine.figures import current_vs_speed
+
+    machines = {"m": machine_from_table({"id": "m", "carrier": "disc", "outer_diameter": "40 cm",
+                                         "inner_diameter": "20 cm"})}
+    frame = pd.DataFrame({col.MACHINE: "m", col.SESSION: ["lesson 1"] * 3 + ["lesson 2"] * 3,
+                          col.SPEED_REV_S: [2.0, 4.0, 6.0] * 2,
+                          col.CURRENT_A: [1e-6, 2e-6, 3e-6, 1.5e-6, 2.5e-6, 3.5e-6],
+                          col.FLAGS: "", col.RELATIVE_AIR_DENSITY: 1.0,
+                          col.EFFICIENCY: 0.3, col.RH: 0.4})
+    figure = current_vs_speed(frame, None, machines)
+    readings = [trace for trace in figure.data if trace.name == "m"][0]
+    assert list(readings.marker.symbol) == ["circle"] * 3 + ["square"] * 3
+    assert list(readings.customdata) == ["lesson 1"] * 3 + ["lesson 2"] * 3
