@@ -13,7 +13,7 @@ st.markdown(
 )
 shared.show_flash()
 store = shared.store()
-counts = store.counts()
+counts = shared.store_counts()  # counted once per state of the store
 columns = st.columns(4)
 columns[0].metric("Machines", counts["machines"])
 columns[1].metric("Imports", counts["imports"])
