@@ -68,7 +68,7 @@ else:
     findings = shared.load_findings(by_session=True)
     machines = store.machines().by_id()
     shared.show_findings(findings, machines, key="overview-findings")
-    shared.undescribed_warning(shared.load_derived(), machines)
+    shared.undescribed_warning(shared.load_derived(shared.DASHBOARD_COLUMNS), machines)
     st.caption("One row per machine and session. Efficiency is the measured current over the "
                "ceiling. Flagged readings are kept but left out of the fits; the Readings and "
                "Sessions pages show them.")
