@@ -424,14 +424,17 @@ def load_derived(columns: tuple[str, ...] | None = None) -> pd.DataFrame:
     return derived_readings(str(lab_path()), signature, columns)
 
 
-def read_selection(machine_ids, sessions) -> pd.DataFrame:
+def read_selection(current: Store, machine_ids, sessions) -> pd.DataFrame:
     """Every derived column of the readings of some machines and sessions, read now from the
-    derived cache and not kept (the Report page's files build from it on the click).
+    derived cache of ``current`` and not kept (the Report page's files build from it on the
+    click).
+
+    The store is given, not looked up: a download's callable runs outside the page's run, where
+    the session (and so the lab the user opened) is not known.
 
     Rows in stored order, as ``load_derived()`` filtered to ``machine_ids`` and ``sessions``
     ("" for readings without a session), with a fresh index 0..n-1.
     """
-    current = store()
     chosen = DerivedCache(current).read(machines=[str(key) for key in machine_ids],
                                         machine_file=current.machines())
     kept = chosen[chosen[col.SESSION].isin([str(name) for name in sessions])]

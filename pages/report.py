@@ -47,20 +47,21 @@ else:
         st.caption("Each file is made when you click its button.")
         columns = st.columns(3)
         # Callables: each file is built on the click from the selection, read then from the
-        # derived cache; the callables hold only the choices, never the readings.
+        # derived cache; the callables hold only the store and the choices, never the readings.
+        # They run outside the page's run, so they are given the open lab's store.
         columns[0].download_button(
             "Results (CSV)", lambda: report.to_csv_bytes(report.output_frame(
-                shared.read_selection(chosen, chosen_sessions))),
+                shared.read_selection(store, chosen, chosen_sessions))),
             file_name="ceiling-lab-results.csv", mime="text/csv", key="report-csv")
         columns[1].download_button(
             "Results and findings (XLSX)",
             lambda: report.to_xlsx_bytes(report.output_frame(
-                shared.read_selection(chosen, chosen_sessions)), findings=findings),
+                shared.read_selection(store, chosen, chosen_sessions)), findings=findings),
             file_name="ceiling-lab-results.xlsx", key="report-xlsx",
             mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet")
         columns[2].download_button(
             "HTML report", lambda: report.html_report(
-                shared.read_selection(chosen, chosen_sessions), findings, chosen_machines,
+                shared.read_selection(store, chosen, chosen_sessions), findings, chosen_machines,
                 title, colours=shared.colours_for(machine_file)).encode("utf-8"),
             file_name=report.report_file_name(title), mime="text/html", key="report-html",
             help="A document to file or print: the verdict first, the machines in words with "

@@ -483,7 +483,7 @@ def test_report_offers_every_download(demo_lab):
     assert "Pick at least one machine" in texts(app)
 
 
-def test_report_counts_the_selection_and_its_files_read_only_it(demo_lab, monkeypatch):
+def test_report_counts_the_selection_and_its_files_read_only_it(demo_lab):
     """The Report page keeps no readings: its count comes from the dashboard's columns and its
     files read the selection from the derived cache on the click. Both must agree with the
     store of record derived at once (engine.analysis.derive, the definition of the derived
@@ -506,8 +506,7 @@ def test_report_counts_the_selection_and_its_files_read_only_it(demo_lab, monkey
                                   machine_file.by_id(), machine_file.site)
         expected = at_once[(at_once[col.MACHINE] == machine)
                            & (at_once[col.SESSION] == session)].reset_index(drop=True)
-        monkeypatch.setattr(shared, "store", lambda: store)
-        got = shared.read_selection([machine], [session]).drop(columns="import_id")
+        got = shared.read_selection(store, [machine], [session]).drop(columns="import_id")
     assert len(expected) > 0
     assert f"{len(expected):,} readings of 1 machines in 1 sessions" in texts(app)
     assert list(got.columns) == list(expected.columns)
