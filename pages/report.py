@@ -44,6 +44,7 @@ else:
         st.write(f"{selected_count:,} readings of {len(chosen)} machines in "
                  f"{len(chosen_sessions)} sessions.")
         chosen_machines = {key: machines[key] for key in chosen if key in machines}
+        colours = shared.colours_for(machine_file)  # in the run: it reads the open lab
         st.caption("Each file is made when you click its button.")
         columns = st.columns(3)
         # Callables: each file is built on the click from the selection, read then from the
@@ -62,7 +63,7 @@ else:
         columns[2].download_button(
             "HTML report", lambda: report.html_report(
                 shared.read_selection(store, chosen, chosen_sessions), findings, chosen_machines,
-                title, colours=shared.colours_for(machine_file)).encode("utf-8"),
+                title, colours=colours).encode("utf-8"),
             file_name=report.report_file_name(title), mime="text/html", key="report-html",
             help="A document to file or print: the verdict first, the machines in words with "
                  "their drawings, the findings, the charts, the method and the references. "
