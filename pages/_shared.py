@@ -358,6 +358,19 @@ def store_signature() -> tuple:
             dump_machines(current.machines()))
 
 
+@st.cache_data(show_spinner=False, max_entries=4)
+def _store_counts(path: str, signature: tuple) -> dict[str, int]:  # noqa: ARG001 - cache key
+    return store().counts()
+
+
+def store_counts() -> dict[str, int]:
+    """The store's counts (machines, imports, sessions, readings), counted once per state of
+    the store: the distinct sessions are a count over every reading, too slow for each run of
+    the Overview page with millions of readings. The signature (imports and machines) decides
+    every count, so a cached count is never stale."""
+    return _store_counts(str(lab_path()), store_signature())
+
+
 #: Columns of the derived readings of the whole store that the Overview, Compare and Sessions
 #: pages read (the derived cache reads only these from disk): the findings' and the comparison
 #: charts' columns, and the time.
@@ -409,6 +422,23 @@ def load_derived(columns: tuple[str, ...] | None = None) -> pd.DataFrame:
     signature = store_signature()
     _forget_older(signature)
     return derived_readings(str(lab_path()), signature, columns)
+
+
+def read_selection(current: Store, machine_ids, sessions) -> pd.DataFrame:
+    """Every derived column of the readings of some machines and sessions, read now from the
+    derived cache of ``current`` and not kept (the Report page's files build from it on the
+    click).
+
+    The store is given, not looked up: a download's callable runs outside the page's run, where
+    the session (and so the lab the user opened) is not known.
+
+    Rows in stored order, as ``load_derived()`` filtered to ``machine_ids`` and ``sessions``
+    ("" for readings without a session), with a fresh index 0..n-1.
+    """
+    chosen = DerivedCache(current).read(machines=[str(key) for key in machine_ids],
+                                        machine_file=current.machines())
+    kept = chosen[chosen[col.SESSION].isin([str(name) for name in sessions])]
+    return kept.reset_index(drop=True)
 
 
 @st.cache_resource(show_spinner="Reading the machine's readings...", max_entries=2)

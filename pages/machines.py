@@ -204,7 +204,7 @@ with edit_tab:
         if current and delete_column.button("Delete machine…", key=f"machines-delete-{chosen}"):
             st.session_state["machines-confirm-delete"] = current.id
         if current and st.session_state.get("machines-confirm-delete") == current.id:
-            derived = shared.load_derived()
+            derived = shared.load_derived(shared.DASHBOARD_COLUMNS)  # shared, no copy
             readings = int((derived[col.MACHINE] == current.id).sum())
             what = (f"its {readings:,} readings stay in the lab, shown as readings of a machine "
                     "that is not described" if readings else "it has no readings")

@@ -13,7 +13,7 @@ st.markdown(
 )
 shared.show_flash()
 store = shared.store()
-counts = store.counts()
+counts = shared.store_counts()  # counted once per state of the store
 columns = st.columns(4)
 columns[0].metric("Machines", counts["machines"])
 columns[1].metric("Imports", counts["imports"])
@@ -68,7 +68,7 @@ else:
     findings = shared.load_findings(by_session=True)
     machines = store.machines().by_id()
     shared.show_findings(findings, machines, key="overview-findings")
-    shared.undescribed_warning(shared.load_derived(), machines)
+    shared.undescribed_warning(shared.load_derived(shared.DASHBOARD_COLUMNS), machines)
     st.caption("One row per machine and session. Efficiency is the measured current over the "
                "ceiling. Flagged readings are kept but left out of the fits; the Readings and "
                "Sessions pages show them.")

@@ -2,8 +2,8 @@
 
 import streamlit as st
 
-from engine import analysis, report
 from engine import columns as col
+from engine import report
 from engine.errors import InputError
 from pages import _shared as shared
 
@@ -12,7 +12,10 @@ shared.show_flash()
 store = shared.store()
 machine_file = store.machines()
 machines = machine_file.by_id()
-derived = shared.load_derived()
+# The dashboard's columns, shared with Overview, Compare and Sessions (no copy, nothing more
+# read): enough for the choices, the count and the findings. The files read their readings on
+# the click (below), so visiting Report adds little memory.
+derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
 imports = store.imports()
 
 if derived.empty:
@@ -30,31 +33,37 @@ else:
                                      format_func=lambda name: name or "(no session)")
     title = st.text_input("Report title", "Ceiling Lab report", key="report-title",
                           max_chars=120)
-    selected = derived[derived[col.MACHINE].isin(chosen)
-                       & derived[col.SESSION].isin(chosen_sessions)]
-    if selected.empty:
+    chosen_sessions = [str(name) for name in chosen_sessions]
+    selected_count = int((derived[col.MACHINE].isin(chosen)
+                          & derived[col.SESSION].isin(chosen_sessions)).sum())
+    if selected_count == 0:
         st.warning("Pick at least one machine and one session.")
     else:
-        findings = analysis.findings(selected, machines, by_session=True)
-        table = report.output_frame(selected)
-        st.write(f"{len(selected):,} readings of {len(chosen)} machines in "
+        # Whole machine-session groups: the cached findings of all readings give them exactly.
+        findings = shared.findings_of(None, chosen, chosen_sessions, whole_groups=True)
+        st.write(f"{selected_count:,} readings of {len(chosen)} machines in "
                  f"{len(chosen_sessions)} sessions.")
         chosen_machines = {key: machines[key] for key in chosen if key in machines}
+        colours = shared.colours_for(machine_file)  # in the run: it reads the open lab
         st.caption("Each file is made when you click its button.")
         columns = st.columns(3)
-        # Callables: each file is built on the click, not on every run of the page.
-        columns[0].download_button("Results (CSV)", lambda: report.to_csv_bytes(table),
-                                   file_name="ceiling-lab-results.csv", mime="text/csv",
-                                   key="report-csv")
+        # Callables: each file is built on the click from the selection, read then from the
+        # derived cache; the callables hold only the store and the choices, never the readings.
+        # They run outside the page's run, so they are given the open lab's store.
+        columns[0].download_button(
+            "Results (CSV)", lambda: report.to_csv_bytes(report.output_frame(
+                shared.read_selection(store, chosen, chosen_sessions))),
+            file_name="ceiling-lab-results.csv", mime="text/csv", key="report-csv")
         columns[1].download_button(
             "Results and findings (XLSX)",
-            lambda: report.to_xlsx_bytes(table, findings=findings),
+            lambda: report.to_xlsx_bytes(report.output_frame(
+                shared.read_selection(store, chosen, chosen_sessions)), findings=findings),
             file_name="ceiling-lab-results.xlsx", key="report-xlsx",
             mime="application/vnd.openxmlformats-officedocument.spreadsheetml.sheet")
         columns[2].download_button(
             "HTML report", lambda: report.html_report(
-                selected, findings, chosen_machines, title,
-                colours=shared.colours_for(machine_file)).encode("utf-8"),
+                shared.read_selection(store, chosen, chosen_sessions), findings, chosen_machines,
+                title, colours=colours).encode("utf-8"),
             file_name=report.report_file_name(title), mime="text/html", key="report-html",
             help="A document to file or print: the verdict first, the machines in words with "
                  "their drawings, the findings, the charts, the method and the references. "

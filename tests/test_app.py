@@ -483,6 +483,39 @@ def test_report_offers_every_download(demo_lab):
     assert "Pick at least one machine" in texts(app)
 
 
+def test_report_counts_the_selection_and_its_files_read_only_it(demo_lab):
+    """The Report page keeps no readings: its count comes from the dashboard's columns and its
+    files read the selection from the derived cache on the click. Both must agree with the
+    store of record derived at once (engine.analysis.derive, the definition of the derived
+    columns)."""
+    import pandas as pd
+
+    from engine import analysis
+    from engine import columns as col
+    from pages import _shared as shared
+
+    app = open_page("pages/report.py")
+    machine = app.multiselect(key="report-machines").value[0]
+    app.multiselect(key="report-machines").set_value([machine]).run()
+    session = app.multiselect(key="report-sessions").value[-1]
+    app.multiselect(key="report-sessions").set_value([session]).run()
+    assert not app.exception
+    with open_store(demo_lab) as store:
+        machine_file = store.machines()
+        at_once = analysis.derive(store.readings().drop(columns="import_id"),
+                                  machine_file.by_id(), machine_file.site)
+        expected = at_once[(at_once[col.MACHINE] == machine)
+                           & (at_once[col.SESSION] == session)].reset_index(drop=True)
+        got = shared.read_selection(store, [machine], [session]).drop(columns="import_id")
+    assert len(expected) > 0
+    assert f"{len(expected):,} readings of 1 machines in 1 sessions" in texts(app)
+    assert list(got.columns) == list(expected.columns)
+    for name in (col.MACHINE, col.SESSION, col.FLAGS, col.NOTE):
+        got[name] = got[name].astype(object)
+        expected[name] = expected[name].astype(object)
+    pd.testing.assert_frame_equal(got, expected, check_dtype=False)
+
+
 def test_editing_a_machine_keeps_what_the_form_does_not_change(empty_lab):
     from engine.machines import machine_from_table
 

@@ -114,6 +114,11 @@ def _unified_time(tables: list[pa.Table], column: str) -> list[pa.Table]:
     return unified
 
 
+def _write_derived(readings: pd.DataFrame, path: Path, machine_file: MachineFile) -> None:
+    derived = analysis.derive(readings, machine_file.by_id(), machine_file.site)
+    _write_atomically(pa.Table.from_pandas(derived, preserve_index=False), path)
+
+
 class DerivedCache:
     """The derived readings of a store, kept per import in Parquet files.
 
@@ -170,8 +175,38 @@ class DerivedCache:
 
     def _build(self, import_id: int, path: Path, machine_file: MachineFile) -> None:
         readings = self._store.readings(import_ids=[import_id]).drop(columns=IMPORT_ID)
-        derived = analysis.derive(readings, machine_file.by_id(), machine_file.site)
-        _write_atomically(pa.Table.from_pandas(derived, preserve_index=False), path)
+        _write_derived(readings, path, machine_file)
+
+    def add_import(self, import_id: int, created_at: str, readings: pd.DataFrame,
+                   machine_file: MachineFile) -> Path:
+        """Write the file of an import just stored, from its readings in memory.
+
+        The store calls this right after an import, so that the file is not built later by
+        reading the readings back (most of the cost of :meth:`refresh`).
+
+        Parameters
+        ----------
+        import_id : int
+            The import's id.
+        created_at : str
+            Its ``created_at`` as the store keeps it.
+        readings : pandas.DataFrame
+            Exactly what ``store.readings(import_ids=[import_id])`` returns, without
+            ``import_id`` (the store builds it from the arrays it wrote).
+        machine_file : MachineFile
+            The store's machines and site now.
+
+        Returns
+        -------
+        Path
+            The file written (the one :meth:`refresh` looks for).
+        """
+        key = machines_key(machine_file)
+        name = f"import-{import_id}-{_file_key(key, import_id, created_at, len(readings))}.parquet"
+        self._folder.mkdir(parents=True, exist_ok=True)
+        path = self._folder / name
+        _write_derived(readings, path, machine_file)
+        return path
 
     def read(self, columns: Sequence[str] | None = None,
              machines: Iterable[str] | None = None,

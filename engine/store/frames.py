@@ -64,6 +64,22 @@ class _Prepared:
                        for array in self.arrays]
             yield zip(itertools.repeat(import_id, stop - start), *columns, strict=False)
 
+    def frame(self, columns: Sequence[str], floats: Sequence[str]) -> pd.DataFrame:
+        """The frame a store reads back from these arrays: ``Store.readings`` of the import
+        without ``import_id`` (the derived cache derives it at import, without reading back).
+
+        ``columns`` and ``floats`` are those given to :func:`_prepare`.
+        """
+        data: dict[str, object] = {}
+        for column, values in zip(columns, self.arrays, strict=True):
+            if column == TIME:
+                data[column] = _restore_time(values, {self.time_dtype})
+            elif column in floats or column == ROW:
+                data[column] = np.array(values)  # a copy: never a view of the caller's frame
+            else:
+                data[column] = pd.Series(values, dtype=object).astype(_TEXT_DTYPE)
+        return pd.DataFrame(data, columns=list(columns))
+
 
 def _position_text(frame: pd.DataFrame, position: int, where: str) -> str:
     """Where a bad value is, for messages: the reading's number and its source row."""

@@ -284,8 +284,26 @@ class SQLiteStore(Store):
                                 _prepare(environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
                                          f"{where}, environment log"))
         meta = {"name": name, "source": source, "created_at": _now_text(), "is_demo": demo}
-        return self._write(lambda connection: _insert_import(connection, prepared,
-                                                             prepared_environment, meta))
+        import_id = self._write(lambda connection: _insert_import(connection, prepared,
+                                                                  prepared_environment, meta))
+        self._derive_import(import_id, prepared, str(meta["created_at"]))
+        return import_id
+
+    def _derive_import(self, import_id: int, prepared: _Prepared, created_at: str) -> None:
+        """Write the derived cache's file of an import just stored, from the arrays in memory
+        (reading 10^6 readings back from SQLite costs several times the deriving).
+
+        Best effort: the import is committed whatever happens here, and when the file is not
+        written :meth:`DerivedCache.refresh` builds it from the store on the next read.
+        """
+        from engine.store.cache import DerivedCache  # the cache imports the engine's physics
+
+        try:
+            DerivedCache(self).add_import(import_id, created_at,
+                                          prepared.frame(READING_COLUMNS, _READING_FLOATS),
+                                          self.machines())
+        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
+            pass
 
     def readings(self, machines: Iterable[str] | str | None = None,
                  sessions: Iterable[str] | str | None = None,
