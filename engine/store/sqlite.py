@@ -112,7 +112,8 @@ def open_store(path: str | os.PathLike[str] | None = None) -> Store:
         connection = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None,
                                      check_same_thread=False)
     except sqlite3.Error as error:
-        raise InputError(f"{path}: the store cannot be opened ({error})") from None
+        raise (_fault(error, path) or
+               InputError(f"{path}: the store cannot be opened ({error})")) from None
     try:
         _retry(lambda: _configure(connection), path)
         _retry(lambda: migrate(connection, path), path)
