@@ -14,7 +14,6 @@
 import io
 import json
 import os
-import resource
 import shutil
 import subprocess
 import sys

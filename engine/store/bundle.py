@@ -455,7 +455,10 @@ def _parse_manifest(raw: bytes) -> dict:
                 raise InputError(f"{where}: '{key}' {entry[key][:80]!r} does not name a known "
                                  "time zone (such as Europe/Paris or UTC); the bundle is "
                                  "damaged")
-        name, source = _import_names(entry["name"], entry["source"])
+        try:
+            name, source = _import_names(entry["name"], entry["source"])
+        except InputError as error:
+            raise InputError(f"{where}: {error}; the bundle is damaged") from None
         checked.append({**entry, "name": name, "source": source})
     manifest["counts"] = counts
     manifest["demo_machines"] = demo
