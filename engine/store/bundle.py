@@ -3,8 +3,10 @@
 A bundle (:meth:`engine.store.Store.export_bundle`, :meth:`engine.store.Store.import_bundle`) is
 a zip file with ``manifest.json``, ``machines.toml``, ``readings.csv`` and ``environment.csv`` in
 the store's own SI columns; floats are written in their shortest exact form and read back bit
-for bit. Reading a bundle checks every member in memory before anything is stored (sizes,
-members, the manifest, each value), so a damaged or hostile file is refused whole.
+for bit. Reading a bundle (:class:`BundleReader`) checks the zip, its members' sizes, the
+manifest and the machines file first, then streams the readings and the environment log in
+chunks, each checked value by value, into the store's one transaction: memory stays flat, and a
+damaged or hostile file is refused whole.
 """
 
 from __future__ import annotations
@@ -218,15 +220,20 @@ class BundleReader:
         except BaseException:
             self._zip.close()
             raise
-        manifest = _parse_manifest(manifest_raw)
         try:
-            toml_text = toml_raw.decode("utf-8")
-        except UnicodeDecodeError:
-            raise InputError(f"bundle: {_MACHINES_TOML} is not UTF-8 text") from None
-        self.machine_file = parse_machines_text(toml_text, f"bundle {_MACHINES_TOML}")
-        if manifest["counts"].get("machines", len(self.machine_file.machines)) != \
-                len(self.machine_file.machines):
-            raise InputError("bundle: the manifest's machine count does not match machines.toml")
+            manifest = _parse_manifest(manifest_raw)
+            try:
+                toml_text = toml_raw.decode("utf-8")
+            except UnicodeDecodeError:
+                raise InputError(f"bundle: {_MACHINES_TOML} is not UTF-8 text") from None
+            self.machine_file = parse_machines_text(toml_text, f"bundle {_MACHINES_TOML}")
+            if manifest["counts"].get("machines", len(self.machine_file.machines)) != \
+                    len(self.machine_file.machines):
+                raise InputError("bundle: the manifest's machine count does not match "
+                                 "machines.toml")
+        except BaseException:
+            self._zip.close()
+            raise
         self.demo_machines = set(manifest["demo_machines"])
         self.demo_site = manifest["demo_site"]
         self.entries = manifest["imports"]
@@ -298,15 +305,16 @@ class BundleReader:
         dtype_key = "environment_time_dtype" if environment else "time_dtype"
         rows_key = "environment_rows" if environment else "rows"
         what = "environment rows" if environment else "readings"
+        count_key = "environment" if environment else "readings"  # in the manifest's counts
         by_id = {entry["id"]: entry for entry in self.entries}
         seen = dict.fromkeys(by_id, 0)
         total = 0
         for text, first_row in self._csv_chunks(member, [IMPORT_ID, *columns]):
             frame = _parse_chunk(text, member, columns, floats, by_id, dtype_key, first_row)
             total += len(frame)
-            if total > self._counts.get(what.split()[0], total):
+            if total > self._counts.get(count_key, total):
                 raise InputError(f"bundle: {member} holds more rows than the manifest counts "
-                                 f"({self._counts[what.split()[0]]}); the bundle is damaged")
+                                 f"({self._counts[count_key]}); the bundle is damaged")
             for import_id, block in frame.groupby(IMPORT_ID, sort=False):
                 entry = by_id[import_id]
                 seen[import_id] += len(block)
@@ -319,9 +327,9 @@ class BundleReader:
                                     f"{where}, environment" if environment else where)
                 prepared.time_dtype = entry[dtype_key]
                 yield entry, prepared
-        counted = self._counts.get(what.split()[0], total)
+        counted = self._counts.get(count_key, total)
         if counted != total:
-            raise InputError(f"bundle: the manifest counts {counted} {what.split()[0]} rows "
+            raise InputError(f"bundle: the manifest counts {counted} {count_key} rows "
                              f"but the bundle holds {total}; the bundle is damaged")
         for import_id, entry in by_id.items():
             if seen[import_id] != entry[rows_key]:
