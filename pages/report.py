@@ -77,10 +77,25 @@ if not imports.empty:
                        file_name="ceiling-lab-bundle.zip", mime="application/zip",
                        key="report-bundle")
 bundle = st.file_uploader("Restore a lab bundle", type=["zip"], key="report-bundle-upload")
-if bundle is not None and st.button("Import the bundle", key="report-bundle-import"):
+if bundle is not None:
+    data = bundle.getvalue()
     try:
-        new_ids = store.import_bundle(bundle.getvalue())
-        shared.flash(f"Imported {len(new_ids)} imports from {bundle.name}.")
-        st.rerun()
+        replaced = store.bundle_preview(data)["replaced"]
     except InputError as error:
+        replaced = None
         shared.show_error(error)
+    if replaced is not None:
+        confirmed = True
+        if replaced:  # said before anything is replaced, as a machines-file import does
+            st.warning(shared.plain(
+                f"This bundle describes {len(replaced)} machine(s) of this lab differently: "
+                f"{', '.join(replaced)}. Importing it replaces them with the bundle's."))
+            confirmed = st.checkbox("Replace these machines with the bundle's",
+                                    key="report-bundle-replace")
+        if st.button("Import the bundle", key="report-bundle-import", disabled=not confirmed):
+            try:
+                new_ids = store.import_bundle(data, replace_machines=bool(replaced))
+                shared.flash(f"Imported {len(new_ids)} imports from {bundle.name}.")
+                st.rerun()
+            except InputError as error:
+                shared.show_error(error)

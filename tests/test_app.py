@@ -685,3 +685,31 @@ def test_text_from_files_is_never_rendered_as_markdown(empty_lab, tmp_path, page
     rendered = _rendered_texts(app)
     # A link or an image in Markdown is "](": escaped, it shows as text and fetches nothing.
     assert "](http" not in rendered and ":red[" not in rendered
+
+
+def test_report_says_which_machines_a_bundle_replaces_and_asks_first(empty_lab, tmp_path):
+    from engine.machines import parse_machines_text
+    from tests.helpers.store_worker import make_readings
+
+    ours = parse_machines_text('[[machine]]\nid = "stack"\ncarrier = "disc"\n'
+                               'outer_diameter = "40 cm"\ninner_diameter = "10 cm"\n')
+    theirs = parse_machines_text('[[machine]]\nid = "stack"\ncarrier = "disc"\n'
+                                 'outer_diameter = "60 cm"\ninner_diameter = "20 cm"\n')
+    with open_store(tmp_path / "theirs.sqlite3") as other:
+        other.save_machine(theirs.machines[0], demo=True)
+        other.import_readings(make_readings(20, seed=1), "theirs")
+        bundle = other.export_bundle()
+    with open_store(empty_lab) as store:
+        store.save_machine(ours.machines[0])
+    app = open_page("pages/report.py", empty=True)
+    app.file_uploader(key="report-bundle-upload").set_value(
+        ("theirs.zip", bundle, "application/zip")).run()
+    assert "describes 1 machine(s) of this lab differently: stack" in texts(app)
+    assert app.button(key="report-bundle-import").disabled  # not before it is confirmed
+    app.checkbox(key="report-bundle-replace").check().run()
+    app.button(key="report-bundle-import").click().run()
+    assert not app.exception
+    with open_store(empty_lab) as store:
+        assert store.machines().by_id()["stack"].spec["outer_diameter"] == "60 cm"
+        assert store.counts()["imports"] == 1
+        assert store.remove_demo()["machines"] == 0  # it stays the user's machine

@@ -32,6 +32,7 @@ from pathlib import Path
 
 import numpy as np
 import openpyxl
+import pandas as pd
 import pytest
 from hypothesis import HealthCheck, Phase, assume, example, given, settings
 from hypothesis import strategies as st
@@ -59,6 +60,8 @@ PROFILE = os.environ.get("HYPOTHESIS_PROFILE", "ci")
 FUZZ_SCALE = float(os.environ.get("FUZZ_SCALE", "5" if PROFILE == "long" else "1"))
 #: Cases that a normal run (FUZZ_SCALE 1) must generate in total (issue 6).
 NORMAL_RUN_CASES = 2_000
+#: Generated lab bundles that a normal run must import (issue 12).
+NORMAL_RUN_CASES_OF_BUNDLES = 1_000
 #: Longest time one generated case may take [s]. Generous: two cores are shared.
 DEADLINE_S = 5.0
 #: Longest message a reader may give: one a person reads, whatever the file held.
@@ -776,6 +779,95 @@ def test_damaged_bundles_import_whole_or_not_at_all(data):
         assert store.counts()["readings"] == manifest["counts"]["readings"]
 
 
+_HOSTILE_CELLS = ["", "nan", "inf", "-1e999", "1e308", "99999999999999999999",
+                  "-9223372036854775809", "9007199254740993", "1.5", "-0", "0x10",
+                  "3000-01-01T00:00:00", "1500-06-01T00:00:00+00:00", "0001-01-01",
+                  "2024-13-45T25:61:00", "2024-05-01T09:00:00+99:00", "=cmd()", '"', "x" * 300,
+                  "\x00", "1,2", "\u202e", "NA"]
+_HOSTILE_MANIFEST_VALUES = [0, -1, 2**53, 10**30, 2**63, 1.5, True, None, "", "x" * 300, [],
+                            {}, "datetime64[ns, dateutil//etc/passwd]",
+                            "datetime64[ns, ../../etc/localtime]", "datetime64[ps]",
+                            "datetime64[ns, Nowhere/Atlantis]", "datetime64[ns, Europe/Paris]",
+                            "datetime64[ns, +05:30]"]
+
+
+@st.composite
+def value_damaged_bundles(draw):
+    """A valid bundle with hostile values in its manifest or in cells of its CSV members."""
+    members = dict(_bundle_members())
+    for _ in range(draw(st.integers(1, 3))):
+        if draw(st.booleans()):
+            manifest = json.loads(members["manifest.json"])
+            value = draw(st.sampled_from(_HOSTILE_MANIFEST_VALUES))
+            where = draw(st.sampled_from(["import", "counts", "top"]))
+            if not (isinstance(manifest, dict) and isinstance(manifest.get("imports"), list)
+                    and isinstance(manifest.get("counts"), dict)
+                    and all(isinstance(entry, dict) for entry in manifest["imports"])):
+                where = "top"  # an earlier change replaced the part to change
+            if where == "import" and manifest["imports"]:
+                key = draw(st.sampled_from(sorted(manifest["imports"][0])))
+                manifest["imports"][0][key] = value
+            elif where == "counts":
+                manifest["counts"][draw(st.sampled_from(sorted(manifest["counts"])))] = value
+            elif isinstance(manifest, dict):
+                key = draw(st.sampled_from(["demo_machines", "demo_site", "version", "imports",
+                                            "counts", "format"]))
+                manifest[key] = draw(st.sampled_from([value, [value], ["belt"]]))
+            members["manifest.json"] = json.dumps(manifest).encode()
+        else:
+            member = draw(st.sampled_from(["readings.csv", "environment.csv"]))
+            table = pd.read_csv(io.BytesIO(members[member]), dtype=str, keep_default_na=False)
+            row = draw(st.integers(0, len(table) - 1))
+            column = draw(st.sampled_from(list(table.columns)))
+            table.loc[row, column] = draw(st.sampled_from(_HOSTILE_CELLS))
+            members[member] = table.to_csv(index=False, lineterminator="\n").encode()
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", compression=zipfile.ZIP_DEFLATED) as bundle:
+        for name, content in members.items():
+            bundle.writestr(name, content)
+    return buffer.getvalue()
+
+
+@pytest.fixture(scope="module")
+def bundle_store():
+    """One store for many generated bundles (a new store per case would cost most of the time)."""
+    with tempfile.TemporaryDirectory() as folder, \
+            open_store(Path(folder) / "lab.sqlite3") as store:
+        yield store
+
+
+def _store_state(store) -> tuple:
+    """What a refused bundle must leave as it was: counts, imports, machines, a digest of rows."""
+    connection = store._connection
+    return (store.counts(), store.imports().to_dict("list"),
+            connection.execute("SELECT id, toml, is_demo FROM machines ORDER BY id").fetchall(),
+            connection.execute("SELECT key, value, is_demo FROM site ORDER BY key").fetchall(),
+            connection.execute("SELECT COUNT(*), TOTAL(current_a), TOTAL(time_ns), "
+                               "TOTAL(row) FROM readings").fetchall(),
+            connection.execute("SELECT COUNT(*), TOTAL(rh) FROM environment").fetchall())
+
+
+@fuzz(950, deadline_s=10.0)
+@given(data=st.one_of(value_damaged_bundles(), damaged_bundles()),
+       replace_machines=st.booleans())
+def test_hostile_bundles_leave_the_store_unchanged_when_refused(bundle_store, data,
+                                                                replace_machines):
+    """Law: any bundle is imported whole, or refused with a bundle message and the store left
+    exactly as it was (one store through every case, so earlier imports must survive)."""
+    before = _store_state(bundle_store)
+    try:
+        ids = bundle_store.import_bundle(data, replace_machines=replace_machines)
+    except InputError as error:
+        assert str(error).startswith("bundle"), str(error)
+        assert len(str(error)) <= MAX_MESSAGE_LENGTH
+        assert _store_state(bundle_store) == before
+        return
+    manifest = json.loads(zipfile.ZipFile(io.BytesIO(data)).read("manifest.json"))
+    assert len(ids) == len(manifest["imports"])
+    assert (bundle_store.counts()["readings"] - before[0]["readings"]
+            == sum(entry["rows"] for entry in manifest["imports"]))
+
+
 # --- the command line -----------------------------------------------------------------------------
 _MACHINES_FILE = None
 
@@ -891,6 +983,12 @@ def test_a_normal_run_fuzzes_at_least_two_thousand_cases():
     """The per-test budgets add up to the issue's minimum, whatever the profile."""
     assert sum(BUDGETS.values()) >= NORMAL_RUN_CASES, BUDGETS
     assert len(BUDGETS) >= 10
+
+
+def test_a_normal_run_fuzzes_at_least_a_thousand_bundles():
+    """Issue 12: at least 1,000 generated bundles per run, in the tests that import bundles."""
+    bundles = {name: budget for name, budget in BUDGETS.items() if "bundle" in name}
+    assert sum(bundles.values()) >= NORMAL_RUN_CASES_OF_BUNDLES, bundles
 
 
 def test_a_machines_file_nested_deeper_than_any_fuzzed_one_is_an_input_error():

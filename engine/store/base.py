@@ -245,16 +245,45 @@ class Store(abc.ABC):
         """
 
     @abc.abstractmethod
-    def import_bundle(self, data: bytes) -> list[int]:
-        """Add a bundle's machines and imports to the store, in one transaction.
-
-        Machines of the bundle replace stored machines of the same id; the bundle's site is
-        taken only when the store has none. Every import of the bundle becomes a new import.
+    def bundle_preview(self, data: bytes) -> dict[str, object]:
+        """What importing a bundle would do, read from its manifest and machines file.
 
         Parameters
         ----------
         data : bytes
             A bundle made by :meth:`export_bundle`.
+
+        Returns
+        -------
+        dict
+            ``machines`` (the bundle's machine ids), ``replaced`` (ids of stored machines the
+            bundle describes differently, which :meth:`import_bundle` would replace),
+            ``imports`` and ``readings`` (as its manifest counts them).
+
+        Raises
+        ------
+        InputError
+            When the data is not a bundle or its manifest or machines file is damaged.
+        """
+
+    @abc.abstractmethod
+    def import_bundle(self, data: bytes, replace_machines: bool = False) -> list[int]:
+        """Add a bundle's machines and imports to the store, in one transaction.
+
+        A machine of the bundle that is stored already, described differently, is replaced
+        only when ``replace_machines`` is true; otherwise nothing is imported and the error
+        names them (:meth:`bundle_preview` lists them beforehand). A stored machine keeps its
+        demonstration status whatever the bundle says; the bundle's site is taken only when
+        the store has none. Every import of the bundle becomes a new import. The readings are
+        read and written in chunks (memory stays flat); an import holds at most
+        :data:`engine.readings.MAX_ROWS` readings.
+
+        Parameters
+        ----------
+        data : bytes
+            A bundle made by :meth:`export_bundle`.
+        replace_machines : bool
+            Whether stored machines described differently in the bundle may be replaced.
 
         Returns
         -------
@@ -264,6 +293,6 @@ class Store(abc.ABC):
         Raises
         ------
         InputError
-            When the data is not a bundle, is too large, or any member is damaged. Nothing is
-            stored then.
+            When the data is not a bundle, is too large, any member is damaged, or it would
+            replace machines without ``replace_machines``. Nothing is stored then.
         """

@@ -48,7 +48,7 @@ from engine.machines import (
     site_from_table,
 )
 from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store, default_store_path
-from engine.store.bundle import read_bundle, write_bundle
+from engine.store.bundle import BundleReader, write_bundle
 from engine.store.frames import (
     _TEXT_DTYPE,
     _ids,
@@ -112,12 +112,16 @@ def open_store(path: str | os.PathLike[str] | None = None) -> Store:
         connection = sqlite3.connect(path, timeout=BUSY_TIMEOUT_S, isolation_level=None,
                                      check_same_thread=False)
     except sqlite3.Error as error:
-        raise InputError(f"{path}: the store cannot be opened ({error})") from None
+        raise (_fault(error, path) or
+               InputError(f"{path}: the store cannot be opened ({error})")) from None
     try:
         _retry(lambda: _configure(connection), path)
         _retry(lambda: migrate(connection, path), path)
     except sqlite3.DatabaseError as error:
         connection.close()
+        fault = _fault(error, path)
+        if fault is not None and not _error_name(error).startswith("SQLITE_NOTADB"):
+            raise fault from None
         raise InputError(f"{path}: cannot be opened as a Ceiling Lab store ({error}); choose "
                          f"another file with {STORE_ENV_VAR}") from None
     except BaseException:
@@ -137,6 +141,53 @@ def _configure(connection: sqlite3.Connection) -> None:
 def _is_locked(error: sqlite3.OperationalError) -> bool:
     text = str(error).lower()
     return "locked" in text or "busy" in text
+
+
+def _error_name(error: sqlite3.Error) -> str:
+    return getattr(error, "sqlite_errorname", "") or ""
+
+
+def _fault(error: sqlite3.Error, path: Path) -> InputError | None:
+    """The user's message for a fault of the file or the disk, or None for other errors."""
+    name = _error_name(error)
+    if name.startswith("SQLITE_FULL"):
+        return InputError(f"{path}: the disk is full (or the store reached its size limit), "
+                          "so this change was not stored; what was stored before is kept. "
+                          "Free space on the disk and try again")
+    if name.startswith("SQLITE_READONLY"):
+        return InputError(f"{path}: the store file is read-only ({error}), so nothing can be "
+                          "stored; check the file's permissions (you must be able to write "
+                          f"it and its folder), or set {STORE_ENV_VAR} to a writable file")
+    if name.startswith(("SQLITE_CORRUPT", "SQLITE_NOTADB")):
+        return InputError(f"{path}: the store file is damaged ({error}); keep it aside, open "
+                          f"a new store (set {STORE_ENV_VAR} to a new file) and restore the "
+                          "lab from its latest lab bundle")
+    if name.startswith("SQLITE_CANTOPEN") or name.startswith("SQLITE_PERM"):
+        if not os.access(path.parent, os.W_OK):
+            return InputError(f"{path.parent}: the store's folder is not writable, so the "
+                              "store cannot be opened (it needs to write files beside the "
+                              f"store); check the folder's permissions, or set "
+                              f"{STORE_ENV_VAR} to a file in a writable folder")
+        return InputError(f"{path}: the store file cannot be opened ({error}); check that "
+                          f"it exists and that you may read and write it, or set "
+                          f"{STORE_ENV_VAR} to another file")
+    if name.startswith("SQLITE_IOERR"):
+        return InputError(f"{path}: the store could not be read or written ({error}): the "
+                          "disk may be full or failing. This change was not stored; what was "
+                          "stored before is kept. Free space or check the drive and try again")
+    return None
+
+
+@contextlib.contextmanager
+def _faults(path: Path) -> Iterator[None]:
+    """Faults of the file or the disk as the engine's messages (see :func:`_fault`)."""
+    try:
+        yield
+    except sqlite3.DatabaseError as error:
+        fault = _fault(error, path)
+        if fault is None:
+            raise
+        raise fault from None
 
 
 def _retry(work: Callable[[], _Result], path: Path) -> _Result:
@@ -216,13 +267,13 @@ class SQLiteStore(Store):
                 raise
             return result
 
-        with self._lock:
+        with self._lock, _faults(self._path):
             return _retry(attempt, self._path)
 
     @contextlib.contextmanager
     def _snapshot(self) -> Iterator[None]:
         """Hold one read transaction, so that several queries see the same state of the file."""
-        with self._lock:
+        with self._lock, _faults(self._path):
             if self._connection.in_transaction:
                 yield
                 return
@@ -233,7 +284,7 @@ class SQLiteStore(Store):
                 self._connection.execute("COMMIT")
 
     def _query(self, statement: str, parameters: Sequence[object] = ()) -> list[tuple]:
-        with self._lock:
+        with self._lock, _faults(self._path):
             return _retry(lambda: self._connection.execute(statement, parameters).fetchall(),
                           self._path)
 
@@ -458,27 +509,56 @@ class SQLiteStore(Store):
         return write_bundle(machine_file, imports, dtypes, readings, environment,
                             demo_machines, demo_site)
 
-    def import_bundle(self, data: bytes) -> list[int]:
+    def bundle_preview(self, data: bytes) -> dict[str, object]:
+        """See :meth:`engine.store.base.Store.bundle_preview`."""
+        with BundleReader(data) as bundle:
+            texts = {machine.id: dump_machines([machine])
+                     for machine in bundle.machine_file.machines}
+            return {"machines": list(texts),
+                    "replaced": self._replaced(texts),
+                    "imports": len(bundle.entries),
+                    "readings": sum(entry["rows"] for entry in bundle.entries)}
+
+    def _replaced(self, texts: Mapping[str, str]) -> list[str]:
+        """Ids of stored machines that these machine tables would change."""
+        stored = dict(self._query("SELECT id, toml FROM machines"))
+        return [machine_id for machine_id, text in texts.items()
+                if machine_id in stored and stored[machine_id] != text]
+
+    def import_bundle(self, data: bytes, replace_machines: bool = False) -> list[int]:
         """See :meth:`engine.store.base.Store.import_bundle`."""
-        machine_file, demo_machines, demo_site, imports = read_bundle(data)
-        texts = {machine.id: dump_machines([machine]) for machine in machine_file.machines}
+        with BundleReader(data) as bundle:
+            machine_file = bundle.machine_file
+            texts = {machine.id: dump_machines([machine]) for machine in machine_file.machines}
 
-        def work(connection: sqlite3.Connection) -> list[int]:
-            for machine in machine_file.machines:
-                _save_machine(connection, machine, texts[machine.id],
-                              machine.id in demo_machines)
-            has_site = connection.execute("SELECT EXISTS (SELECT 1 FROM site)").fetchone()[0]
-            if machine_file.site.spec and not has_site:
-                connection.executemany(
-                    "INSERT INTO site (key, value, is_demo) VALUES (?, ?, ?)",
-                    [(key, value, int(demo_site)) for key, value in machine_file.site.spec.items()])
-            return [_insert_import(connection, prepared, prepared_environment, meta)
-                    for meta, prepared, prepared_environment in imports]
+            def work(connection: sqlite3.Connection) -> list[int]:
+                stored = {row[0]: (row[1], bool(row[2])) for row in connection.execute(
+                    "SELECT id, toml, is_demo FROM machines")}
+                replaced = [machine_id for machine_id, text in texts.items()
+                            if machine_id in stored and stored[machine_id][0] != text]
+                if replaced and not replace_machines:
+                    raise InputError(
+                        f"bundle: it would replace {len(replaced)} machine(s) already in the "
+                        f"lab and described differently: {', '.join(replaced[:20])}"
+                        f"{' ...' if len(replaced) > 20 else ''}; nothing was imported. "
+                        "Confirm the replacement to import it")
+                for machine in machine_file.machines:
+                    # A bundle never changes the demonstration status of a stored machine.
+                    demo = (stored[machine.id][1] if machine.id in stored
+                            else machine.id in bundle.demo_machines)
+                    _save_machine(connection, machine, texts[machine.id], demo)
+                has_site = connection.execute(
+                    "SELECT EXISTS (SELECT 1 FROM site)").fetchone()[0]
+                if machine_file.site.spec and not has_site:
+                    connection.executemany(
+                        "INSERT INTO site (key, value, is_demo) VALUES (?, ?, ?)",
+                        [(key, value, int(bundle.demo_site))
+                         for key, value in machine_file.site.spec.items()])
+                return _insert_bundle(connection, bundle)
 
-        return self._write(work)
+            return self._write(work)
 
 
-# --- writing ---
 # --- writing -------------------------------------------------------------------------------------
 def _save_machine(connection: sqlite3.Connection, machine: Machine, text: str,
                   demo: bool) -> None:
@@ -514,3 +594,38 @@ def _insert_import(connection: sqlite3.Connection, readings: _Prepared,
             _insert_chunk(connection, statement, rows)
     return import_id
 
+
+
+def _insert_bundle(connection: sqlite3.Connection, bundle: BundleReader) -> list[int]:
+    """Insert a bundle's imports inside the caller's transaction, chunk by chunk."""
+    new_ids: dict[int, int] = {}
+    for entry in bundle.entries:
+        has_environment = entry["environment_rows"] > 0
+        cursor = connection.execute(
+            "INSERT INTO imports (name, source, created_at, is_demo, rows, machines, sessions, "
+            "time_dtype, environment_rows, environment_time_dtype) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (entry["name"], entry["source"], entry["created_at"], int(entry["is_demo"]),
+             entry["rows"], "", "", entry["time_dtype"], entry["environment_rows"],
+             entry["environment_time_dtype"] if has_environment else "datetime64[ns]"))
+        new_ids[entry["id"]] = int(cursor.lastrowid)
+    machines: dict[int, set[str]] = {import_id: set() for import_id in new_ids.values()}
+    sessions: dict[int, set[str]] = {import_id: set() for import_id in new_ids.values()}
+    machine_at, session_at = READING_COLUMNS.index(MACHINE), READING_COLUMNS.index(SESSION)
+    for environment, table, sql_columns in ((False, "readings", _READING_SQL),
+                                            (True, "environment", _ENVIRONMENT_SQL)):
+        names = ", ".join(f'"{column}"' for column in ("import_id", *sql_columns))
+        marks = ", ".join("?" * (len(sql_columns) + 1))
+        statement = f"INSERT INTO {table} ({names}) VALUES ({marks})"
+        for entry, prepared in bundle.blocks(environment=environment):
+            import_id = new_ids[entry["id"]]
+            for rows in prepared.chunks(import_id, CHUNK_ROWS):
+                _insert_chunk(connection, statement, rows)
+            if not environment:
+                machines[import_id].update(pd.unique(prepared.arrays[machine_at]).tolist())
+                sessions[import_id].update(pd.unique(prepared.arrays[session_at]).tolist())
+    connection.executemany("UPDATE imports SET machines = ?, sessions = ? WHERE id = ?",
+                           [(", ".join(sorted(machines[import_id])),
+                             ", ".join(sorted(sessions[import_id])), import_id)
+                            for import_id in new_ids.values()])
+    return list(new_ids.values())
