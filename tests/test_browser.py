@@ -169,7 +169,13 @@ def _type(page, label: str, text: str) -> None:
 
 def _click(page, name: str) -> None:
     page.get_by_role("button", name=name, exact=True).first.click()
+    page.wait_for_timeout(1000)  # the rerun starts a moment after the click
     _settle(page)
+
+
+def _see(page, text: str) -> None:
+    """Wait until the page shows ``text`` (a busy machine redraws slowly)."""
+    page.get_by_text(text, exact=False).first.wait_for(timeout=90_000)
 
 
 def _shot(page, name: str) -> None:
@@ -227,18 +233,18 @@ def test_the_conservator_s_path(browser, tmp_path):
             body = page.locator("body").inner_text()
             assert "twin-disc with sectors = 1 unit" in body
             _click(page, "Add this machine")
-            assert "Saved machine 'gallery-twin'" in page.locator("body").inner_text()
+            _see(page, "Saved machine 'gallery-twin'")
             _no_errors(page)
             _open(page, f"{url}/readings")
             _upload(page, _readings_file(tmp_path / "before.csv", "2025-11-08", 1.2))
             _type(page, "Session", "before restoration")
             _shot(page, "conservator-3-before")
             _click(page, "Save the readings")
-            assert "session 'before restoration'" in page.locator("body").inner_text()
+            _see(page, "session 'before restoration'")
             _upload(page, _readings_file(tmp_path / "after.csv", "2026-03-14", 2.4))
             _type(page, "Session", "after restoration")
             _click(page, "Save the readings")
-            assert "session 'after restoration'" in page.locator("body").inner_text()
+            _see(page, "session 'after restoration'")
             _no_errors(page)
             _open(page, f"{url}/sessions")
             page.wait_for_selector("[data-testid='stPlotlyChart'] .main-svg", timeout=60_000)
@@ -315,7 +321,7 @@ def test_the_teacher_s_path(browser, tmp_path):
             page.get_by_role("tab", name="Machines file (TOML)").click()
             _upload(page, machines)
             _click(page, "Import these machines")
-            assert "Imported 3 machines" in page.locator("body").inner_text()
+            _see(page, "Imported 3 machines")
             _shot(page, "teacher-1-machines")
             _open(page, f"{url}/readings")
             _upload(page, readings)
