@@ -725,9 +725,12 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
     flags = _clean_flags(out)
     missing = ((flags == "").to_numpy()
                & (~np.isfinite(current) | ~(has_rotation | np.isfinite(belt_speed))))
+    # An unknown uncertainty counts as none; an infinite one stays infinite (no overflow).
     negative = ((speed_rev_s < 0) | (belt_speed < 0)
-                | (current < -COVERAGE_FACTOR * np.nan_to_num(current_u)))
-    above = efficiency > 1.0 + COVERAGE_FACTOR * np.nan_to_num(efficiency_u)
+                | (current < -COVERAGE_FACTOR * np.nan_to_num(current_u, nan=0.0,
+                                                              posinf=np.inf)))
+    above = efficiency > 1.0 + COVERAGE_FACTOR * np.nan_to_num(efficiency_u, nan=0.0,
+                                                               posinf=np.inf)
     flagged_after = _update_flags(flags, [
         (MISSING_FLAG, missing),
         ("negative", negative),
