@@ -715,3 +715,12 @@ def read_upload(upload, options, kind: str = "readings"):
     data = upload.getvalue()
     digest = hashlib.sha256(data).hexdigest()
     return _read_upload(digest, upload.name, options, kind, data)
+
+
+def sessions_in_run_order(derived: pd.DataFrame, machine_ids) -> list[str]:
+    """The sessions of these machines in the order they were run (first reading first), so
+    that "before" comes before "after"."""
+    of_chosen = derived[col.MACHINE].isin(list(machine_ids)).to_numpy(dtype=bool)
+    first_times = derived[col.TIME][of_chosen].groupby(
+        derived[col.SESSION][of_chosen], observed=True, sort=False).min()
+    return [str(name) for name in first_times.sort_values(kind="stable").index]

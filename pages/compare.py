@@ -30,11 +30,7 @@ with st.container(border=True):
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids,
                             format_func=labels.get, key="compare-machines",
                             placeholder="Choose machines")
-    # Sessions in the order they were run.
-    of_chosen = derived[col.MACHINE].isin(chosen).to_numpy(dtype=bool)
-    first_times = derived[col.TIME][of_chosen].groupby(
-        derived[col.SESSION][of_chosen], observed=True, sort=False).min()
-    sessions = [str(name) for name in first_times.sort_values(kind="stable").index]
+    sessions = shared.sessions_in_run_order(derived, chosen)
     # Sessions follow the machines: when the machines change, every session of the chosen
     # machines is selected again (a selection that would match nothing is never kept).
     if st.session_state.get("compare-machines-seen") != chosen:
