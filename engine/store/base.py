@@ -9,6 +9,7 @@ the columns of :mod:`engine.columns` (SI units) with ``import_id``, whatever the
 from __future__ import annotations
 
 import abc
+import contextlib
 import os
 from collections.abc import Iterable, Mapping
 from pathlib import Path
@@ -16,7 +17,8 @@ from pathlib import Path
 import pandas as pd
 import platformdirs
 
-from engine.machines import Machine, MachineFile
+from engine.errors import InputError
+from engine.machines import Machine, MachineFile, dump_machines
 
 #: Environment variable that names the store file.
 STORE_ENV_VAR = "CEILING_LAB_DB"
@@ -24,6 +26,21 @@ STORE_ENV_VAR = "CEILING_LAB_DB"
 STORE_FILE_NAME = "ceiling-lab.sqlite3"
 #: Column of the frames returned by :meth:`Store.readings` and :meth:`Store.environment`.
 IMPORT_ID = "import_id"
+
+
+def is_server_location(location: object) -> bool:
+    """Whether a store location is a PostgreSQL URL (``postgresql://...``), not a file path."""
+    return isinstance(location, str) and location.strip().lower().startswith(
+        ("postgresql://", "postgres://"))
+
+
+def store_location() -> str | Path:
+    """Where the lab's store is: ``$CEILING_LAB_DB`` (a file path, or a PostgreSQL URL kept as
+    text), else the file in the user's data folder (:func:`default_store_path`)."""
+    named = os.environ.get(STORE_ENV_VAR, "").strip()
+    if is_server_location(named):
+        return named
+    return default_store_path()
 
 
 def default_store_path() -> Path:
@@ -55,6 +72,18 @@ class Store(abc.ABC):
     @abc.abstractmethod
     def path(self) -> Path:
         """Where the store is (its file, for the embedded store)."""
+
+    @property
+    def location(self) -> str:
+        """Where the lab is, for people: the file, or the database and server (never a
+        password)."""
+        return str(self.path)
+
+    def may(self, action: str) -> bool:  # noqa: ARG002 - one user owns an embedded store
+        """Whether the account may do ``action``: ``"change"`` (add or change machines, imports,
+        the site and settings), ``"remove_machines"`` or ``"remove_imports"``. Always true for
+        the embedded store; a shared server's accounts may have fewer rights."""
+        return True
 
     @property
     @abc.abstractmethod
@@ -221,7 +250,6 @@ class Store(abc.ABC):
         """Whether the store holds no machine and no import (the site does not count)."""
 
     # --- lab bundle ----------------------------------------------------------------------------
-    @abc.abstractmethod
     def export_bundle(self, import_ids: Iterable[int] | int | None = None) -> bytes:
         """The lab as a bundle (:mod:`engine.store.bundle`): a zip of machines, readings and
         environment logs.
@@ -243,8 +271,26 @@ class Store(abc.ABC):
         InputError
             When an asked import is not in the store.
         """
+        from engine.store.bundle import write_bundle
+        from engine.store.frames import _ids
 
-    @abc.abstractmethod
+        wanted = _ids(import_ids)
+        with self._snapshot():  # the members agree with each other
+            imports = self.imports()
+            machine_file = self.machines()
+            demo_machines, demo_site = self._demo_marks()
+            dtypes = self._time_dtypes()
+            if wanted is not None:
+                missing = sorted(set(wanted) - set(imports["id"].tolist()))
+                if missing:
+                    raise InputError(f"import {missing[0]} is not in the store; choose "
+                                     "from the imports listed")
+                imports = imports[imports["id"].isin(wanted)]
+            readings = self.readings(import_ids=imports["id"].tolist())
+            environment = self.environment(import_ids=imports["id"].tolist())
+        return write_bundle(machine_file, imports, dtypes, readings, environment,
+                            demo_machines, demo_site)
+
     def bundle_preview(self, data: bytes) -> dict[str, object]:
         """What importing a bundle would do, read from its manifest and machines file.
 
@@ -265,6 +311,17 @@ class Store(abc.ABC):
         InputError
             When the data is not a bundle or its manifest or machines file is damaged.
         """
+        from engine.store.bundle import BundleReader
+
+        with BundleReader(data) as bundle:
+            texts = {machine.id: dump_machines([machine])
+                     for machine in bundle.machine_file.machines}
+            stored = self._stored_machine_texts()
+            return {"machines": list(texts),
+                    "replaced": [machine_id for machine_id, text in texts.items()
+                                 if machine_id in stored and stored[machine_id] != text],
+                    "imports": len(bundle.entries),
+                    "readings": sum(entry["rows"] for entry in bundle.entries)}
 
     @abc.abstractmethod
     def import_bundle(self, data: bytes, replace_machines: bool = False) -> list[int]:
@@ -296,3 +353,38 @@ class Store(abc.ABC):
             When the data is not a bundle, is too large, any member is damaged, or it would
             replace machines without ``replace_machines``. Nothing is stored then.
         """
+
+    # --- what every back end provides for the methods above ------------------------------------
+    @abc.abstractmethod
+    def _snapshot(self) -> contextlib.AbstractContextManager[None]:
+        """A context in which several reads see one state of the store."""
+
+    @abc.abstractmethod
+    def _demo_marks(self) -> tuple[list[str], bool]:
+        """Ids of the demonstration machines (in order) and whether the site is the demo's."""
+
+    @abc.abstractmethod
+    def _time_dtypes(self) -> dict[int, tuple[str, str]]:
+        """Import id -> time dtype of its readings and of its environment log."""
+
+    @abc.abstractmethod
+    def _stored_machine_texts(self) -> dict[str, str]:
+        """Machine id -> its stored machines-file text."""
+
+    def _derive_import(self, import_id: int, prepared: object, created_at: str) -> None:
+        """Write the derived cache's file of an import just stored, from the arrays in memory
+        (reading 10^6 readings back from the store costs several times the deriving).
+
+        Best effort: the import is committed whatever happens here, and when the file is not
+        written :meth:`DerivedCache.refresh` builds it from the store on the next read.
+        """
+        from engine.columns import READING_COLUMNS
+        from engine.store.cache import DerivedCache  # the cache imports the engine's physics
+        from engine.store.schema import _READING_FLOATS
+
+        try:
+            DerivedCache(self).add_import(import_id, created_at,
+                                          prepared.frame(READING_COLUMNS, _READING_FLOATS),
+                                          self.machines())
+        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
+            pass

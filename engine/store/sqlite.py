@@ -47,8 +47,14 @@ from engine.machines import (
     parse_machines_text,
     site_from_table,
 )
-from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store, default_store_path
-from engine.store.bundle import BundleReader, write_bundle
+from engine.store.base import (
+    IMPORT_ID,
+    STORE_ENV_VAR,
+    Store,
+    is_server_location,
+    store_location,
+)
+from engine.store.bundle import BundleReader
 from engine.store.frames import (
     _TEXT_DTYPE,
     _ids,
@@ -83,12 +89,15 @@ _Result = TypeVar("_Result")
 
 
 def open_store(path: str | os.PathLike[str] | None = None) -> Store:
-    """Open the store file, creating it and its folders, and migrating an older one.
+    """Open the lab's store, creating it (and its folders), and migrating an older one.
 
     Parameters
     ----------
     path : str or path-like, optional
-        The SQLite file; default :func:`default_store_path`.
+        The SQLite file, or a PostgreSQL URL (``postgresql://ACCOUNT@HOST/DATABASE``, opened
+        by :func:`engine.store.postgres.open_server_store`); default
+        :func:`~engine.store.base.store_location` (``CEILING_LAB_DB``, else the file in the
+        user's data folder).
 
     Returns
     -------
@@ -101,7 +110,12 @@ def open_store(path: str | os.PathLike[str] | None = None) -> Store:
         When the folder cannot be created, the file is not a Ceiling Lab store, or it was
         written by a newer version.
     """
-    path = Path(path) if path is not None else default_store_path()
+    location = path if path is not None else store_location()
+    if is_server_location(location):
+        from engine.store.postgres import open_server_store  # psycopg only when it is used
+
+        return open_server_store(str(location))
+    path = Path(location)
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
     except OSError as error:
@@ -340,22 +354,6 @@ class SQLiteStore(Store):
         self._derive_import(import_id, prepared, str(meta["created_at"]))
         return import_id
 
-    def _derive_import(self, import_id: int, prepared: _Prepared, created_at: str) -> None:
-        """Write the derived cache's file of an import just stored, from the arrays in memory
-        (reading 10^6 readings back from SQLite costs several times the deriving).
-
-        Best effort: the import is committed whatever happens here, and when the file is not
-        written :meth:`DerivedCache.refresh` builds it from the store on the next read.
-        """
-        from engine.store.cache import DerivedCache  # the cache imports the engine's physics
-
-        try:
-            DerivedCache(self).add_import(import_id, created_at,
-                                          prepared.frame(READING_COLUMNS, _READING_FLOATS),
-                                          self.machines())
-        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
-            pass
-
     def readings(self, machines: Iterable[str] | str | None = None,
                  sessions: Iterable[str] | str | None = None,
                  import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
@@ -486,44 +484,18 @@ class SQLiteStore(Store):
                                "OR EXISTS (SELECT 1 FROM imports)")[0][0]
 
     # --- lab bundle ----------------------------------------------------------------------------
-    def export_bundle(self, import_ids: Iterable[int] | int | None = None) -> bytes:
-        """See :meth:`engine.store.base.Store.export_bundle`."""
-        wanted = _ids(import_ids)
-        with self._snapshot():  # the members agree with each other
-            imports = self.imports()
-            machine_file = self.machines()
-            demo_machines = [row[0] for row in self._query(
-                "SELECT id FROM machines WHERE is_demo = 1 ORDER BY rowid")]
-            demo_site = bool(self._query(
-                "SELECT EXISTS (SELECT 1 FROM site WHERE is_demo = 1)")[0][0])
-            dtypes = {row[0]: row[1:] for row in self._query(
-                "SELECT id, time_dtype, environment_time_dtype FROM imports")}
-            if wanted is not None:
-                missing = sorted(set(wanted) - set(imports["id"].tolist()))
-                if missing:
-                    raise InputError(f"import {missing[0]} is not in the store; choose "
-                                     "from the imports listed")
-                imports = imports[imports["id"].isin(wanted)]
-            readings = self.readings(import_ids=imports["id"].tolist())
-            environment = self.environment(import_ids=imports["id"].tolist())
-        return write_bundle(machine_file, imports, dtypes, readings, environment,
-                            demo_machines, demo_site)
+    def _demo_marks(self) -> tuple[list[str], bool]:
+        machines = [row[0] for row in self._query(
+            "SELECT id FROM machines WHERE is_demo = 1 ORDER BY rowid")]
+        site = bool(self._query("SELECT EXISTS (SELECT 1 FROM site WHERE is_demo = 1)")[0][0])
+        return machines, site
 
-    def bundle_preview(self, data: bytes) -> dict[str, object]:
-        """See :meth:`engine.store.base.Store.bundle_preview`."""
-        with BundleReader(data) as bundle:
-            texts = {machine.id: dump_machines([machine])
-                     for machine in bundle.machine_file.machines}
-            return {"machines": list(texts),
-                    "replaced": self._replaced(texts),
-                    "imports": len(bundle.entries),
-                    "readings": sum(entry["rows"] for entry in bundle.entries)}
+    def _time_dtypes(self) -> dict[int, tuple[str, str]]:
+        return {row[0]: row[1:] for row in self._query(
+            "SELECT id, time_dtype, environment_time_dtype FROM imports")}
 
-    def _replaced(self, texts: Mapping[str, str]) -> list[str]:
-        """Ids of stored machines that these machine tables would change."""
-        stored = dict(self._query("SELECT id, toml FROM machines"))
-        return [machine_id for machine_id, text in texts.items()
-                if machine_id in stored and stored[machine_id] != text]
+    def _stored_machine_texts(self) -> dict[str, str]:
+        return dict(self._query("SELECT id, toml FROM machines"))
 
     def import_bundle(self, data: bytes, replace_machines: bool = False) -> list[int]:
         """See :meth:`engine.store.base.Store.import_bundle`."""
