@@ -69,7 +69,7 @@ def classroom_sql(passwords: dict[str, str], database: str) -> list[str]:
     for block in blocks:
         for account, password in passwords.items():
             block = block.replace(f"'{account}-password'", f"'{password}'")
-        filled.append(block.replace("ceiling_lab", database))
+        filled.append(re.sub(r"\bceiling_lab\b", database, block))
     return filled
 
 
@@ -95,13 +95,13 @@ class Cluster:
         return command
 
     def psql(self, sql: str, database: str = "postgres", user: str = "postgres") -> str:
-        """Run SQL as ``user`` through the socket (no password: the socket trusts local users
-        of this throwaway cluster)."""
+        """Run SQL (statement by statement, as pasted into psql) as ``user`` through the socket
+        (no password: the socket trusts local users of this throwaway cluster)."""
         psql = shutil.which("psql") or str(self.binaries / "psql")
         result = subprocess.run(
             [psql, "-X", "-q", "-v", "ON_ERROR_STOP=1", "-h", str(self.socket_folder),
-             "-p", str(self.port), "-U", user, "-d", database, "-At", "-c", sql],
-            capture_output=True, text=True, timeout=60, check=False)
+             "-p", str(self.port), "-U", user, "-d", database, "-At", "-f", "-"],
+            input=sql, capture_output=True, text=True, timeout=60, check=False)
         if result.returncode != 0:
             raise RuntimeError(f"psql failed: {result.stderr.strip()}")
         return result.stdout
@@ -115,11 +115,11 @@ class Cluster:
                 + (f"?{query}" if query else ""))
 
     def new_lab(self) -> str:
-        """A new, empty lab database set up by the README's SQL; returns its name."""
+        """A new, empty lab database set up by the README's SQL (its second block: the
+        database and who may connect); returns its name."""
         self._databases += 1
         name = f"lab_{os.getpid()}_{self._databases}"
-        for block in classroom_sql(self.passwords, name):
-            self.psql(block)
+        self.psql(classroom_sql(self.passwords, name)[1])
         return name
 
     def stop(self, mode: str = "fast") -> None:
@@ -159,7 +159,8 @@ def start_cluster() -> Cluster:
                                         "-l", str(folder / "server.log"), "-w", "-t", "60",
                                         "start"),
                        capture_output=True, check=True, timeout=90)
-    except (subprocess.SubprocessError, OSError) as error:
+        cluster.psql(classroom_sql(cluster.passwords, "ceiling_lab")[0])  # the accounts
+    except (subprocess.SubprocessError, OSError, RuntimeError) as error:
         log = folder / "server.log"
         detail = log.read_text(errors="replace")[-2000:] if log.is_file() else ""
         shutil.rmtree(folder, ignore_errors=True)

@@ -1,4 +1,5 @@
-"""The SQLite store: round trips, one transaction per import, migrations, cascades, bundles,
+"""The store, on both back ends (an SQLite file and a database on a throwaway PostgreSQL
+server, see tests/pg_cluster.py; fixtures ``store`` and ``lab_location``): round trips, one transaction per import, migrations, cascades, bundles,
 and what happens when a writing program is killed or two programs write at once."""
 
 import io
@@ -90,7 +91,13 @@ def machine_file():
 
 
 @pytest.fixture
-def store(tmp_path):
+def store(lab_location):
+    with open_store(lab_location()) as opened:
+        yield opened
+
+
+@pytest.fixture
+def sqlite_store(tmp_path):
     with open_store(tmp_path / "lab.sqlite3") as opened:
         yield opened
 
@@ -153,7 +160,8 @@ def test_store_path_defaults_to_the_user_data_folder(monkeypatch):
     assert path.name == "ceiling-lab.sqlite3"
 
 
-def test_open_sets_the_connection_pragmas(store):
+def test_open_sets_the_connection_pragmas(sqlite_store):
+    store = sqlite_store
     connection = store._connection
     assert connection.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
     assert connection.execute("PRAGMA foreign_keys").fetchone()[0] == 1
@@ -187,8 +195,8 @@ def test_a_store_from_a_newer_version_is_refused(tmp_path):
 
 
 # --- machines and site ---------------------------------------------------------------------------
-def test_machines_round_trip_with_their_units(tmp_path, machine_file):
-    path = tmp_path / "lab.sqlite3"
+def test_machines_round_trip_with_their_units(lab_location, machine_file):
+    path = lab_location()
     with open_store(path) as store:
         assert store.is_empty()
         for machine in machine_file.machines:
@@ -229,8 +237,8 @@ def test_a_bad_site_is_refused_and_the_old_one_kept(store):
 
 
 # --- readings round trip -------------------------------------------------------------------------
-def test_readings_round_trip_exactly_with_nan_nat_and_time_zone(tmp_path):
-    path = tmp_path / "lab.sqlite3"
+def test_readings_round_trip_exactly_with_nan_nat_and_time_zone(lab_location):
+    path = lab_location()
     aware = make_readings(500, seed=3)
     aware[CURRENT_A] = random_bit_floats(500, seed=4)
     aware.loc[5, CURRENT_A] = -0.0
@@ -332,7 +340,8 @@ def test_environment_log_round_trips(store):
 
 
 # --- one transaction per import --------------------------------------------------------------
-def test_a_chunk_that_fails_half_way_leaves_nothing(store, monkeypatch):
+def test_a_chunk_that_fails_half_way_leaves_nothing(sqlite_store, monkeypatch):
+    store = sqlite_store
     kept = store.import_readings(make_readings(50, seed=12), "kept")
     monkeypatch.setattr(store_module, "CHUNK_ROWS", 100)
     real_insert = store_module._insert_chunk
@@ -352,7 +361,8 @@ def test_a_chunk_that_fails_half_way_leaves_nothing(store, monkeypatch):
     assert store.counts()["readings"] == 50
 
 
-def test_a_row_the_database_refuses_half_way_leaves_nothing(store, monkeypatch):
+def test_a_row_the_database_refuses_half_way_leaves_nothing(sqlite_store, monkeypatch):
+    store = sqlite_store
     monkeypatch.setattr(store_module, "CHUNK_ROWS", 100)
     real_insert = store_module._insert_chunk
     calls = []
@@ -494,10 +504,11 @@ def test_deleting_an_import_deletes_its_readings_and_log(store):
     assert store.delete_import(gone) is False
     assert set(store.readings()[IMPORT_ID]) == {kept} and len(store.readings()) == 100
     assert set(store.environment()[IMPORT_ID]) == {kept} and len(store.environment()) == 5
-    with pytest.raises(sqlite3.IntegrityError, match="FOREIGN KEY"):
-        store._connection.execute(
-            'INSERT INTO readings (import_id, "row", machine, session, note, flags) '
-            "VALUES (?, 1, 'x', '', '', '')", (gone,))
+    if isinstance(store, store_module.SQLiteStore):
+        with pytest.raises(sqlite3.IntegrityError, match="FOREIGN KEY"):
+            store._connection.execute(
+                'INSERT INTO readings (import_id, "row", machine, session, note, flags) '
+                "VALUES (?, 1, 'x', '', '', '')", (gone,))
 
 
 def test_remove_demo_keeps_the_users_own_data(store, machine_file):
@@ -545,7 +556,7 @@ def filled_store(store, machine_file):
     return first, second, aware, naive
 
 
-def test_a_bundle_reimports_to_identical_readings(tmp_path, store, machine_file):
+def test_a_bundle_reimports_to_identical_readings(lab_location, store, machine_file):
     first, second, aware, naive = filled_store(store, machine_file)
     data = store.export_bundle()
     with zipfile.ZipFile(io.BytesIO(data)) as bundle:
@@ -556,7 +567,7 @@ def test_a_bundle_reimports_to_identical_readings(tmp_path, store, machine_file)
     assert manifest["counts"] == {"machines": 3, "imports": 2, "readings": 900,
                                   "environment": 40}
 
-    with open_store(tmp_path / "other.sqlite3") as other:
+    with open_store(lab_location()) as other:
         new_ids = other.import_bundle(data)
         assert len(new_ids) == 2
         for old_id, new_id in zip((first, second), new_ids, strict=True):
@@ -625,10 +636,10 @@ def bundle_members(store, machine_file):
         b"e-05,", b"e-05x,", 1)}, "is not a number"),
     (lambda members: {**members, "machines.toml": b"[[machine]]\nid = 3\n"}, "machines.toml"),
 ])
-def test_damaged_bundles_are_refused_and_store_nothing(tmp_path, store, machine_file, change,
-                                                      message):
+def test_damaged_bundles_are_refused_and_store_nothing(lab_location, store, machine_file,
+                                                      change, message):
     data = zip_of(change(bundle_members(store, machine_file)))
-    with open_store(tmp_path / "other.sqlite3") as other:
+    with open_store(lab_location()) as other:
         with pytest.raises(InputError, match=message):
             other.import_bundle(data)
         assert other.is_empty() and other.counts()["readings"] == 0

@@ -1,6 +1,7 @@
 """A separate process that writes to a store, for the store's kill and concurrency tests.
 
-Run from the repository root as ``python -m tests.helpers.store_worker PATH MODE ...``:
+Run from the repository root as ``python -m tests.helpers.store_worker LOCATION MODE ...``
+(LOCATION: a store file or a PostgreSQL URL):
 
 ``import NAME ROWS SEED GO_FILE``
     Open the store, print ``OPEN``, wait until GO_FILE exists, import ROWS generated readings
@@ -72,10 +73,35 @@ def say(text: str) -> None:
     print(text, flush=True)
 
 
+def _tell_each_block(say_block) -> None:
+    """Make both back ends say ``CHUNK <k>`` after each chunk (SQLite) or block (PostgreSQL)
+    of rows is written."""
+    import engine.store.postgres as server_module
+    import engine.store.sqlite as store_module
+
+    real_insert = store_module._insert_chunk
+
+    def insert_and_tell(connection, statement, rows):
+        real_insert(connection, statement, rows)
+        say_block()
+
+    real_copy = server_module._copy
+
+    def copy_and_tell(connection, table, columns, blocks):
+        def told():
+            for block in blocks:
+                yield block
+                say_block()
+        real_copy(connection, table, columns, told())
+
+    store_module._insert_chunk = insert_and_tell
+    server_module._copy = copy_and_tell
+
+
 def main(argv: list[str]) -> int:
     import engine.store.sqlite as store_module
 
-    path, mode = Path(argv[0]), argv[1]
+    path, mode = argv[0], argv[1]  # a file, or a PostgreSQL URL
     if mode == "import":
         name, rows, seed, go_file = argv[2], int(argv[3]), int(argv[4]), Path(argv[5])
         frame = make_readings(rows, seed)
@@ -92,16 +118,14 @@ def main(argv: list[str]) -> int:
         store = store_module.open_store(path)
         say(f"FIRST {store.import_readings(make_readings(first_rows, 1), 'first')}")
         big = make_readings(big_rows, 2)
-        real_insert = store_module._insert_chunk
         written = 0
 
-        def insert_and_tell(connection, statement, rows):
+        def tell() -> None:
             nonlocal written
-            real_insert(connection, statement, rows)
             written += 1
             say(f"CHUNK {written}")
 
-        store_module._insert_chunk = insert_and_tell
+        _tell_each_block(tell)
         say("READY")
         store.import_readings(big, "interrupted")
         say("DONE")
