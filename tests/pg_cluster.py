@@ -82,6 +82,7 @@ class Cluster:
     binaries: Path
     passwords: dict[str, str] = field(default_factory=dict)
     as_user: str | None = None
+    tls: bool = False
     _databases: int = 0
 
     @property
@@ -128,6 +129,25 @@ class Cluster:
                        check=False)
 
 
+def _self_signed_certificate(data: Path, as_user: str | None) -> bool:
+    """A certificate for 127.0.0.1 in the data folder (server.crt, server.key), made with
+    ``openssl``; False without it (the TLS test is skipped then)."""
+    openssl = shutil.which("openssl")
+    if openssl is None:
+        return False
+    result = subprocess.run(
+        [openssl, "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-days", "2",
+         "-subj", "/CN=127.0.0.1", "-keyout", str(data / "server.key"),
+         "-out", str(data / "server.crt")], capture_output=True, timeout=60, check=False)
+    if result.returncode != 0:
+        return False
+    (data / "server.key").chmod(0o600)
+    if as_user:
+        for name in ("server.key", "server.crt"):
+            shutil.chown(data / name, user=as_user)
+    return True
+
+
 def start_cluster() -> Cluster:
     """Start a throwaway cluster (see the module's docstring); skip or fail without one."""
     required = os.environ.get(REQUIRE_ENV_VAR) == "1"
@@ -155,6 +175,9 @@ def start_cluster() -> Cluster:
         options = (f"-c listen_addresses=127.0.0.1 -c port={cluster.port} "
                    f"-c unix_socket_directories={folder / 'socket'} -c fsync=off "
                    "-c max_connections=60 -c shared_buffers=64MB")
+        if _self_signed_certificate(folder / "data", as_user):
+            cluster.tls = True
+            options += " -c ssl=on"
         subprocess.run(cluster._command("pg_ctl", "-D", str(folder / "data"), "-o", options,
                                         "-l", str(folder / "server.log"), "-w", "-t", "60",
                                         "start"),

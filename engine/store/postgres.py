@@ -352,8 +352,10 @@ class PostgresStore(Store):
 
     # --- connection, transactions and errors ---------------------------------------------------
     def _scrub(self, text: str) -> str:
-        """Text of an error without the password (libpq does not put it there; this makes sure)."""
-        text = str(text)
+        """First line of an error's text, without the password (libpq does not put it there;
+        this makes sure)."""
+        lines = str(text).strip().splitlines()
+        text = lines[0] if lines else ""
         if self._secret:
             text = text.replace(self._secret, "***")
         text = re.sub(r"(password\s*=\s*)\S+", r"\1***", text, flags=re.I)
@@ -484,23 +486,35 @@ class PostgresStore(Store):
     @contextlib.contextmanager
     def _snapshot(self) -> Iterator[None]:
         """Hold one read transaction (repeatable read), so that several queries see one state
-        of the lab, whatever other benches commit meanwhile."""
+        of the lab, whatever other benches commit meanwhile. A connection found lost at the
+        start is opened again."""
         with self._lock:
             connection = self._connect()
             if connection.info.transaction_status != psycopg.pq.TransactionStatus.IDLE:
                 yield
                 return
+            for attempt in (1, 2):
+                try:
+                    connection.execute("BEGIN ISOLATION LEVEL REPEATABLE READ, READ ONLY")
+                    break
+                except psycopg.OperationalError as error:
+                    self._connection = None
+                    if attempt == 2:
+                        raise InputError(f"{self._where}: the connection to the lab server was "
+                                         f"lost ({self._scrub(error)}); try again") from None
+                    connection = self._connect()
             try:
-                with connection.transaction():
-                    connection.execute("SET TRANSACTION ISOLATION LEVEL REPEATABLE READ, "
-                                       "READ ONLY")
-                    yield
-            except psycopg.OperationalError as error:
+                yield
+            except BaseException:
+                with contextlib.suppress(psycopg.Error):
+                    connection.execute("ROLLBACK")
+                raise
+            try:
+                connection.execute("COMMIT")
+            except psycopg.Error as error:
                 self._connection = None
                 raise InputError(f"{self._where}: the connection to the lab server was lost "
                                  f"({self._scrub(error)}); try again") from None
-            except psycopg.Error as error:
-                raise self._fault(error, "read") from None
 
     # --- schema --------------------------------------------------------------------------------
     def _open(self) -> None:
@@ -718,6 +732,9 @@ class PostgresStore(Store):
                 "FROM imports WHERE id = %s", (int(import_id),)).fetchone()
             if found is None:
                 return False
+            if not connection.execute(
+                    "SELECT has_table_privilege('imports', 'DELETE')").fetchone()[0]:
+                raise psycopg.errors.InsufficientPrivilege("no DELETE right on imports")
             saved_by, keeper = found
             if saved_by != self._account and not keeper:
                 raise InputError(
