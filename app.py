@@ -27,7 +27,7 @@ navigation = st.navigation(
 with st.sidebar:
     shared.lab_switch()
     counts = store.counts()
-    st.markdown(f"**{shared.LAB_NAMES[shared.active_lab()]}** · {counts['machines']} machines "
+    st.markdown(f"**{shared.plain(shared.lab_words())}** · {counts['machines']} machines "
                 f"· {counts['readings']:,} readings")
     if shared.active_lab() == "demo":
         st.caption("Invented data to explore, kept apart from your own lab. Switch to "

@@ -28,6 +28,7 @@ from engine.machines import (
     site_from_table,
 )
 from engine.store import Store, default_store_path, open_store
+from engine.store.base import is_server_location, store_location
 from engine.store.cache import DerivedCache
 
 # A page opened by a direct link as the first request after the server starts is run by
@@ -110,13 +111,35 @@ LAB_NAMES = {"own": "My lab", "demo": "Demonstration lab (invented)"}
 
 
 @st.cache_resource(show_spinner=False)
-def _open_store(path: str) -> Store:
-    return open_store(path)
+def _open_store(location: str) -> Store:
+    return open_store(location)
 
 
 @st.cache_resource(show_spinner="Opening the demonstration lab...")
 def _open_demo_store(path: str) -> Store:
     return open_demo_lab(path)
+
+
+def _own_location() -> str:
+    """The user's own lab: ``CEILING_LAB_DB`` (a file or a PostgreSQL URL), else the default
+    file. Used as a cache key only, never shown (a URL may hold a password)."""
+    return str(store_location())
+
+
+def _own_store() -> Store:
+    """The user's own lab, opened once per app process; a lab that cannot be opened (a server
+    that cannot be reached, a damaged file) stops the page with what to do, not a traceback."""
+    try:
+        return _open_store(_own_location())
+    except InputError as error:
+        show_error(error)
+        st.caption("Fix what the message says and reload the page. The demonstration lab works "
+                   "meanwhile: choose it in the sidebar.")
+        if st.button("Open the demonstration lab", key="lab-open-demo-instead"):
+            st.session_state[LAB_KEY] = "demo"
+            st.rerun()
+        st.stop()
+        raise  # st.stop ends the run; this keeps the type checkers content
 
 
 def active_lab() -> str:
@@ -127,21 +150,51 @@ def active_lab() -> str:
         return chosen
     if st.session_state.get("demo-declined"):
         return "own"
-    own = _open_store(str(default_store_path()))
+    own = _own_store()
     return "demo" if own.is_empty() and own.setting("lab-opened") != "yes" else "own"
 
 
-def lab_path() -> Path:
-    """The store file of the open lab."""
-    own = default_store_path()
-    return demo_lab_path(own) if active_lab() == "demo" else own
+def lab_path() -> str:
+    """The open lab's location (the store file, or the server lab's URL): a cache key of the
+    loaders, never shown."""
+    return (str(demo_lab_path(default_store_path())) if active_lab() == "demo"
+            else _own_location())
 
 
 def store() -> Store:
-    """The open lab's store (one shared, thread-safe connection per database file)."""
+    """The open lab's store (one shared, thread-safe connection per lab)."""
     if active_lab() == "demo":
-        return _open_demo_store(str(lab_path()))
-    return _open_store(str(default_store_path()))
+        return _open_demo_store(lab_path())
+    return _own_store()
+
+
+def may_change() -> bool:
+    """Whether the open lab's account may add and change things (a viewer account of a shared
+    lab may not)."""
+    return store().may("change")
+
+
+def read_only_notice() -> bool:
+    """Say so when the open lab cannot be changed with this account; returns whether it can."""
+    if may_change():
+        return True
+    st.info("This lab is open **read-only** (a viewer account of a shared lab): you can look at "
+            "everything and download it, but not add, change or remove anything. Ask the lab's "
+            "keeper for a bench account to save readings.")
+    return False
+
+
+def lab_words() -> str:
+    """The open lab for the sidebar: which lab, where (a server lab's database and host, never
+    its password) and whether it is read-only."""
+    if active_lab() == "demo":
+        return LAB_NAMES["demo"]
+    current = _own_store()
+    if is_server_location(_own_location()):
+        account = getattr(current, "account", "")
+        words = f"Shared lab: {current.location}" + (f", as {account}" if account else "")
+        return words + ("" if current.may("change") else " (read-only)")
+    return LAB_NAMES["own"]
 
 
 def open_lab(name: str) -> None:
@@ -149,8 +202,8 @@ def open_lab(name: str) -> None:
     opened their own lab, later starts open it too, even while it is still empty."""
     st.session_state[LAB_KEY] = name
     if name == "own":
-        own = _open_store(str(default_store_path()))
-        if own.setting("lab-opened") != "yes":
+        own = _own_store()
+        if own.may("change") and own.setting("lab-opened") != "yes":
             own.save_setting("lab-opened", "yes")
 
 
@@ -289,11 +342,14 @@ def colours_for(machine_file: MachineFile) -> dict[str, str]:
             taken.add(int(stored) % len(PALETTE))
         else:
             unassigned.append(machine.id)
+    writable = current.may("change")
     for machine_id in unassigned:
         free = [index for index in range(len(PALETTE)) if index not in taken]
         index = free[0] if free else len(colours) % len(PALETTE)
         taken.add(index)
         colours[machine_id] = PALETTE[index]
+        if not writable:
+            continue
         try:
             current.save_setting(f"colour:{machine_id}", str(index))
         except Exception:  # noqa: BLE001 - a lab that cannot be written keeps them for this run

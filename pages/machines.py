@@ -62,6 +62,12 @@ if not site.spec and shared.active_lab() == "own":
                "(or its barometer reading) in the tab **The lab's air** below; until then the "
                "reference atmosphere, 101.3 kPa and 20 °C, is used.")
 
+if not shared.read_only_notice():
+    st.download_button("Download the machines file", dump_machines(machine_file),
+                       file_name="machines.toml", mime="application/toml",
+                       key="machines-download-read-only")
+    st.stop()
+
 edit_tab, site_tab, file_tab = st.tabs(["Add or edit a machine", "The lab's air",
                                         "Machines file (TOML)"])
 

@@ -26,7 +26,7 @@ if shared.active_lab() == "demo":
             "own; the demonstration lab stays available in the sidebar.")
     st.button("Start my own lab", type="primary", key="overview-own-lab",
               on_click=shared.open_lab, args=("own",))
-elif store.has_demo():
+elif store.has_demo() and store.may("remove_machines"):
     # Demonstration data that an earlier version loaded into the user's own lab.
     st.info("Your lab also holds demonstration data loaded by an earlier version of Ceiling Lab "
             "(marked as demo). The demonstration lab now lives apart, in the sidebar.")

@@ -25,6 +25,8 @@ EXAMPLE = DEMO_FOLDER / "readings_belt.csv"
 st.title("Readings")
 shared.show_flash()
 store = shared.store()
+if not shared.read_only_notice():
+    st.stop()
 machine_file = store.machines()
 machine_ids = [machine.id for machine in machine_file.machines]
 

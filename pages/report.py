@@ -76,7 +76,8 @@ if not imports.empty:
     st.download_button("Download the lab bundle", store.export_bundle,
                        file_name="ceiling-lab-bundle.zip", mime="application/zip",
                        key="report-bundle")
-bundle = st.file_uploader("Restore a lab bundle", type=["zip"], key="report-bundle-upload")
+bundle = (st.file_uploader("Restore a lab bundle", type=["zip"], key="report-bundle-upload")
+          if shared.may_change() else None)
 if bundle is not None:
     data = bundle.getvalue()
     try:

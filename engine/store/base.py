@@ -49,12 +49,12 @@ def default_store_path() -> Path:
     Returns
     -------
     Path
-        ``CEILING_LAB_DB`` when it is set and not empty; otherwise
+        ``CEILING_LAB_DB`` when it is set to a file (not empty, not a server URL); otherwise
         ``platformdirs.user_data_dir("ceiling-lab") / "ceiling-lab.sqlite3"``. The folder is
         created by :func:`engine.store.open_store`, not here.
     """
     named = os.environ.get(STORE_ENV_VAR, "").strip()
-    if named:
+    if named and not is_server_location(named):
         return Path(named).expanduser()
     return Path(platformdirs.user_data_dir("ceiling-lab")) / STORE_FILE_NAME
 
