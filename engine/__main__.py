@@ -7,6 +7,7 @@ machines   the machines of a machines file, with their ceilings at a speed
 evaluate   every reading of a file with its derived columns (CSV, XLSX or JSON)
 summary    the findings per machine (or machine and session)
 spark      the breakdown voltage of an air gap, or the gap for a voltage
+lab        the lab's store (a file or a PostgreSQL server): show, add, export, restore, copy
 
 Bad input exits with status 2 and one line on stderr starting with ``error:``.
 """
@@ -611,6 +612,10 @@ def build_parser() -> argparse.ArgumentParser:
     spark.add_argument("--temperature", help="air temperature, e.g. '20 degC' (default)")
     spark.add_argument("--json", action="store_true", help="print one JSON object")
     spark.set_defaults(run=_command_spark)
+
+    from engine.lab_command import add_lab_command  # the store only when it is used
+
+    add_lab_command(commands)
     return parser
 
 

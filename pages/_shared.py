@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import math
 import re
-from pathlib import Path
 
 import pandas as pd
 import streamlit as st

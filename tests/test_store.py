@@ -1,6 +1,8 @@
 """The store, on both back ends (an SQLite file and a database on a throwaway PostgreSQL
-server, see tests/pg_cluster.py; fixtures ``store`` and ``lab_location``): round trips, one transaction per import, migrations, cascades, bundles,
-and what happens when a writing program is killed or two programs write at once."""
+server, see tests/pg_cluster.py; fixtures ``store`` and ``lab_location``): round trips, one
+transaction per import, cascades and bundles; for the SQLite file also its migrations, and what
+happens when a writing program is killed or two programs write at once (the server's own are in
+tests/test_store_postgres.py)."""
 
 import io
 import json
