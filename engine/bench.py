@@ -838,6 +838,10 @@ def build_parser() -> argparse.ArgumentParser:
                         help="benchmark the dashboard instead: a store of N readings, the "
                              "Compare and Sessions pages driven, findings checked for "
                              "exactness (see engine.dashboard_bench)")
+    parser.add_argument("--store", metavar="postgresql://...",
+                        help="benchmark saving into a lab on a PostgreSQL server (an empty "
+                             "database of its own) against an SQLite file instead "
+                             "(see engine.store_bench)")
     parser.add_argument("--imports", type=_positive, default=None,
                         help="with --dashboard: imports the readings are saved in "
                              "(default 10)")
@@ -847,6 +851,13 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Run the benchmark; print the table or the JSON object; return 0."""
     args = build_parser().parse_args(argv)
+    if args.store and not args.dashboard:
+        from engine import store_bench
+
+        result = store_bench.run_store_benchmark(args.store, args.rows, args.machines)
+        print(json.dumps(_finite(result)) if args.json
+              else store_bench.format_store_table(result))
+        return 0
     if args.dashboard:
         from engine import dashboard_bench
 

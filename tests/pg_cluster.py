@@ -148,8 +148,12 @@ def _self_signed_certificate(data: Path, as_user: str | None) -> bool:
     return True
 
 
-def start_cluster() -> Cluster:
-    """Start a throwaway cluster (see the module's docstring); skip or fail without one."""
+def start_cluster(durable: bool = False) -> Cluster:
+    """Start a throwaway cluster (see the module's docstring); skip or fail without one.
+
+    The tests' cluster does not wait for the disk (``fsync=off``); a ``durable`` one does, as a
+    real server would (for measurements).
+    """
     required = os.environ.get(REQUIRE_ENV_VAR) == "1"
     binaries = server_binaries()
     if binaries is None:
@@ -173,8 +177,10 @@ def start_cluster() -> Cluster:
                                         "-E", "UTF8", "--locale=C"),
                        capture_output=True, check=True, timeout=120)
         options = (f"-c listen_addresses=127.0.0.1 -c port={cluster.port} "
-                   f"-c unix_socket_directories={folder / 'socket'} -c fsync=off "
+                   f"-c unix_socket_directories={folder / 'socket'} "
                    "-c max_connections=60 -c shared_buffers=64MB")
+        if not durable:
+            options += " -c fsync=off"
         if _self_signed_certificate(folder / "data", as_user):
             cluster.tls = True
             options += " -c ssl=on"
@@ -195,8 +201,8 @@ def start_cluster() -> Cluster:
 
 
 @contextlib.contextmanager
-def running_cluster() -> Iterator[Cluster]:
-    cluster = start_cluster()
+def running_cluster(durable: bool = False) -> Iterator[Cluster]:
+    cluster = start_cluster(durable)
     try:
         yield cluster
     finally:

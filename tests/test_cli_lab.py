@@ -80,6 +80,7 @@ def test_benches_adding_from_separate_processes_at_once(pg_cluster, pg_lab):
     results = [worker.communicate(timeout=180) for worker in workers]
     for worker, (out, err) in zip(workers, results, strict=True):
         assert worker.returncode == 0, err
+        assert out.startswith("saved ")
     with open_store(pg_lab) as store:
         imports = store.imports().set_index("source")
         assert sorted(imports.index) == sorted(files)
