@@ -383,3 +383,20 @@ def test_another_benchs_import_reaches_the_derived_cache(pg_cluster, pg_lab, mac
         import_id = bench.import_readings(make_readings(60, seed=51), "bench 3")
         seen = DerivedCache(teacher).read(columns=[CURRENT_A])
         assert seen[IMPORT_ID].tolist() == [import_id] * 60
+
+
+def test_the_store_benchmark_runs_and_leaves_the_lab_as_it_found_it(pg_lab):
+    from engine.store_bench import format_store_table, run_store_benchmark
+
+    result = run_store_benchmark(pg_lab, rows=3000, machines=5)
+    assert result["exact"] is True and result["rows"] == 3000
+    for key in ("sqlite_import_s", "server_import_s", "server_import_vs_sqlite",
+                "sqlite_read_s", "server_read_s"):
+        assert result[key] > 0
+    assert "PostgreSQL / SQLite (target at most 2)" in format_store_table(result)
+    with open_store(pg_lab) as store:
+        assert store.is_empty()
+    with open_store(pg_lab) as store:
+        store.save_machine(parse_machines_text(MACHINES_TEXT).machines[0])
+    with pytest.raises(SystemExit, match="not empty"):
+        run_store_benchmark(pg_lab, rows=100, machines=2)
