@@ -339,3 +339,55 @@ def test_the_teacher_s_path(browser, tmp_path):
             _no_errors(page)
         finally:
             page.close()
+
+
+def test_the_classroom_path_on_a_shared_server_lab(browser, tmp_path, pg_cluster):
+    """Three apps on one PostgreSQL lab: the keeper describes the benches, a bench saves its
+    readings, and the projector (a viewer account) sees them in Compare, read-only."""
+    name = pg_cluster.new_lab()
+    machines = tmp_path / "benches.toml"
+    machines.write_text(TEACHER_MACHINES, encoding="utf-8")
+    lines = ["machine,session,time,speed [rpm],current [uA],rh [%]"]
+    for step in range(10):
+        speed = 100 + 50 * step
+        lines.append(f"bench-2,lesson 1,2026-02-02T09:{step:02d}:00,{speed},"
+                     f"{0.0008 * speed:.4f},{40 + step}")
+    readings = tmp_path / "bench-2.csv"
+    readings.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    secrets = list(pg_cluster.passwords.values())
+    with served(pg_cluster.url("lab_keeper", name)) as keeper_url, \
+            served(pg_cluster.url("lab_bench", name)) as bench_url, \
+            served(pg_cluster.url("lab_viewer", name)) as viewer_url:
+        page = browser.new_page(viewport={"width": 1400, "height": 1800})
+        try:
+            _open(page, keeper_url)
+            _click(page, "Start my own lab")
+            _see(page, f"Shared lab: database '{name}' on 127.0.0.1")
+            _open(page, f"{keeper_url}/machines")
+            page.get_by_role("tab", name="Machines file (TOML)").click()
+            _upload(page, machines)
+            _click(page, "Import these machines")
+            _see(page, "Imported 3 machines")
+            _shot(page, "classroom-1-keeper")
+
+            _open(page, f"{bench_url}/readings")
+            _see(page, "as lab_bench")
+            _upload(page, readings)
+            _click(page, "Save the readings")
+            _see(page, "Saved 10 readings")
+            _no_errors(page)
+            _shot(page, "classroom-2-bench")
+
+            _open(page, f"{viewer_url}/compare")
+            page.wait_for_selector("[data-testid='stPlotlyChart'] .main-svg", timeout=60_000)
+            body = page.locator("body").inner_text()
+            assert "Bench 2 belt" in body and "(read-only)" in body
+            _shot(page, "classroom-3-projector")
+            _open(page, f"{viewer_url}/readings")
+            _see(page, "This lab is open read-only")
+            assert page.locator("[data-testid='stFileUploader']").count() == 0
+            _no_errors(page)
+            for shown in (page.content(), body):
+                assert not any(secret in shown for secret in secrets)
+        finally:
+            page.close()
