@@ -153,8 +153,7 @@ POSTGRES_LAYOUT: tuple[str, ...] = (
         temperature_k double precision, pressure_pa double precision,
         voltage_v double precision,
         note text NOT NULL,
-        flags text NOT NULL,
-        PRIMARY KEY (import_id, position)
+        flags text NOT NULL
     )""",
     """CREATE TABLE environment (
         import_id bigint NOT NULL REFERENCES imports(id) ON DELETE CASCADE,
@@ -162,9 +161,13 @@ POSTGRES_LAYOUT: tuple[str, ...] = (
         "row" bigint NOT NULL,
         time_ns bigint,
         elapsed_s double precision, rh double precision, temperature_k double precision,
-        pressure_pa double precision,
-        PRIMARY KEY (import_id, position)
+        pressure_pa double precision
     )""",
+    # Rows arrive import by import, so a block-range index finds an import's rows (reads,
+    # cascaded deletes) at almost no cost to bulk loading; a b-tree on (import_id, position)
+    # made saving 10^6 readings about 60 % slower.
+    "CREATE INDEX readings_by_import ON readings USING brin (import_id)",
+    "CREATE INDEX environment_by_import ON environment USING brin (import_id)",
     "CREATE TABLE settings (key text PRIMARY KEY, value text NOT NULL)",
     # The lab's rule: an account removes (or changes) only the imports it saved; the keeper,
     # who owns the table, is not bound by these policies.
@@ -651,7 +654,7 @@ class PostgresStore(Store):
         conditions = [sql.SQL("{} = ANY({})").format(sql.Identifier(column), sql.Literal(values))
                       for column, values in filters if values is not None and column != IMPORT_ID]
         wanted_ids = dict(filters).get(IMPORT_ID)
-        types = {IMPORT_ID: pa.int64()}
+        types = {"position": pa.int64(), IMPORT_ID: pa.int64()}
         for column, sql_column in zip(columns, sql_columns, strict=True):
             types[sql_column] = (pa.int64() if column in (ROW, TIME) else
                                  pa.float64() if column in floats else pa.string())
@@ -668,25 +671,29 @@ class PostgresStore(Store):
             for import_id in chosen:
                 where = sql.SQL(" AND ").join([sql.SQL("import_id = {}").format(
                     sql.Literal(int(import_id))), *conditions])
-                statement = sql.SQL("COPY (SELECT import_id, {} FROM {} WHERE {} ORDER BY "
-                                    "position) TO STDOUT (FORMAT csv)").format(
+                # In stored order by position, sorted here: cheaper than a sort on the server.
+                statement = sql.SQL("COPY (SELECT position, import_id, {} FROM {} WHERE {}) "
+                                    "TO STDOUT (FORMAT csv)").format(
                     select, sql.Identifier(table), where)
                 buffer = io.BytesIO()
                 with connection.cursor() as cursor, cursor.copy(statement) as copy:
                     for data in copy:
                         buffer.write(data)
                 if buffer.tell():
-                    pieces.append(pcsv.read_csv(
+                    piece = pcsv.read_csv(
                         io.BytesIO(buffer.getvalue()),
                         read_options=pcsv.ReadOptions(column_names=list(types),
                                                       block_size=1 << 24),
                         parse_options=pcsv.ParseOptions(newlines_in_values=True),
                         convert_options=pcsv.ConvertOptions(column_types=types,
                                                             strings_can_be_null=False,
-                                                            quoted_strings_can_be_null=False)))
+                                                            quoted_strings_can_be_null=False))
+                    order = np.argsort(piece.column("position").to_numpy(), kind="stable")
+                    pieces.append(piece.drop_columns(["position"]).take(order))
         data: dict[str, object] = {}
         gathered = (pa.concat_tables(pieces) if pieces else
-                    pa.table({name: pa.array([], type=kind) for name, kind in types.items()}))
+                    pa.table({name: pa.array([], type=kind) for name, kind in types.items()
+                              if name != "position"}))
         import_ids = gathered.column(IMPORT_ID).to_numpy()
         for column, sql_column in zip(columns, sql_columns, strict=True):
             values = gathered.column(sql_column)
