@@ -4,6 +4,7 @@ killed half-way, a lost connection, TLS, credentials kept out of messages, and t
 moving a lab between a file and a server both ways. The suite of tests/test_store.py runs on
 both back ends as well."""
 
+import contextlib
 import os
 import signal
 import subprocess
@@ -79,6 +80,31 @@ def test_a_bench_cannot_open_a_lab_the_keeper_has_not_made(pg_cluster):
     with pytest.raises(InputError, match="lab_bench' may not create the lab's tables.*CREATE "
                                          "right.*keeper opens the lab once"):
         open_store(pg_cluster.url("lab_bench", name))
+
+
+def test_a_bench_cannot_make_the_lab_even_where_every_account_may_create_tables(pg_cluster):
+    """PostgreSQL before version 15 lets every account create tables in the public schema: a
+    bench opening the lab first must still not make it (and so own it)."""
+    name = pg_cluster.new_lab()
+    pg_cluster.psql("GRANT CREATE ON SCHEMA public TO PUBLIC", database=name)
+    with pytest.raises(InputError, match="lab_bench' may not create the lab's tables.*"
+                                         "ownership of the database"):
+        open_store(pg_cluster.url("lab_bench", name))
+    with open_store(pg_cluster.url("lab_keeper", name)) as keeper:
+        assert keeper.is_empty()
+
+
+def test_a_group_role_made_later_gets_its_rights_at_the_keepers_next_opening(pg_cluster,
+                                                                            pg_lab):
+    name = lab_name(pg_lab)
+    pg_cluster.psql("REVOKE SELECT ON ALL TABLES IN SCHEMA public FROM ceiling_lab_viewer",
+                    database=name)  # as if the role had not existed when the lab was made
+    with pytest.raises(InputError, match="lab_viewer' may not read the lab: it lacks the "
+                                         "SELECT right on the table 'ceiling_lab_schema'"):
+        open_store(url_of(pg_cluster, "lab_viewer", pg_lab))
+    open_store(pg_lab).close()  # the keeper opens it again
+    with open_store(url_of(pg_cluster, "lab_viewer", pg_lab)) as viewer:
+        assert viewer.imports().empty
 
 
 def test_a_database_holding_other_tables_is_refused(pg_cluster):
@@ -185,6 +211,69 @@ def test_a_connection_lost_in_the_middle_of_an_import_stores_it_once(pg_cluster,
                                       check_exact=True)
 
 
+def test_a_connection_lost_while_reading_is_read_again(pg_cluster, pg_lab, monkeypatch):
+    frames = [make_readings(300, seed=52), make_readings(200, seed=53)]
+    with open_store(pg_lab) as store:
+        for number, frame in enumerate(frames):
+            store.import_readings(frame, f"part {number}")
+        real_read = server_module.pcsv.read_csv
+        cuts = []
+
+        def read_then_cut(*args, **kwargs):
+            if not cuts:  # after the first import's rows arrived, before the second's
+                cuts.append(1)
+                terminate_other_connections(pg_cluster, pg_lab)
+            return real_read(*args, **kwargs)
+
+        monkeypatch.setattr(server_module.pcsv, "read_csv", read_then_cut)
+        back = store.readings()
+        assert cuts == [1]
+        pd.testing.assert_frame_equal(back.drop(columns=IMPORT_ID),
+                                      pd.concat(frames, ignore_index=True), check_exact=True)
+
+
+@pytest.fixture
+def lose_the_commit_acknowledgement(pg_cluster, pg_lab, monkeypatch):
+    """Arm it, and the next write transaction commits on the server but its connection is cut
+    before the program hears of it."""
+    real = psycopg.Connection.transaction
+    armed = []
+
+    @contextlib.contextmanager
+    def transaction(self, *args, **kwargs):
+        with real(self, *args, **kwargs) as inner:
+            yield inner
+        if armed:
+            armed.clear()
+            terminate_other_connections(pg_cluster, pg_lab)
+            self.execute("SELECT 1")  # the program finds the connection gone
+
+    monkeypatch.setattr(psycopg.Connection, "transaction", transaction)
+    return lambda: armed.append(True)
+
+
+def test_a_commit_whose_answer_is_lost_is_not_stored_twice(pg_lab, machine_file,
+                                                          lose_the_commit_acknowledgement):
+    with open_store(pg_lab) as store:
+        lose_the_commit_acknowledgement()
+        import_id = store.import_readings(make_readings(80, seed=54), "once")
+        assert store.imports()["id"].tolist() == [import_id]
+        assert store.counts()["readings"] == 80
+        lose_the_commit_acknowledgement()
+        assert store.delete_import(import_id) is True
+        assert store.imports().empty
+        lose_the_commit_acknowledgement()
+        store.save_machine(machine_file.machines[0])
+        assert [machine.id for machine in store.machines().machines] == ["twin-disc"]
+        store.import_readings(make_readings(30, seed=55), "kept")
+        bundle = store.export_bundle()
+        lose_the_commit_acknowledgement()
+        with pytest.raises(InputError, match="lost just as this change was stored; it was "
+                                             "stored"):
+            store.import_bundle(bundle)
+        assert store.imports()["name"].tolist() == ["kept", "kept"]  # once, not twice
+
+
 def test_a_connection_lost_twice_is_a_message(pg_cluster, pg_lab, monkeypatch):
     monkeypatch.setattr(server_module, "COPY_ROWS", 1000)
     real_copy = server_module._copy
@@ -224,8 +313,10 @@ def test_a_bench_adds_and_removes_only_what_the_lab_allows(pg_cluster, pg_lab, m
         assert bench.may("change") and bench.may("remove_imports")
         assert not bench.may("remove_machines")
         bench.save_machine(machine_file.machines[1])
-        bench.save_site({"altitude": "350 m"})
         bench.save_setting("colours", "{}")
+        with pytest.raises(InputError, match=r"'lab_bench' may not store the site: it lacks the "
+                                             r"DELETE right on the table 'site'"):
+            bench.save_site({"altitude": "350 m"})  # the lab's air is the keeper's to set
         own = bench.import_readings(make_readings(40, seed=45), "bench's",
                                     environment=environment_log(5, seed=6))
         with pytest.raises(InputError, match=r"'lab_bench' may not remove a machine: it lacks "

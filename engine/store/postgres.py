@@ -42,6 +42,7 @@ import hashlib
 import io
 import re
 import threading
+import time
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import TypeVar
@@ -191,7 +192,7 @@ _GRANTS = {
     BENCH_ROLE: {
         "ceiling_lab_schema": ("SELECT",),
         "machines": ("SELECT", "INSERT", "UPDATE"),
-        "site": ("SELECT", "INSERT", "UPDATE", "DELETE"),
+        "site": ("SELECT",),
         "imports": ("SELECT", "INSERT", "UPDATE", "DELETE"),
         "readings": ("SELECT", "INSERT"),
         "environment": ("SELECT", "INSERT"),
@@ -201,7 +202,10 @@ _GRANTS = {
 
 #: Rights each operation needs: words for the refusal, and (table, privilege) pairs.
 _NEEDS: dict[str, tuple[str, tuple[tuple[str, str], ...]]] = {
-    "open": ("create the lab's tables in this database", (("schema", "CREATE"),)),
+    "open": ("create the lab's tables in this database", (("database", "OWNER"),
+                                                           ("schema", "CREATE"))),
+    "read": ("read the lab", (("ceiling_lab_schema", "SELECT"), ("imports", "SELECT"),
+                              ("readings", "SELECT"), ("machines", "SELECT"))),
     "save_machine": ("store a machine", (("machines", "INSERT"), ("machines", "UPDATE"))),
     "delete_machine": ("remove a machine", (("machines", "DELETE"),)),
     "save_site": ("store the site", (("site", "DELETE"), ("site", "INSERT"))),
@@ -221,7 +225,12 @@ _ACTIONS = {
     "change": (("machines", "INSERT"), ("imports", "INSERT"), ("readings", "INSERT")),
     "remove_machines": (("machines", "DELETE"),),
     "remove_imports": (("imports", "DELETE"),),
+    "change_site": (("site", "INSERT"), ("site", "DELETE")),
 }
+
+
+class _LostConnectionError(InputError):
+    """The connection was lost in the middle of a read (the read may be tried again)."""
 
 
 def is_server_location(location: object) -> bool:
@@ -374,7 +383,9 @@ class PostgresStore(Store):
         try:
             connection = psycopg.connect(
                 self._url, autocommit=True, connect_timeout=CONNECT_TIMEOUT_S,
-                application_name="ceiling-lab", keepalives=1, keepalives_idle=30,
+                application_name="ceiling-lab", client_encoding="UTF8",
+                # doubles come back in their shortest exact form whatever the server's default
+                options="-c extra_float_digits=3", keepalives=1, keepalives_idle=30,
                 keepalives_interval=10, keepalives_count=3)
         except psycopg.OperationalError as error:
             raise self._connect_fault(error) from None
@@ -410,11 +421,17 @@ class PostgresStore(Store):
 
     def _refusal(self, operation: str) -> InputError:
         """The message for a refused operation, naming the rights the account lacks."""
-        words, needs = _NEEDS[operation]
+        words, needs = _NEEDS.get(operation, _NEEDS["read"])
         missing = []
         with contextlib.suppress(psycopg.Error, InputError):
             connection = self._connect()
             for table, privilege in needs:
+                if table == "database":
+                    if not connection.execute(
+                            "SELECT pg_has_role(current_user, datdba, 'MEMBER') FROM pg_database "
+                            "WHERE datname = current_database()").fetchone()[0]:
+                        missing.append("ownership of the database (its keeper's)")
+                    continue
                 if table == "schema":
                     allowed = connection.execute(
                         "SELECT has_schema_privilege(current_schema(), 'CREATE')").fetchone()[0]
@@ -452,26 +469,38 @@ class PostgresStore(Store):
 
     def _run(self, work: Callable[[psycopg.Connection], _Result], operation: str,
              write: bool = True,
-             settle: Callable[[psycopg.Connection], _Result | None] | None = None) -> _Result:
-        """Run ``work`` (in one transaction when it writes); a lost connection is opened again
-        and the work repeated once. ``settle`` looks, before the repeat, for what the lost try
-        may have stored after all (an import committed just before the connection broke)."""
+             on_commit: Callable[[psycopg.Connection], _Result] | None = None) -> _Result:
+        """Run ``work`` (in one transaction when it writes) and return what it returns.
+
+        A connection lost before the work is done is opened again and the work repeated once.
+        A connection lost while a write was being committed is opened again and the server
+        asked whether that transaction committed (its id was noted at the start): if it did,
+        the work is not repeated (nothing is stored twice) and ``on_commit`` gives the result
+        from what was stored; without ``on_commit`` the user is told the change was stored.
+        """
         with self._lock:
             for attempt in (1, 2):
                 connection = self._connect()
+                transaction_id = None
                 try:
-                    if attempt == 2 and settle is not None:
-                        done = settle(connection)
-                        if done is not None:
-                            return done
                     if not write:
                         return work(connection)
                     with connection.transaction():
+                        transaction_id = connection.execute(
+                            "SELECT pg_current_xact_id()::text").fetchone()[0]
                         return work(connection)
                 except psycopg.OperationalError as error:
                     if not (connection.closed or connection.broken):
                         raise self._fault(error, operation) from None
                     self._connection = None
+                    if transaction_id is not None and \
+                            self._committed_after_loss(transaction_id):
+                        if on_commit is None:
+                            raise InputError(
+                                f"{self._where}: the connection to the lab server was lost just "
+                                "as this change was stored; it was stored. Reload to see "
+                                "it") from None
+                        return on_commit(self._connect())
                     if attempt == 2:
                         raise InputError(
                             f"{self._where}: the connection to the lab server was lost twice "
@@ -480,6 +509,21 @@ class PostgresStore(Store):
                 except psycopg.Error as error:
                     raise self._fault(error, operation) from None
         raise AssertionError("unreachable")
+
+    def _committed_after_loss(self, transaction_id: str, wait_s: float = 10.0) -> bool:
+        """Whether a transaction of a lost connection committed (asked on a new connection;
+        one still in progress is waited for, as the server ends it when it sees the loss)."""
+        deadline = time.monotonic() + wait_s
+        while True:
+            try:
+                status = self._connect().execute("SELECT pg_xact_status(%s::xid8)",
+                                                  (transaction_id,)).fetchone()[0]
+            except psycopg.Error:
+                self._connection = None
+                return False
+            if status != "in progress" or time.monotonic() > deadline:
+                return status == "committed"
+            time.sleep(0.2)
 
     def _query(self, statement: str | sql.Composable,
                parameters: Sequence[object] = ()) -> list[tuple]:
@@ -508,6 +552,15 @@ class PostgresStore(Store):
                     connection = self._connect()
             try:
                 yield
+            except psycopg.Error as error:
+                with contextlib.suppress(psycopg.Error):
+                    connection.execute("ROLLBACK")
+                if connection.closed or connection.broken:
+                    self._connection = None
+                    raise _LostConnectionError(
+                        f"{self._where}: the connection to the lab server was lost while "
+                        f"reading ({self._scrub(error)}); try again") from None
+                raise self._fault(error, "read") from None
             except BaseException:
                 with contextlib.suppress(psycopg.Error):
                     connection.execute("ROLLBACK")
@@ -526,7 +579,12 @@ class PostgresStore(Store):
             self._account = connection.execute("SELECT current_user").fetchone()[0]
             exists = connection.execute(
                 "SELECT to_regclass('ceiling_lab_schema') IS NOT NULL").fetchone()[0]
+            owner = connection.execute(
+                "SELECT pg_has_role(current_user, datdba, 'MEMBER') FROM pg_database "
+                "WHERE datname = current_database()").fetchone()[0]
             if not exists:
+                if not owner:  # PostgreSQL before 15 lets every account create tables
+                    raise self._refusal("open")
                 others = connection.execute(
                     "SELECT count(*) FROM pg_tables WHERE schemaname = current_schema()"
                 ).fetchone()[0]
@@ -543,6 +601,9 @@ class PostgresStore(Store):
                                    (SCHEMA_VERSION,))
                 _grant(connection)
                 return
+            if not connection.execute(
+                    "SELECT has_table_privilege('ceiling_lab_schema', 'SELECT')").fetchone()[0]:
+                raise self._refusal("read")
             version = int(connection.execute(
                 "SELECT version FROM ceiling_lab_schema").fetchone()[0])
             if version > SCHEMA_VERSION:
@@ -555,9 +616,10 @@ class PostgresStore(Store):
                         connection.execute(statement)
                 connection.execute("UPDATE ceiling_lab_schema SET version = %s",
                                    (SCHEMA_VERSION,))
+            if owner:  # group roles made after the lab was created get their rights too
                 _grant(connection)
 
-        self._run(work, "open")
+        self._run(work, "open", on_commit=_nothing)
 
     # --- machines and site ---------------------------------------------------------------------
     def save_machine(self, machine: Machine, demo: bool = False) -> None:
@@ -567,12 +629,13 @@ class PostgresStore(Store):
         if len(restored) != 1 or restored[0].id != machine.id:
             raise InputError(f"machine '{machine.id}': it cannot be written as a machines file")
         self._run(lambda connection: _save_machine(connection, machine, text, demo),
-                  "save_machine")
+                  "save_machine", on_commit=_nothing)
 
     def delete_machine(self, machine_id: str) -> bool:
         """Remove a machine; its readings stay. Returns whether it was in the store."""
         return self._run(lambda connection: connection.execute(
-            "DELETE FROM machines WHERE id = %s", (machine_id,)).rowcount > 0, "delete_machine")
+            "DELETE FROM machines WHERE id = %s", (machine_id,)).rowcount > 0, "delete_machine",
+            on_commit=_removed)
 
     def machines(self) -> MachineFile:
         """The site and the machines, in the order they were first saved."""
@@ -590,12 +653,13 @@ class PostgresStore(Store):
         site_from_table(spec, "site")  # validates
 
         def work(connection: psycopg.Connection) -> None:
+            connection.execute("LOCK TABLE site IN SHARE ROW EXCLUSIVE MODE")  # one at a time
             connection.execute("DELETE FROM site")
             with connection.cursor() as cursor:
                 cursor.executemany("INSERT INTO site (key, value, is_demo) VALUES (%s, %s, %s)",
                                    [(key, value, bool(demo)) for key, value in spec.items()])
 
-        self._run(work, "save_site")
+        self._run(work, "save_site", on_commit=_nothing)
 
     # --- imports -------------------------------------------------------------------------------
     def import_readings(self, frame: pd.DataFrame, name: str, source: str = "",
@@ -620,14 +684,18 @@ class PostgresStore(Store):
                 _copy(connection, "environment", _ENVIRONMENT_SQL, environment_blocks(import_id))
             return import_id
 
-        def settle(connection: psycopg.Connection) -> int | None:
+        def stored(connection: psycopg.Connection) -> int:
             found = connection.execute(
                 "SELECT id FROM imports WHERE created_at = %s AND name = %s AND source = %s "
                 "AND rows = %s AND saved_by = current_user",
                 (meta["created_at"], name, source, prepared.rows)).fetchone()
-            return None if found is None else int(found[0])
+            if found is None:
+                raise InputError(f"{self._where}: the connection was lost as the readings were "
+                                 "stored; they were stored, but cannot be found again. Reload "
+                                 "the imports list to see them")
+            return int(found[0])
 
-        import_id = self._run(work, "import_readings", settle=settle)
+        import_id = self._run(work, "import_readings", on_commit=stored)
         self._derive_import(import_id, prepared, str(meta["created_at"]))
         return import_id
 
@@ -648,6 +716,16 @@ class PostgresStore(Store):
     def _read_table(self, table: str, columns: Sequence[str], floats: Sequence[str],
                     filters: Sequence[tuple[str, list | None]],
                     dtype_column: str) -> pd.DataFrame:
+        """Rows of a table (see :meth:`_read_table_once`), read again once when the
+        connection is lost half-way."""
+        try:
+            return self._read_table_once(table, columns, floats, filters, dtype_column)
+        except _LostConnectionError:
+            return self._read_table_once(table, columns, floats, filters, dtype_column)
+
+    def _read_table_once(self, table: str, columns: Sequence[str], floats: Sequence[str],
+                         filters: Sequence[tuple[str, list | None]],
+                         dtype_column: str) -> pd.DataFrame:
         """Rows of a table, one ``COPY ... TO STDOUT`` per import (memory stays one import's
         text at a time), read by pyarrow's CSV reader."""
         sql_columns = [_TIME_NS if column == TIME else column for column in columns]
@@ -751,7 +829,7 @@ class PostgresStore(Store):
             return connection.execute("DELETE FROM imports WHERE id = %s",
                                       (int(import_id),)).rowcount > 0
 
-        return self._run(work, "delete_import")
+        return self._run(work, "delete_import", on_commit=_removed)
 
     # --- demonstration data, settings and counts -----------------------------------------------
     def remove_demo(self) -> dict[str, int]:
@@ -777,7 +855,7 @@ class PostgresStore(Store):
         self._run(lambda connection: connection.execute(
             "INSERT INTO settings (key, value) VALUES (%s, %s) "
             "ON CONFLICT (key) DO UPDATE SET value = excluded.value", (key, value)),
-            "save_setting")
+            "save_setting", on_commit=_nothing)
 
     def has_demo(self) -> bool:
         """Whether any demonstration machine or import is stored (a demo site alone is not)."""
@@ -846,6 +924,15 @@ class PostgresStore(Store):
 
 
 # --- writing -------------------------------------------------------------------------------------
+def _nothing(connection: psycopg.Connection) -> None:  # noqa: ARG001 - an on_commit of _run
+    """What a committed write that returns nothing returns."""
+
+
+def _removed(connection: psycopg.Connection) -> bool:  # noqa: ARG001 - an on_commit of _run
+    """What a committed removal returns: it removed."""
+    return True
+
+
 def _grant(connection: psycopg.Connection) -> None:
     """Give the group roles that exist on the server their rights on the lab's tables."""
     existing = {row[0] for row in connection.execute(
