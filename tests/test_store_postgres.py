@@ -216,16 +216,16 @@ def test_a_connection_lost_while_reading_is_read_again(pg_cluster, pg_lab, monke
     with open_store(pg_lab) as store:
         for number, frame in enumerate(frames):
             store.import_readings(frame, f"part {number}")
-        real_read = server_module.pcsv.read_csv
+        real_stream = server_module._CopyStream.__init__
         cuts = []
 
-        def read_then_cut(*args, **kwargs):
-            if not cuts:  # after the first import's rows arrived, before the second's
+        def cut_as_the_rows_start_coming(self, copy):
+            if not cuts:  # once: the read, asked again, goes through
                 cuts.append(1)
                 terminate_other_connections(pg_cluster, pg_lab)
-            return real_read(*args, **kwargs)
+            real_stream(self, copy)
 
-        monkeypatch.setattr(server_module.pcsv, "read_csv", read_then_cut)
+        monkeypatch.setattr(server_module._CopyStream, "__init__", cut_as_the_rows_start_coming)
         back = store.readings()
         assert cuts == [1]
         pd.testing.assert_frame_equal(back.drop(columns=IMPORT_ID),
