@@ -29,6 +29,7 @@ with st.sidebar:
     counts = store.counts()
     st.markdown(f"**{shared.plain(shared.lab_words())}** · {counts['machines']} machines "
                 f"· {counts['readings']:,} readings")
+    shared.follow_lab()
     if shared.active_lab() == "demo":
         st.caption("Invented data to explore, kept apart from your own lab. Switch to "
                    "**My lab** above to start yours; the demonstration lab stays here.")

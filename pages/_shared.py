@@ -5,6 +5,7 @@ Pages call these and the engine; nothing here computes physics.
 
 from __future__ import annotations
 
+import hashlib
 import math
 import re
 
@@ -154,10 +155,14 @@ def active_lab() -> str:
 
 
 def lab_path() -> str:
-    """The open lab's location (the store file, or the server lab's URL): a cache key of the
-    loaders, never shown."""
-    return (str(demo_lab_path(default_store_path())) if active_lab() == "demo"
-            else _own_location())
+    """The open lab's cache key for the loaders: its store file, or for a server lab a digest
+    of its URL (so that no password is kept even in a cache key). Never shown."""
+    if active_lab() == "demo":
+        return str(demo_lab_path(default_store_path()))
+    location = _own_location()
+    if is_server_location(location):
+        return "server-" + hashlib.sha256(location.encode("utf-8")).hexdigest()[:24]
+    return location
 
 
 def store() -> Store:
@@ -194,6 +199,33 @@ def lab_words() -> str:
         words = f"Shared lab: {current.location}" + (f", as {account}" if account else "")
         return words + ("" if current.may("change") else " (read-only)")
     return LAB_NAMES["own"]
+
+
+#: Seconds between two looks at a shared lab for what other benches saved.
+FOLLOW_EVERY_S = 15
+
+
+def follow_lab() -> None:
+    """For a lab on a server: look every :data:`FOLLOW_EVERY_S` seconds whether another bench
+    saved (or removed) something, and run the page again when one did, so that the teacher's
+    Compare page shows every bench's readings as they are saved. A switch in the sidebar turns
+    it off."""
+    if active_lab() != "own" or not is_server_location(_own_location()):
+        return
+    following = st.toggle("Show new readings as benches save them", value=True,
+                          key="lab-follow", help="Looks at the shared lab every "
+                          f"{FOLLOW_EVERY_S} s; turn it off to keep the page still.")
+    st.session_state["lab-seen"] = store_signature()
+    if following:
+        _look_for_changes()
+
+
+@st.fragment(run_every=FOLLOW_EVERY_S)
+def _look_for_changes() -> None:
+    signature = store_signature()
+    if st.session_state.get("lab-seen") != signature:
+        st.session_state["lab-seen"] = signature
+        st.rerun(scope="app")
 
 
 def open_lab(name: str) -> None:
@@ -367,7 +399,13 @@ def site_words(site) -> str:
 
 
 def site_form(current_store: Store, site) -> None:
-    """The form for the lab's air: altitude or barometer reading, and temperature."""
+    """The form for the lab's air: altitude or barometer reading, and temperature (for an
+    account that may not set it, the air in words)."""
+    if not current_store.may("change_site"):
+        st.markdown(plain(site_words(site)))
+        st.caption("In a shared lab the lab's keeper sets the air; every bench's ceilings use "
+                   "it.")
+        return
     st.markdown("The ceiling scales with the density of the air. Give where the lab is; "
                 "readings that carry their own pressure and temperature use theirs.")
     spec = dict(site.spec)
@@ -564,16 +602,18 @@ def carrier_choices() -> tuple[str, ...]:
     return CARRIER_KINDS
 
 
-def flash(message: str) -> None:
-    """Keep a success message for the next run (a save is followed by st.rerun)."""
-    st.session_state["_flash"] = message
+def flash(message: str, error: bool = False) -> None:
+    """Keep a message for the next run (a save is followed by st.rerun): a success, or an
+    error (a callback's, which cannot show one itself)."""
+    st.session_state["_flash"] = (message, error)
 
 
 def show_flash() -> None:
     """Show and forget the message kept by :func:`flash`."""
-    message = st.session_state.pop("_flash", None)
-    if message:
-        st.success(plain(message))
+    kept = st.session_state.pop("_flash", None)
+    if kept:
+        message, error = kept if isinstance(kept, tuple) else (kept, False)
+        (st.error if error else st.success)(plain(message))
 
 
 @st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=16)

@@ -83,7 +83,12 @@ class _NothingToDoError(Exception):
 
 def _delete(machine) -> None:
     """Delete a machine (its readings stay) and keep it for the undo button."""
-    store.delete_machine(machine.id)
+    try:
+        store.delete_machine(machine.id)
+    except InputError as error:  # a callback: shown on the run that follows
+        st.session_state.pop("machines-confirm-delete", None)
+        shared.flash(str(error), error=True)
+        return
     st.session_state["machines-undo"] = machine
     st.session_state.pop("machines-confirm-delete", None)
     st.session_state["machines-edit"] = NEW
@@ -207,7 +212,8 @@ with edit_tab:
             if current is None:
                 shared.clear_widgets(NEW)  # the next new machine starts from a clean form
             st.rerun()
-        if current and delete_column.button("Delete machine…", key=f"machines-delete-{chosen}"):
+        if current and store.may("remove_machines") and \
+                delete_column.button("Delete machine…", key=f"machines-delete-{chosen}"):
             st.session_state["machines-confirm-delete"] = current.id
         if current and st.session_state.get("machines-confirm-delete") == current.id:
             derived = shared.load_derived(shared.DASHBOARD_COLUMNS)  # shared, no copy

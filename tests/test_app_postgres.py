@@ -65,12 +65,17 @@ def test_the_sidebar_names_the_server_lab_and_the_account(as_keeper, pg_cluster)
     app = open_page()
     assert (f"Shared lab: database '{lab_name(as_keeper)}' on 127.0.0.1:{pg_cluster.port}, as "
             "lab_keeper") in texts(app)
+    assert app.toggle(key="lab-follow").value is True  # new readings shown as they come
 
 
 def test_compare_shows_every_benchs_readings(as_keeper):
     app = open_page("pages/compare.py")
     assert not app.error, [shown(item) for item in app.error]
-    assert app.get("plotly_chart"), "the comparison charts are drawn"
+    assert len(app.get("plotly_chart")) == 4, "the comparison charts are drawn"
+    with open_store(as_keeper) as store:
+        labels = [machine.label for machine in store.machines().machines]
+    shown_text = everything_shown(app)
+    assert all(label in shown_text for label in labels), labels
 
 
 def test_a_viewer_sees_the_lab_and_no_way_to_change_it(as_viewer, pg_cluster):

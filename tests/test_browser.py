@@ -370,6 +370,11 @@ def test_the_classroom_path_on_a_shared_server_lab(browser, tmp_path, pg_cluster
             _see(page, "Imported 3 machines")
             _shot(page, "classroom-1-keeper")
 
+            # The projector shows Compare before the bench saves anything ...
+            projector = browser.new_page(viewport={"width": 1400, "height": 1800})
+            _open(projector, f"{viewer_url}/compare")
+            assert "Bench 2 belt" not in projector.locator("body").inner_text()
+
             _open(page, f"{bench_url}/readings")
             _see(page, "as lab_bench")
             _upload(page, readings)
@@ -378,11 +383,14 @@ def test_the_classroom_path_on_a_shared_server_lab(browser, tmp_path, pg_cluster
             _no_errors(page)
             _shot(page, "classroom-2-bench")
 
-            _open(page, f"{viewer_url}/compare")
-            page.wait_for_selector("[data-testid='stPlotlyChart'] .main-svg", timeout=60_000)
-            body = page.locator("body").inner_text()
-            assert "Bench 2 belt" in body and "(read-only)" in body
-            _shot(page, "classroom-3-projector")
+            # ... and shows the bench's readings by itself, without a reload.
+            _see(projector, "Bench 2 belt")
+            projector.wait_for_selector("[data-testid='stPlotlyChart'] .main-svg",
+                                        timeout=60_000)
+            body = projector.locator("body").inner_text()
+            assert "(read-only)" in body
+            _shot(projector, "classroom-3-projector")
+            projector.close()
             _open(page, f"{viewer_url}/readings")
             _see(page, "This lab is open read-only")
             assert page.locator("[data-testid='stFileUploader']").count() == 0

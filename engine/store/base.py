@@ -80,9 +80,10 @@ class Store(abc.ABC):
         return str(self.path)
 
     def may(self, action: str) -> bool:  # noqa: ARG002 - one user owns an embedded store
-        """Whether the account may do ``action``: ``"change"`` (add or change machines, imports,
-        the site and settings), ``"remove_machines"`` or ``"remove_imports"``. Always true for
-        the embedded store; a shared server's accounts may have fewer rights."""
+        """Whether the account may do ``action``: ``"change"`` (add or change machines, imports
+        and settings), ``"change_site"`` (the lab's air), ``"remove_machines"`` or
+        ``"remove_imports"``. Always true for the embedded store; a shared server's accounts may
+        have fewer rights."""
         return True
 
     @property
