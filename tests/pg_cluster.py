@@ -13,6 +13,7 @@ from the README itself, so that the documented set-up is the tested one).
 
 from __future__ import annotations
 
+import atexit
 import contextlib
 import glob
 import os
@@ -161,7 +162,10 @@ def start_cluster(durable: bool = False) -> Cluster:
             pytest.fail(f"PostgreSQL's server is not installed and {REQUIRE_ENV_VAR}=1")
         pytest.skip("PostgreSQL's server is not installed")
     as_user = None
-    folder = Path(tempfile.mkdtemp(prefix="ceiling-lab-pg-"))
+    # /tmp: the server's own user must be able to reach the folder (a TMPDIR under root's
+    # home would not be).
+    folder = Path(tempfile.mkdtemp(prefix="ceiling-lab-pg-",
+                                   dir="/tmp" if Path("/tmp").is_dir() else None))
     if os.geteuid() == 0:
         as_user = _UNPRIVILEGED
         shutil.chown(folder, user=as_user)
@@ -203,6 +207,7 @@ def start_cluster(durable: bool = False) -> Cluster:
 @contextlib.contextmanager
 def running_cluster(durable: bool = False) -> Iterator[Cluster]:
     cluster = start_cluster(durable)
+    atexit.register(cluster.stop, "immediate")  # also when the run is cut short
     try:
         yield cluster
     finally:

@@ -395,19 +395,15 @@ def read_until(process, prefix, timeout_s=60.0):
     raise AssertionError(f"no {prefix!r} from the worker in {timeout_s} s")
 
 
-def test_six_benches_importing_at_once_lose_nothing(pg_cluster, tmp_path):
-    """Six processes, each a bench account, on a lab none has opened before: they race to make
-    the tables too (the keeper's account, as a teacher starting every bench at once would)."""
-    url = pg_cluster.url("lab_keeper", pg_cluster.new_lab())
-    go_file = tmp_path / "go"
-    sizes = {f"bench-{number}": (20_000 + 7_000 * number, 60 + number) for number in range(6)}
+def run_workers(url, jobs, go_file):
+    """Worker processes importing at once: each opens the lab, waits for ``go_file``, imports."""
     workers = [run_worker(url, "import", name, str(rows), str(seed), str(go_file))
-               for name, (rows, seed) in sizes.items()]
+               for name, rows, seed in jobs]
     try:
         for worker in workers:
             read_until(worker, "OPEN")
         go_file.touch()
-        outputs = [worker.communicate(timeout=120) for worker in workers]
+        outputs = [worker.communicate(timeout=180) for worker in workers]
     finally:
         for worker in workers:
             if worker.poll() is None:
@@ -415,17 +411,34 @@ def test_six_benches_importing_at_once_lose_nothing(pg_cluster, tmp_path):
     for worker, (out, err) in zip(workers, outputs, strict=True):
         assert worker.returncode == 0, err
         assert "DONE" in out
-    with open_store(url) as store:
+
+
+def test_six_benches_importing_at_once_lose_nothing(pg_cluster, pg_lab, tmp_path):
+    """Six processes, each with the bench account, saving at once into one lab."""
+    jobs = [(f"bench-{number}", 20_000 + 7_000 * number, 60 + number) for number in range(6)]
+    run_workers(url_of(pg_cluster, "lab_bench", pg_lab), jobs, tmp_path / "go")
+    with open_store(pg_lab) as store:
         imports = store.imports().set_index("name")
-        assert imports["rows"].to_dict() == {name: rows for name, (rows, _) in sizes.items()}
-        assert store.counts()["readings"] == sum(rows for rows, _ in sizes.values())
-        for name, (rows, seed) in sizes.items():
+        assert imports["rows"].to_dict() == {name: rows for name, rows, _ in jobs}
+        assert store.counts()["readings"] == sum(rows for _, rows, _ in jobs)
+        for name, rows, seed in jobs:
             pd.testing.assert_frame_equal(
                 store.readings(import_ids=[imports.loc[name, "id"]]).drop(columns=IMPORT_ID),
                 make_readings(rows, seed), check_exact=True)
 
 
-@pytest.mark.parametrize("kill_after", ["READY", "CHUNK 1", "CHUNK 2"])
+def test_keepers_opening_a_new_lab_at_once_make_it_once(pg_cluster, tmp_path):
+    """Three programs of the keeper open a lab nobody has opened yet and import at once: the
+    tables are made once (an advisory lock), and every import is kept."""
+    url = pg_cluster.url("lab_keeper", pg_cluster.new_lab())
+    jobs = [(f"start-{number}", 3_000, 70 + number) for number in range(3)]
+    run_workers(url, jobs, tmp_path / "go")
+    with open_store(url) as store:
+        assert sorted(store.imports()["name"]) == [name for name, _, _ in jobs]
+        assert store.schema_version == SCHEMA_VERSION
+
+
+@pytest.mark.parametrize("kill_after", ["CHUNK 1", "CHUNK 2"])
 def test_a_bench_killed_half_way_leaves_no_trace(pg_lab, kill_after):
     worker = run_worker(pg_lab, "interrupted", "1000", "300000")
     try:
