@@ -88,8 +88,10 @@ def _show(args: argparse.Namespace) -> int:
         return 0
     who = f" as {figures['account']}" if figures["account"] else ""
     print(f"Lab: {figures['lab']}{who} (schema {figures['schema_version']})")
-    print(f"{counts['machines']} machines, {counts['imports']} imports, "
-          f"{counts['sessions']} sessions, {counts['readings']:,} readings")
+    print(", ".join(_count(counts[key], key[:-1]) for key in ("machines", "imports", "sessions",
+                                                              "readings")))
+    if figures["kind"] == "file":
+        return 0
     rights = [name for name, allowed in (("add and change", figures["may_change"]),
                                          ("remove imports", figures["may_remove_imports"]),
                                          ("remove machines", figures["may_remove_machines"]))
@@ -147,10 +149,17 @@ def _read_bundle(path: str) -> bytes:
 def _restore(args: argparse.Namespace) -> int:
     data = _read_bundle(args.file)
     with open_store() as store:
+        already = store.bundle_preview(data)["already"]
         new_ids = store.import_bundle(data, replace_machines=args.replace_machines)
         where = store.location
-    print(f"added {len(new_ids)} imports from {args.file} to {where}")
+    print(f"added {_count(len(new_ids), 'import')} from {args.file} to {where}"
+          + (f" ({_count(already, 'import')} of the bundle already there, not added again)"
+             if already else ""))
     return 0
+
+
+def _count(number: int, word: str) -> str:
+    return f"{number:,} {word}{'' if number == 1 else 's'}"
 
 
 def _copy(args: argparse.Namespace) -> int:
@@ -158,7 +167,11 @@ def _copy(args: argparse.Namespace) -> int:
         data = source.export_bundle()
         origin = source.location
     with open_store(args.target) as target:
+        preview = target.bundle_preview(data)
         new_ids = target.import_bundle(data, replace_machines=args.replace_machines)
         where = target.location
-    print(f"copied {len(new_ids)} imports and every machine from {origin} to {where}")
+    machines = _count(len(preview["machines"]), "machine")
+    print(f"copied {_count(len(new_ids), 'import')} and {machines} from {origin} to {where}"
+          + (f" ({_count(preview['already'], 'import')} already there, not added again)"
+             if preview["already"] else ""))
     return 0

@@ -127,19 +127,28 @@ def _own_location() -> str:
 
 
 def _own_store() -> Store:
-    """The user's own lab, opened once per app process; a lab that cannot be opened (a server
-    that cannot be reached, a damaged file) stops the page with what to do, not a traceback."""
-    try:
-        return _open_store(_own_location())
-    except InputError as error:
-        show_error(error)
-        st.caption("Fix what the message says and reload the page. The demonstration lab works "
-                   "meanwhile: choose it in the sidebar.")
-        if st.button("Open the demonstration lab", key="lab-open-demo-instead"):
-            st.session_state[LAB_KEY] = "demo"
-            st.rerun()
-        st.stop()
-        raise  # st.stop ends the run; this keeps the type checkers content
+    """The user's own lab, opened once per app process (an error opening it reaches the app's
+    frame, which shows it: :func:`lab_failed`)."""
+    return _open_store(_own_location())
+
+
+def lab_failed(error: InputError) -> None:
+    """What the app shows when the open lab cannot be opened or read: the message, what to do,
+    and a way to the demonstration lab meanwhile."""
+    show_error(error)
+    if active_lab_chosen() == "demo":
+        return
+    st.markdown("Fix what the message says, then reload the page. A lab on a server may be "
+                "down or out of reach for a moment: reload when it is back. Meanwhile the "
+                "demonstration lab works.")
+    if st.button("Open the demonstration lab", key="lab-open-demo-instead"):
+        st.session_state[LAB_KEY] = "demo"
+        st.rerun()
+
+
+def active_lab_chosen() -> str | None:
+    """The lab chosen in this browser session, if one was (no store is opened to tell)."""
+    return st.session_state.get(LAB_KEY)
 
 
 def active_lab() -> str:
@@ -166,10 +175,17 @@ def lab_path() -> str:
 
 
 def store() -> Store:
-    """The open lab's store (one shared, thread-safe connection per lab)."""
-    if active_lab() == "demo":
-        return _open_demo_store(lab_path())
-    return _own_store()
+    """The open lab's store (one shared, thread-safe connection per lab). A lab that cannot be
+    opened stops the page with :func:`lab_failed` (the app's frame does the same for errors
+    later in a page)."""
+    try:
+        if active_lab() == "demo":
+            return _open_demo_store(lab_path())
+        return _own_store()
+    except InputError as error:
+        lab_failed(error)
+        st.stop()
+        raise  # st.stop ends the run
 
 
 def may_change() -> bool:

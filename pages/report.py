@@ -81,10 +81,14 @@ bundle = (st.file_uploader("Restore a lab bundle", type=["zip"], key="report-bun
 if bundle is not None:
     data = bundle.getvalue()
     try:
-        replaced = store.bundle_preview(data)["replaced"]
+        preview = store.bundle_preview(data)
+        replaced = preview["replaced"]
     except InputError as error:
         replaced = None
         shared.show_error(error)
+    if replaced is not None and preview["already"]:
+        st.info(f"{preview['already']} of the bundle's {preview['imports']} imports are in this "
+                "lab already (same name, file and time saved): they are not added again.")
     if replaced is not None:
         confirmed = True
         if replaced:  # said before anything is replaced, as a machines-file import does

@@ -116,3 +116,24 @@ def test_a_server_that_cannot_be_reached_is_a_message_not_a_traceback(monkeypatc
         assert "some-secret-pw" not in everything_shown(app)
     finally:
         _open_as(monkeypatch, "")
+
+
+def test_a_server_lost_while_the_app_is_open_is_a_message(as_keeper, pg_cluster, monkeypatch):
+    import psycopg
+
+    app = open_page()  # through the app's frame, as a browser runs every page
+    assert not app.error
+
+    def server_down(*args, **kwargs):
+        raise psycopg.OperationalError("connection to server failed: Connection refused")
+
+    monkeypatch.setattr(psycopg, "connect", server_down)
+    pg_cluster.psql("SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
+                    f"WHERE datname = '{lab_name(as_keeper)}' AND pid <> pg_backend_pid()")
+    app.run()
+    assert not app.exception, [shown(item) for item in app.exception]
+    assert app.error and "the lab server cannot be reached" in shown(app.error[0])
+    assert any(button.key == "lab-open-demo-instead" for button in app.button)
+    monkeypatch.undo()
+    app.run()  # the server is back: the next run reconnects
+    assert not app.exception and not app.error

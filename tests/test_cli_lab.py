@@ -43,7 +43,7 @@ def test_a_bench_adds_readings_and_moves_the_lab(lab_location, capsys, monkeypat
     assert run(capsys, "lab", "export", str(bundle))[0] == 0
     other = str(tmp_path / "copy.sqlite3")
     status, out, err = run(capsys, "lab", "copy", "--to", other)
-    assert status == 0 and "copied 1 imports" in out, err
+    assert status == 0 and "copied 1 import and 0 machines" in out, err
     with open_store(location) as first, open_store(other) as second:
         pd.testing.assert_frame_equal(first.readings().drop(columns=IMPORT_ID),
                                       second.readings().drop(columns=IMPORT_ID),
@@ -51,9 +51,12 @@ def test_a_bench_adds_readings_and_moves_the_lab(lab_location, capsys, monkeypat
         pd.testing.assert_frame_equal(first.environment().drop(columns=IMPORT_ID),
                                       second.environment().drop(columns=IMPORT_ID),
                                       check_exact=True)
-    assert run(capsys, "lab", "restore", str(bundle))[0] == 0
-    with open_store(location) as store:
-        assert store.counts()["imports"] == 2
+    status, out, err = run(capsys, "lab", "restore", str(bundle))  # the same lab: nothing new
+    assert status == 0 and "added 0 imports" in out and "1 import of the bundle already" in out
+    status, out, err = run(capsys, "lab", "copy", "--to", other)  # again: nothing twice
+    assert "copied 0 imports" in out and "1 import already there" in out
+    with open_store(location) as store, open_store(other) as second:
+        assert store.counts()["imports"] == 1 and second.counts()["imports"] == 1
 
 
 def test_a_viewer_is_refused_with_the_right_it_lacks(pg_cluster, pg_lab, capsys, monkeypatch):

@@ -592,12 +592,19 @@ def test_a_bundle_reimports_to_identical_readings(lab_location, store, machine_f
         assert other.imports()["name"].tolist() == ["aware"]
 
 
-def test_a_bundle_of_chosen_imports_into_the_same_store(store, machine_file):
+def test_a_bundle_of_chosen_imports_back_after_removal_and_never_twice(store, machine_file):
     first, second, aware, naive = filled_store(store, machine_file)
     data = store.export_bundle(import_ids=[second])
-    (again,) = store.import_bundle(data)
+    assert store.bundle_preview(data)["already"] == 1
+    assert store.import_bundle(data) == []  # in the lab already: nothing added twice
+    assert store.counts()["imports"] == 2
+    store.delete_import(second)
+    assert store.bundle_preview(data)["already"] == 0
+    (again,) = store.import_bundle(data)  # the removed import comes back
     pd.testing.assert_frame_equal(stored_readings(store, import_ids=[again]), naive,
                                   check_exact=True)
+    whole = store.export_bundle()
+    assert store.import_bundle(whole) == [] and store.counts()["imports"] == 2
     with pytest.raises(InputError, match="not in the store"):
         store.export_bundle(import_ids=[12345])
 

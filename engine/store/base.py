@@ -305,7 +305,8 @@ class Store(abc.ABC):
         dict
             ``machines`` (the bundle's machine ids), ``replaced`` (ids of stored machines the
             bundle describes differently, which :meth:`import_bundle` would replace),
-            ``imports`` and ``readings`` (as its manifest counts them).
+            ``imports`` and ``readings`` (as its manifest counts them), ``already`` (imports of
+            the bundle the lab holds already, which :meth:`import_bundle` skips).
 
         Raises
         ------
@@ -318,7 +319,13 @@ class Store(abc.ABC):
             texts = {machine.id: dump_machines([machine])
                      for machine in bundle.machine_file.machines}
             stored = self._stored_machine_texts()
+            imports = self.imports()
+            present = set(zip(imports["name"], imports["source"], imports["created_at"],
+                              imports["rows"].astype(int), strict=True))
+            from engine.store.bundle import _bundle_key
+
             return {"machines": list(texts),
+                    "already": sum(_bundle_key(entry) in present for entry in bundle.entries),
                     "replaced": [machine_id for machine_id, text in texts.items()
                                  if machine_id in stored and stored[machine_id] != text],
                     "imports": len(bundle.entries),
@@ -332,7 +339,9 @@ class Store(abc.ABC):
         only when ``replace_machines`` is true; otherwise nothing is imported and the error
         names them (:meth:`bundle_preview` lists them beforehand). A stored machine keeps its
         demonstration status whatever the bundle says; the bundle's site is taken only when
-        the store has none. Every import of the bundle becomes a new import. The readings are
+        the store has none. Every import of the bundle becomes a new import, except those the
+        lab holds already (same name, file, time stored and number of readings): restoring a
+        bundle twice, or copying a lab again, adds nothing twice. The readings are
         read and written in chunks (memory stays flat); an import holds at most
         :data:`engine.readings.MAX_ROWS` readings.
 
@@ -346,7 +355,7 @@ class Store(abc.ABC):
         Returns
         -------
         list of int
-            Ids of the new imports, in the bundle's order.
+            Ids of the new imports, in the bundle's order (those skipped left out).
 
         Raises
         ------

@@ -374,6 +374,12 @@ class BundleReader:
                                  f"({str(error)[:200]})") from None
 
 
+def _bundle_key(entry: Mapping) -> tuple:
+    """What tells an import of a bundle already in a lab: its name, source, time stored and
+    number of readings (the same as the imports table's columns)."""
+    return (entry["name"], entry["source"], entry["created_at"], int(entry["rows"]))
+
+
 def machines_replaced(stored: MachineFile, bundled: MachineFile) -> list[str]:
     """Ids of stored machines that a bundle's machine of the same id would change.
 

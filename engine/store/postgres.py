@@ -75,7 +75,7 @@ from engine.machines import (
     site_from_table,
 )
 from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store
-from engine.store.bundle import BundleReader
+from engine.store.bundle import BundleReader, _bundle_key
 from engine.store.frames import (
     _TEXT_DTYPE,
     _ids,
@@ -948,7 +948,9 @@ class PostgresStore(Store):
                             "INSERT INTO site (key, value, is_demo) VALUES (%s, %s, %s)",
                             [(key, value, bool(bundle.demo_site))
                              for key, value in machine_file.site.spec.items()])
-                return _insert_bundle(connection, bundle)
+                present = {tuple(row) for row in connection.execute(
+                    "SELECT name, source, created_at, rows FROM imports").fetchall()}
+                return _insert_bundle(connection, bundle, present)
 
             return self._run(work, "import_bundle")
 
@@ -1142,10 +1144,14 @@ def _copy(connection: psycopg.Connection, table: str, sql_columns: Sequence[str]
         copy.write(_BINARY_TRAILER)
 
 
-def _insert_bundle(connection: psycopg.Connection, bundle: BundleReader) -> list[int]:
-    """Insert a bundle's imports inside the caller's transaction, block by block."""
+def _insert_bundle(connection: psycopg.Connection, bundle: BundleReader,
+                   present: set[tuple]) -> list[int]:
+    """Insert a bundle's imports inside the caller's transaction, block by block. Imports
+    already in the lab (``present``: name, source, time stored and readings) are skipped."""
     new_ids: dict[int, int] = {}
     for entry in bundle.entries:
+        if _bundle_key(entry) in present:
+            continue
         has_environment = entry["environment_rows"] > 0
         new_ids[entry["id"]] = int(connection.execute(
             "INSERT INTO imports (name, source, created_at, is_demo, rows, machines, sessions, "
@@ -1163,6 +1169,8 @@ def _insert_bundle(connection: psycopg.Connection, bundle: BundleReader) -> list
             (False, "readings", READING_COLUMNS, _READING_FLOATS, _READING_SQL),
             (True, "environment", ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS, _ENVIRONMENT_SQL)):
         for entry, prepared in bundle.blocks(environment=environment):
+            if entry["id"] not in new_ids:
+                continue
             import_id = new_ids[entry["id"]]
             first = positions.get((environment, import_id), 0)
             blocks = _copy_blocks(prepared, columns, floats, f"bundle, import {entry['id']}",

@@ -54,7 +54,7 @@ from engine.store.base import (
     is_server_location,
     store_location,
 )
-from engine.store.bundle import BundleReader
+from engine.store.bundle import BundleReader, _bundle_key
 from engine.store.frames import (
     _TEXT_DTYPE,
     _ids,
@@ -526,7 +526,9 @@ class SQLiteStore(Store):
                         "INSERT INTO site (key, value, is_demo) VALUES (?, ?, ?)",
                         [(key, value, int(bundle.demo_site))
                          for key, value in machine_file.site.spec.items()])
-                return _insert_bundle(connection, bundle)
+                present = {tuple(row) for row in connection.execute(
+                    "SELECT name, source, created_at, rows FROM imports").fetchall()}
+                return _insert_bundle(connection, bundle, present)
 
             return self._write(work)
 
@@ -568,10 +570,14 @@ def _insert_import(connection: sqlite3.Connection, readings: _Prepared,
 
 
 
-def _insert_bundle(connection: sqlite3.Connection, bundle: BundleReader) -> list[int]:
-    """Insert a bundle's imports inside the caller's transaction, chunk by chunk."""
+def _insert_bundle(connection: sqlite3.Connection, bundle: BundleReader,
+                   present: set[tuple]) -> list[int]:
+    """Insert a bundle's imports inside the caller's transaction, chunk by chunk. Imports
+    already in the lab (``present``: name, source, time stored and readings) are skipped."""
     new_ids: dict[int, int] = {}
     for entry in bundle.entries:
+        if _bundle_key(entry) in present:
+            continue
         has_environment = entry["environment_rows"] > 0
         cursor = connection.execute(
             "INSERT INTO imports (name, source, created_at, is_demo, rows, machines, sessions, "
@@ -590,6 +596,8 @@ def _insert_bundle(connection: sqlite3.Connection, bundle: BundleReader) -> list
         marks = ", ".join("?" * (len(sql_columns) + 1))
         statement = f"INSERT INTO {table} ({names}) VALUES ({marks})"
         for entry, prepared in bundle.blocks(environment=environment):
+            if entry["id"] not in new_ids:
+                continue
             import_id = new_ids[entry["id"]]
             for rows in prepared.chunks(import_id, CHUNK_ROWS):
                 _insert_chunk(connection, statement, rows)
