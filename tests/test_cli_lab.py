@@ -66,7 +66,8 @@ def test_a_viewer_is_refused_with_the_right_it_lacks(pg_cluster, pg_lab, capsys,
     assert status == 0 and "only look (read-only)" in out and "as lab_viewer" in out
     status, out, err = run(capsys, "lab", "add", str(SAMPLE / "readings_belt.csv"))
     assert status == 2
-    assert err.startswith("error: ") and "'lab_viewer' may not store readings" in err
+    assert err.startswith("error: ")
+    assert "'lab_viewer' is read-only here (a viewer account), so it may not store readings" in err
     assert "INSERT right on the table 'imports'" in err
     assert pg_cluster.passwords["lab_viewer"] not in err + out
 

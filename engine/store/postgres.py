@@ -333,7 +333,7 @@ class PostgresStore(Store):
         self._connection: psycopg.Connection | None = None
         self._lock = threading.RLock()
         self._account = ""
-        self._rights: dict[str, bool] = {}
+        self._rights: dict[str, tuple[bool, float]] = {}
 
     # --- life cycle ----------------------------------------------------------------------------
     @property
@@ -377,14 +377,16 @@ class PostgresStore(Store):
         return f"PostgresStore({self._where!r})"
 
     def may(self, action: str) -> bool:
-        """Whether the account may ``"change"`` the lab (add machines, imports, the site),
-        ``"remove_machines"`` or ``"remove_imports"`` (those it saved)."""
-        if action not in self._rights:
+        """Whether the account may ``"change"`` the lab (add machines and imports),
+        ``"change_site"``, ``"remove_machines"`` or ``"remove_imports"`` (those it saved).
+        Asked of the server at most once a minute (rights seldom change)."""
+        asked = self._rights.get(action)
+        if asked is None or time.monotonic() - asked[1] > 60:
             needs = _ACTIONS[action]
-            self._rights[action] = all(self._query(
-                "SELECT has_table_privilege(%s, %s)", (table, privilege))[0][0]
-                for table, privilege in needs)
-        return self._rights[action]
+            allowed = all(self._query("SELECT has_table_privilege(%s, %s)",
+                                      (table, privilege))[0][0] for table, privilege in needs)
+            self._rights[action] = asked = (allowed, time.monotonic())
+        return asked[0]
 
     # --- connection, transactions and errors ---------------------------------------------------
     def _scrub(self, text: str) -> str:
@@ -466,15 +468,25 @@ class PostgresStore(Store):
                                              (table, privilege)).fetchone()[0]
                 if not allowed:
                     missing.append(f"the {privilege} right on the table '{table}'")
-        lacks = " and ".join(dict.fromkeys(missing)) or "a right this needs"
-        advice = ("the lab's keeper opens the lab once with this version of Ceiling Lab first"
-                  if operation == "open" else
-                  "benches add machines, readings and the site and remove the imports they "
-                  "saved; removing machines is for the lab's keeper; a viewer account only "
-                  "looks. Ask the lab's keeper if this account should have the right")
+        missing = list(dict.fromkeys(missing))
+        lacks = (" and ".join(missing[:2]) + (f" (and {len(missing) - 2} more)"
+                                              if len(missing) > 2 else "")
+                 or "a right this needs")
         account = self._account or self._settings.get("user", "")
-        return InputError(f"{self._where}: the account '{account}' may not {words}: it lacks "
-                          f"{lacks}. In a classroom lab {advice} (README, 'A lab for a classroom')")
+        if operation == "open":
+            return InputError(f"{self._where}: this lab is not set up yet. Its keeper (the "
+                              "account that owns the database, e.g. the teacher's) opens it once "
+                              "first, e.g. with 'python -m engine lab show'; then open it again "
+                              f"here. (The account '{account}' may not {words}: it lacks "
+                              f"{lacks}.)")
+        viewer = not self.may("change") if operation != "read" else False
+        who = (f"the account '{account}' is read-only here (a viewer account), so it may not "
+               f"{words}" if viewer else f"the account '{account}' may not {words}")
+        advice = ("" if viewer else
+                  " In a classroom lab benches add machines and readings and remove the "
+                  "imports they saved; the lab's air and removing machines are for its keeper.")
+        return InputError(f"{self._where}: {who} (it lacks {lacks}).{advice} Ask the lab's "
+                          "keeper if it should (README, 'A lab for a classroom')")
 
     def _fault(self, error: psycopg.Error, operation: str) -> InputError:
         if isinstance(error, psycopg.errors.InsufficientPrivilege):
