@@ -19,6 +19,7 @@ import json
 import sys
 from pathlib import Path
 
+from engine import columns
 from engine.errors import InputError
 from engine.readings import (
     ReadOptions,
@@ -117,6 +118,12 @@ def _add(args: argparse.Namespace) -> int:
         environment = log.frame
     source = Path(args.readings).name
     with open_store() as store:
+        described = {machine.id for machine in store.machines().machines}
+        unknown = sorted(set(frame[columns.MACHINE].dropna().astype(str)) - described)
+        if unknown:
+            messages.append(f"{source}: the lab describes no machine {', '.join(unknown[:10])}; "
+                            "their readings are stored, and get ceilings once the machine is "
+                            "described (Machines page)")
         import_id = store.import_readings(frame, args.name or source, source=source,
                                           environment=environment)
         where = store.location

@@ -753,7 +753,8 @@ def when(text: object) -> str:
 
 
 def stored_imports(current_store: Store) -> None:
-    """The lab's imports, with a removal that asks first and offers a copy to restore."""
+    """The lab's imports, with a removal that asks first and offers a copy to restore (for an
+    account that may remove imports)."""
     imports = current_store.imports()
     st.subheader("Stored imports")
     if imports.empty:
@@ -765,7 +766,11 @@ def stored_imports(current_store: Store) -> None:
         "readings": imports["rows"], "machines": imports["machines"],
         "sessions": imports["sessions"],
     })
+    if "saved_by" in imports.columns:  # a shared lab: which account saved it
+        table["saved by"] = imports["saved_by"]
     st.dataframe(table, hide_index=True, key="readings-imports")
+    if not current_store.may("remove_imports"):
+        return
     names = imports.set_index("id")
     remove = st.selectbox("Remove an import", [None] + imports["id"].tolist(),
                           format_func=lambda key: "(none)" if key is None else

@@ -26,6 +26,7 @@ st.title("Readings")
 shared.show_flash()
 store = shared.store()
 if not shared.read_only_notice():
+    shared.stored_imports(store)
     st.stop()
 machine_file = store.machines()
 machine_ids = [machine.id for machine in machine_file.machines]

@@ -87,6 +87,9 @@ def test_a_viewer_sees_the_lab_and_no_way_to_change_it(as_viewer, pg_cluster):
     readings = open_page("pages/readings.py")
     assert "This lab is open **read-only**" in raw_texts(readings)
     assert not readings.get("file_uploader")
+    listed = [table.value for table in readings.dataframe if "saved by" in table.value.columns]
+    assert listed and set(listed[0]["saved by"]) == {"lab_keeper"}  # who saved what, shown
+    assert not [box for box in readings.selectbox if box.key == "readings-remove"]
     machines = open_page("pages/machines.py")
     assert "This lab is open **read-only**" in raw_texts(machines)
     assert not [button for button in machines.button if "Save" in str(button.label)]

@@ -832,11 +832,13 @@ class PostgresStore(Store):
         return pd.DataFrame(data, columns=[*columns, IMPORT_ID])
 
     def imports(self) -> pd.DataFrame:
-        """The imports, oldest first (see :meth:`Store.imports`)."""
+        """The imports, oldest first (see :meth:`Store.imports`), with ``saved_by``: the account
+        that saved each."""
         columns = ["id", "name", "source", "created_at", "is_demo", "rows", "machines",
-                   "sessions", "environment_rows"]
+                   "sessions", "environment_rows", "saved_by"]
         rows = self._query(f"SELECT {', '.join(columns)} FROM imports ORDER BY id")
         frame = pd.DataFrame(rows, columns=columns)
+        frame["saved_by"] = frame["saved_by"].astype(object).astype(_TEXT_DTYPE)
         for column in ("id", "rows", "environment_rows"):
             frame[column] = frame[column].astype(np.int64)
         frame["is_demo"] = frame["is_demo"].astype(bool)
