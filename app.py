@@ -30,6 +30,7 @@ try:
         counts = store.counts()
         st.markdown(f"**{shared.plain(shared.lab_words())}** · {counts['machines']} machines "
                     f"· {counts['readings']:,} readings")
+        shared.lab_warnings()
         shared.follow_lab()
         if shared.active_lab() == "demo":
             st.caption("Invented data to explore, kept apart from your own lab. Switch to "

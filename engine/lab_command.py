@@ -83,6 +83,7 @@ def _show(args: argparse.Namespace) -> int:
             "may_change": store.may("change"),
             "may_remove_imports": store.may("remove_imports"),
             "may_remove_machines": store.may("remove_machines"),
+            "password_in_address": bool(getattr(store, "password_in_address", False)),
         }
     if args.json:
         print(json.dumps(figures))
@@ -98,6 +99,9 @@ def _show(args: argparse.Namespace) -> int:
                                          ("remove machines", figures["may_remove_machines"]))
               if allowed]
     print("This account may " + (", ".join(rights) if rights else "only look (read-only)"))
+    if figures["password_in_address"]:
+        print("warning: the password is written in CEILING_LAB_DB; put it in ~/.pgpass instead",
+              file=sys.stderr)
     return 0
 
 

@@ -217,6 +217,16 @@ def lab_words() -> str:
     return LAB_NAMES["own"]
 
 
+def lab_warnings() -> None:
+    """Warnings about how the open lab is reached (a password written into its address)."""
+    if active_lab() == "demo" or not is_server_location(_own_location()):
+        return
+    if getattr(_own_store(), "password_in_address", False):
+        st.warning("The lab's password is written in CEILING_LAB_DB. It works, but anyone who "
+                   "sees this computer's settings sees it: put it in the password file "
+                   "~/.pgpass instead (README, 'A lab for a classroom').")
+
+
 #: Seconds between two looks at a shared lab for what other benches saved.
 FOLLOW_EVERY_S = 15
 

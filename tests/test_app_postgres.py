@@ -66,6 +66,9 @@ def test_the_sidebar_names_the_server_lab_and_the_account(as_keeper, pg_cluster)
     assert (f"Shared lab: database '{lab_name(as_keeper)}' on 127.0.0.1:{pg_cluster.port}, as "
             "lab_keeper") in texts(app)
     assert app.toggle(key="lab-follow").value is True  # new readings shown as they come
+    # The tests write the password into the address: the sidebar warns, without showing it.
+    assert "password is written in CEILING_LAB_DB" in texts(app)
+    assert pg_cluster.passwords["lab_keeper"] not in everything_shown(app)
 
 
 def test_compare_shows_every_benchs_readings(as_keeper):

@@ -352,6 +352,11 @@ class PostgresStore(Store):
         return self._account
 
     @property
+    def password_in_address(self) -> bool:
+        """Whether the URL itself holds a password (it works, but belongs in ~/.pgpass)."""
+        return bool(self._secret)
+
+    @property
     def cache_folder(self) -> Path:
         """Folder of this lab's derived cache on this computer (one per server and database)."""
         key = "|".join(self._settings.get(name, "") for name in ("host", "hostaddr", "port",
@@ -428,7 +433,9 @@ class PostgresStore(Store):
             return InputError(f"{self._where}: the lab server refused the account "
                               f"'{self._settings.get('user', '')}' (wrong or missing password). "
                               "Put the password in the password file ~/.pgpass (or PGPASSWORD) "
-                              f"and check the account in {STORE_ENV_VAR}")
+                              f"and check the account in {STORE_ENV_VAR}; in ~/.pgpass the "
+                              "line's host, port, database and account must be as in the "
+                              "address, and only you may read the file (chmod 600)")
         if "does not exist" in lowered and "database" in lowered:
             return InputError(f"{self._where}: the server has no such database; create it as "
                               "the README's section 'A lab for a classroom' shows, or check "
