@@ -334,6 +334,11 @@ def test_a_bench_adds_and_removes_only_what_the_lab_allows(pg_cluster, pg_lab, m
         assert bench.may("change") and bench.may("remove_imports")
         assert not bench.may("remove_machines")
         bench.save_machine(machine_file.machines[1])
+        bench.save_machine(machine_file.machines[1])  # its own: it may change it
+        with pytest.raises(InputError, match="machine 'twin-disc' was described by the account "
+                                             "'lab_keeper'; the account 'lab_bench' may change "
+                                             "only the machines it described"):
+            bench.save_machine(machine_file.machines[0])
         bench.save_setting("colours", "{}")
         with pytest.raises(InputError, match=r"'lab_bench' may not store the site \(it lacks the "
                                              r"DELETE right on the table 'site'"):
@@ -353,21 +358,27 @@ def test_a_bench_adds_and_removes_only_what_the_lab_allows(pg_cluster, pg_lab, m
         assert keeper.imports()["id"].tolist() == [keepers_import]
         assert [machine.id for machine in keeper.machines().machines] == ["twin-disc",
                                                                           "school-belt"]
-        assert keeper.delete_machine("school-belt") is True  # the keeper may
+        keeper.save_machine(machine_file.machines[1])  # the keeper may change a bench's
+        assert keeper.delete_machine("school-belt") is True  # and remove it
 
 
 def test_a_bench_cannot_reach_around_the_app(pg_cluster, pg_lab):
     """The rights hold on the server itself, whatever program the bench account uses."""
     with open_store(pg_lab) as keeper:
         keeper.import_readings(make_readings(10, seed=46), "keeper's")
+        keeper.save_machine(parse_machines_text(MACHINES_TEXT).machines[0])
     with psycopg.connect(url_of(pg_cluster, "lab_bench", pg_lab), autocommit=True) as raw:
         for statement in ("DELETE FROM readings", "UPDATE readings SET current_a = 0",
-                          "DELETE FROM machines", "DROP TABLE readings",
+                          "DELETE FROM machines", "DROP TABLE readings", "DELETE FROM site",
                           "UPDATE ceiling_lab_schema SET version = 1"):
             with pytest.raises(psycopg.errors.InsufficientPrivilege):
                 raw.execute(statement)
         assert raw.execute("DELETE FROM imports").rowcount == 0  # not its own: not seen
         assert raw.execute("UPDATE imports SET name = 'x'").rowcount == 0
+        assert raw.execute("UPDATE machines SET label = 'x'").rowcount == 0  # the keeper's
+    with open_store(pg_lab) as keeper:
+        assert keeper.machines().machines[0].label == "Twin-disc, restored"
+        assert keeper.counts()["readings"] == 10
 
 
 def test_a_viewer_sees_everything_and_changes_nothing(pg_cluster, pg_lab, machine_file):

@@ -120,7 +120,8 @@ POSTGRES_LAYOUT: tuple[str, ...] = (
         carrier text NOT NULL,
         toml text NOT NULL,
         updated_at text NOT NULL,
-        is_demo boolean NOT NULL DEFAULT false
+        is_demo boolean NOT NULL DEFAULT false,
+        saved_by text NOT NULL DEFAULT current_user
     )""",
     """CREATE TABLE site (
         position bigint GENERATED ALWAYS AS IDENTITY,
@@ -173,12 +174,18 @@ POSTGRES_LAYOUT: tuple[str, ...] = (
     "WITH (autosummarize = on)",
     "CREATE TABLE settings (key text PRIMARY KEY, value text NOT NULL)",
     # The lab's rule: an account removes (or changes) only the imports it saved; the keeper,
-    # who owns the table, is not bound by these policies.
+    # who owns the tables, is not bound by these policies.
     "ALTER TABLE imports ENABLE ROW LEVEL SECURITY",
     "CREATE POLICY imports_seen ON imports FOR SELECT USING (true)",
     "CREATE POLICY imports_added ON imports FOR INSERT WITH CHECK (saved_by = current_user)",
     "CREATE POLICY imports_changed ON imports FOR UPDATE USING (saved_by = current_user)",
     "CREATE POLICY imports_removed ON imports FOR DELETE USING (saved_by = current_user)",
+    # The same for machines: a bench adds machines and changes those it described.
+    "ALTER TABLE machines ENABLE ROW LEVEL SECURITY",
+    "CREATE POLICY machines_seen ON machines FOR SELECT USING (true)",
+    "CREATE POLICY machines_added ON machines FOR INSERT WITH CHECK (saved_by = current_user)",
+    "CREATE POLICY machines_changed ON machines FOR UPDATE USING (saved_by = current_user)",
+    "CREATE POLICY machines_removed ON machines FOR DELETE USING (saved_by = current_user)",
 )
 #: Schema version whose layout :data:`POSTGRES_LAYOUT` is (the first the server store had).
 POSTGRES_FIRST_VERSION = 4
@@ -1004,6 +1011,17 @@ def _grant(connection: psycopg.Connection) -> None:
 
 def _save_machine(connection: psycopg.Connection, machine: Machine, text: str,
                   demo: bool) -> None:
+    """Store a machine; one that another account described is changed only by the keeper."""
+    found = connection.execute(
+        "SELECT saved_by, saved_by = current_user OR pg_has_role(current_user, "
+        "(SELECT tableowner FROM pg_tables WHERE tablename = 'machines' "
+        "AND schemaname = current_schema()), 'MEMBER'), current_user "
+        "FROM machines WHERE id = %s", (machine.id,)).fetchone()
+    if found is not None and not found[1]:
+        raise InputError(f"machine '{machine.id}' was described by the account '{found[0]}'; "
+                         f"the account '{found[2]}' may change only the machines it described "
+                         "(the lab's keeper may change any). Nothing was changed; save it under "
+                         "a new id, or ask the keeper")
     connection.execute(
         "INSERT INTO machines (id, label, carrier, toml, is_demo, updated_at) "
         "VALUES (%s, %s, %s, %s, %s, %s) ON CONFLICT (id) DO UPDATE SET label = excluded.label, "
