@@ -97,6 +97,11 @@ def iso_text(times: pd.Series) -> pd.Series:
         ``2026-02-03T09:10:00+01:00`` (with the offset when the time has a zone, with
         microseconds when any reading has them).
     """
+    return pd.Series(_iso_cells(times), index=times.index, dtype=object)
+
+
+def _iso_cells(times: pd.Series) -> np.ndarray:
+    """:func:`iso_text` as an object array (one str per reading, no pandas text column)."""
     if not pd.api.types.is_datetime64_any_dtype(times):
         times = pd.to_datetime(times, errors="coerce", utc=True, format="mixed")
     zone = getattr(times.dt, "tz", None)
@@ -119,7 +124,7 @@ def iso_text(times: pd.Series) -> pd.Series:
         text = np.datetime_as_string(distinct, unit=unit).astype(object)
     result = np.full(len(instants), "", dtype=object)
     result[known] = text[where_known]
-    return pd.Series(result, index=times.index, dtype=object)
+    return result
 
 
 def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
@@ -142,15 +147,35 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
         charge per revolution [nC], relative humidity [%], absolute humidity [g/m^3], dew
         point [degC], relative air density [-], flags as "code;code" ("" when clean).
     """
+    return pd.DataFrame(output_columns(derived), index=pd.RangeIndex(len(derived)))
+
+
+def output_columns(derived: pd.DataFrame) -> dict[str, np.ndarray | pd.Series]:
+    """The columns of :func:`output_frame`, by name and in order, without making the frame.
+
+    What :func:`write_csv` takes to write a million readings without first copying them all
+    into one more frame (see :func:`output_frame` for the columns and their units).
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with :data:`engine.columns.DERIVED_COLUMNS` (SI units).
+
+    Returns
+    -------
+    dict of str to numpy.ndarray or pandas.Series
+        One array per column, ``len(derived)`` long; ``time`` is an object array of str.
+    """
     times = derived[col.TIME] if col.TIME in derived else pd.Series(pd.NaT, index=derived.index)
     with np.errstate(over="ignore", invalid="ignore"):  # absurd input gives inf, not a warning
         return _output_columns(derived, times)
 
 
-def _output_columns(derived: pd.DataFrame, times: pd.Series) -> pd.DataFrame:
+def _output_columns(derived: pd.DataFrame, times: pd.Series
+                    ) -> dict[str, np.ndarray | pd.Series]:
     out = {
         "machine": _texts(derived, col.MACHINE),
-        "time": iso_text(times).to_numpy(dtype=object),  # ISO text, "" when unknown
+        "time": _iso_cells(times),  # ISO text, "" when unknown
         "speed_rev_s": _floats(derived, col.SPEED_REV_S),
         "current_uA": to_display(_floats(derived, col.CURRENT_A), "current", "uA"),
         "ceiling_uA": to_display(_floats(derived, col.CEILING_A), "current", "uA"),
@@ -180,7 +205,7 @@ def _output_columns(derived: pd.DataFrame, times: pd.Series) -> pd.DataFrame:
     voltage_v = _floats(derived, col.VOLTAGE_V)
     out["voltage_kV"] = to_display(voltage_v, "voltage", "kV")
     out["output_power_W"] = voltage_v * _floats(derived, col.CURRENT_A)
-    return pd.DataFrame(out, index=pd.RangeIndex(len(derived)))
+    return out
 
 
 # --- spreadsheet safety ----------------------------------------------------------------------
@@ -309,13 +334,15 @@ def round_significant(values: np.ndarray, digits: int = 12) -> np.ndarray:
     return result
 
 
-def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
+def write_csv(frame: pd.DataFrame | Mapping[str, object], target: str | Path | BinaryIO
+              ) -> None:
     """Write a frame as UTF-8 CSV, text cells neutralised against formula injection.
 
     Parameters
     ----------
-    frame : pandas.DataFrame
-        Typically :func:`output_frame` or the findings.
+    frame : pandas.DataFrame or mapping of str to array
+        Typically :func:`output_frame` or the findings; or the columns of one, by name, as
+        :func:`output_columns` gives them (no frame is made of them).
     target : str, Path or binary file
         Where to write; streamed, so a million readings are never held twice in memory.
 
@@ -324,25 +351,17 @@ def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
     Comma-separated, CRLF rows (RFC 4180), a header row and no index. Text cells are quoted;
     numbers are rounded to 12 significant digits (:func:`round_significant`), empty where
     unknown. Interval columns (2-item lists) are split into ``<name>_low`` and
-    ``<name>_high``. Written with Arrow's CSV writer, which formats in compiled code.
+    ``<name>_high``. Written with Arrow's CSV writer, which formats in compiled code; each
+    column is made ready on its own (neutralised, rounded) and handed to Arrow, so that no
+    copy of the whole table is made on the way.
     """
-    ready = _export_ready(frame)
-    arrays = {}
-    for name in ready.columns:
-        series = ready[name]
-        if _is_text_column(series):
-            # pandas' text type converts any other cell with str(), missing cells stay empty
-            arrays[name] = pa.array(series.astype("string"), type=pa.string(),
-                                    from_pandas=True)
-        elif pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
-            arrays[name] = pa.array(series.to_numpy())
-        else:
-            values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
-            arrays[name] = pa.array(round_significant(values), from_pandas=True)
+    arrays: dict[str, pa.Array | pa.ChunkedArray] = {}
+    for name, values in frame.items():
+        arrays.update(_csv_arrays(str(name), values))
     table = pa.table(arrays) if arrays else pa.table({})
     # Headers with a comma, quote or line break (plain-words headers such as "efficiency,
     # median [%]") are quoted as RFC 4180 asks; plain headers stay bare.
-    structural = any(mark in str(name) for name in ready.columns for mark in ',"\r\n')
+    structural = any(mark in name for name in arrays for mark in ',"\r\n')
     options = pa_csv.WriteOptions(include_header=True, quoting_style="needed",
                                   quoting_header="needed" if structural else "none",
                                   eol="\r\n")
@@ -352,8 +371,65 @@ def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
         pa_csv.write_csv(table, target, write_options=options)
 
 
-def to_csv_bytes(frame: pd.DataFrame) -> bytes:
-    """A frame as UTF-8 CSV bytes (see :func:`write_csv` for the layout)."""
+#: A text that a spreadsheet would read as a formula (:data:`FORMULA_PREFIXES`), as a pattern.
+_FORMULA_START = "^[" + "".join(re.escape(prefix) for prefix in FORMULA_PREFIXES) + "]"
+
+
+def _csv_arrays(name: str, values: object) -> dict[str, pa.Array | pa.ChunkedArray]:
+    """One column made ready for the CSV file as Arrow arrays (two for an interval column)."""
+    series = values if isinstance(values, pd.Series) else pd.Series(
+        values, dtype=object if isinstance(values, np.ndarray) and values.dtype == object
+        else None)
+    if pd.api.types.is_object_dtype(series):
+        filled = series.dropna()
+        if len(filled) and isinstance(filled.iloc[0], (list, tuple, np.ndarray)):
+            return {f"{name}_{end}": _csv_numbers(pd.to_numeric(series.str[index],
+                                                                errors="coerce"))
+                    for index, end in ((0, "low"), (1, "high"))}
+    if isinstance(series.dtype, pd.DatetimeTZDtype):
+        # spreadsheets have no time zones: keep the clock time and its offset as text
+        series = pd.Series(_iso_cells(series), dtype=object)
+    if _is_text_column(series):
+        return {name: _csv_text(series)}
+    if pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
+        return {name: pa.array(series.to_numpy())}
+    return {name: _csv_numbers(series)}
+
+
+def _csv_numbers(series: pd.Series) -> pa.Array:
+    values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
+    return pa.array(round_significant(values), from_pandas=True)
+
+
+def _csv_text(series: pd.Series) -> pa.Array | pa.ChunkedArray:
+    """A text column as Arrow strings, cells that start like a formula neutralised.
+
+    Equal to :func:`neutralise_frame` then pandas' text type: where every cell is text (or
+    missing) the check runs in Arrow; a column that also holds other cells (numbers in an
+    object column, which are not neutralised, only written) goes through pandas as before.
+    """
+    import pyarrow.compute as pc  # noqa: PLC0415 - only writing needs it
+
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        series = series.astype(object)
+    array = None
+    if not pd.api.types.is_object_dtype(series) or pd.api.types.infer_dtype(
+            series, skipna=True) in ("string", "empty"):
+        try:
+            array = pa.array(series, type=pa.string(), from_pandas=True)
+        except (pa.ArrowInvalid, pa.ArrowTypeError):
+            array = None
+    if array is None:
+        ready = neutralise_frame(pd.DataFrame({"cells": series.reset_index(drop=True)}))
+        return pa.array(ready["cells"].astype("string"), type=pa.string(), from_pandas=True)
+    risky = pc.match_substring_regex(array, _FORMULA_START)
+    if pc.any(risky).as_py():
+        array = pc.if_else(risky, pc.binary_join_element_wise("'", array, ""), array)
+    return array
+
+
+def to_csv_bytes(frame: pd.DataFrame | Mapping[str, object]) -> bytes:
+    """A frame (or its columns) as UTF-8 CSV bytes (see :func:`write_csv` for the layout)."""
     buffer = io.BytesIO()
     write_csv(frame, buffer)
     return buffer.getvalue()
