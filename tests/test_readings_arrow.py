@@ -151,3 +151,46 @@ def test_a_log_reads_the_same_either_way(monkeypatch):
     fast, slow, taken = _both(monkeypatch, read_environment, data)
     assert taken
     _assert_same(fast, slow)
+
+
+TIMES = {
+    "one offset": ["2026-03-02T08:00:00+01:00", None, "2026-03-02T08:00:01.25+01:00"],
+    "negative half-hour offset": ["2026-03-02T08:00:00-05:30", "2026-03-02T09:00-05:30"],
+    "zero offset": ["2026-03-02T08:00:00+00:00"],
+    "Z": ["2026-03-02T08:00:00Z", "2026-03-02T08:00:01.5Z"],
+    "naive": ["2026-03-02 08:00:00", "2026-03-02T08:00", "2026-03-02"],
+    "two offsets": ["2026-03-29T01:00:00+01:00", "2026-03-29T03:00:00+02:00"],
+    "with and without an offset": ["2026-03-02T08:00:00+01:00", "2026-03-02T08:00:00",
+                                   "2026-03-02T09:00:00+01:00"],
+    "Z and an offset": ["2026-03-02T08:00:00Z", "2026-03-02T08:00:00+00:00"],
+    "impossible date": ["2026-02-30T08:00:00+01:00", "2026-03-02T08:00:00+01:00"],
+    "leap second": ["2026-03-02T08:00:60+01:00"],
+    "single digits": ["2026-3-2T8:00:00+01:00", "2026-03-02T08:00:00+01:00"],
+    "nanoseconds": ["2026-03-02T08:00:00.123456789+01:00"],
+    "compact offset": ["2026-03-02T08:00:00+0100", "2026-03-02T08:00:01+0100"],
+    "hour-only offset": ["2026-03-02T08:00:00+01"],
+    "space before the offset": ["2026-03-02 08:00:00 +01:00"],
+    "before 1677": ["1600-01-01T00:00:00+01:00"],
+}
+
+
+@pytest.mark.parametrize("name", sorted(TIMES))
+def test_iso_times_read_by_arrow_equal_pandas(monkeypatch, name):
+    # Reference: pandas.to_datetime(format="ISO8601"), the reader's way before Arrow's.
+    from engine.readings import times as times_module
+
+    text = pd.Series(TIMES[name], dtype="str")
+    fast = times_module._parse_iso(text, fast_messages := [], "t.csv")
+    monkeypatch.setattr(times_module, "_iso_by_arrow", lambda text: None)
+    slow = times_module._parse_iso(text, slow_messages := [], "t.csv")
+    pd.testing.assert_series_equal(fast[0], slow[0], check_exact=True)
+    assert fast[0].dtype == slow[0].dtype
+    np.testing.assert_array_equal(fast[1], slow[1])
+    assert fast_messages == slow_messages
+
+
+def test_arrow_reads_the_usual_times():
+    from engine.readings import times as times_module
+
+    text = pd.Series(["2026-03-02T08:00:00+01:00", "2026-03-02T08:00:01+01:00"], dtype="str")
+    assert times_module._iso_by_arrow(text) is not None
