@@ -12,7 +12,6 @@ guidance on CSV injection. Every text in the HTML report is escaped.
 
 from __future__ import annotations
 
-import html
 import io
 import math
 import re
@@ -97,11 +96,24 @@ def iso_text(times: pd.Series) -> pd.Series:
         ``2026-02-03T09:10:00+01:00`` (with the offset when the time has a zone, with
         microseconds when any reading has them).
     """
-    return pd.Series(_iso_cells(times), index=times.index, dtype=object)
+    text, codes = _iso_parts(times)
+    result = np.full(len(codes), "", dtype=object)
+    known = codes >= 0
+    result[known] = text[codes[known]]
+    return pd.Series(result, index=times.index, dtype=object)
 
 
-def _iso_cells(times: pd.Series) -> np.ndarray:
-    """:func:`iso_text` as an object array (one str per reading, no pandas text column)."""
+def _iso_strings(times: pd.Series) -> pd.Series:
+    """:func:`iso_text` as pandas' text type, the texts put in place by Arrow (no str object
+    per reading), index 0..n-1."""
+    text, codes = _iso_parts(times)
+    distinct = pa.array([*text, ""], type=pa.string())
+    return distinct.take(np.where(codes >= 0, codes, len(text))).to_pandas()
+
+
+def _iso_parts(times: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct times as ISO text (object array) and each reading's index into them, -1
+    where the time is unknown."""
     if not pd.api.types.is_datetime64_any_dtype(times):
         times = pd.to_datetime(times, errors="coerce", utc=True, format="mixed")
     zone = getattr(times.dt, "tz", None)
@@ -122,9 +134,9 @@ def _iso_cells(times: pd.Series) -> np.ndarray:
         text = np.datetime_as_string(wall, unit=unit).astype(object) + labels[where_offset]
     else:
         text = np.datetime_as_string(distinct, unit=unit).astype(object)
-    result = np.full(len(instants), "", dtype=object)
-    result[known] = text[where_known]
-    return result
+    codes = np.full(len(instants), -1, dtype=np.intp)
+    codes[known] = where_known
+    return text, codes
 
 
 def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
@@ -164,7 +176,7 @@ def output_columns(derived: pd.DataFrame) -> dict[str, np.ndarray | pd.Series]:
     Returns
     -------
     dict of str to numpy.ndarray or pandas.Series
-        One array per column, ``len(derived)`` long; ``time`` is an object array of str.
+        One array or series per column, ``len(derived)`` long.
     """
     times = derived[col.TIME] if col.TIME in derived else pd.Series(pd.NaT, index=derived.index)
     with np.errstate(over="ignore", invalid="ignore"):  # absurd input gives inf, not a warning
@@ -175,7 +187,7 @@ def _output_columns(derived: pd.DataFrame, times: pd.Series
                     ) -> dict[str, np.ndarray | pd.Series]:
     out = {
         "machine": _texts(derived, col.MACHINE),
-        "time": _iso_cells(times),  # ISO text, "" when unknown
+        "time": _iso_strings(times),  # ISO text, "" when unknown
         "speed_rev_s": _floats(derived, col.SPEED_REV_S),
         "current_uA": to_display(_floats(derived, col.CURRENT_A), "current", "uA"),
         "ceiling_uA": to_display(_floats(derived, col.CEILING_A), "current", "uA"),
@@ -388,7 +400,7 @@ def _write_parts(table: pa.Table, handle: BinaryIO, options: pa_csv.WriteOptions
     the interpreter meanwhile) and the parts are written in order, the header with the first,
     so that the file is byte for byte the one a single call writes.
     """
-    from concurrent.futures import ThreadPoolExecutor  # noqa: PLC0415 - large tables only
+    from concurrent.futures import ThreadPoolExecutor  # large tables only
 
     body = pa_csv.WriteOptions(include_header=False, quoting_style=options.quoting_style,
                                eol=options.eol)
@@ -427,7 +439,7 @@ def _csv_arrays(name: str, values: object) -> dict[str, pa.Array | pa.ChunkedArr
                     for index, end in ((0, "low"), (1, "high"))}
     if isinstance(series.dtype, pd.DatetimeTZDtype):
         # spreadsheets have no time zones: keep the clock time and its offset as text
-        series = pd.Series(_iso_cells(series), dtype=object)
+        series = _iso_strings(series)
     if _is_text_column(series):
         return {name: _csv_text(series)}
     if pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
@@ -447,7 +459,7 @@ def _csv_text(series: pd.Series) -> pa.Array | pa.ChunkedArray:
     missing) the check runs in Arrow; a column that also holds other cells (numbers in an
     object column, which are not neutralised, only written) goes through pandas as before.
     """
-    import pyarrow.compute as pc  # noqa: PLC0415 - only writing needs it
+    import pyarrow.compute as pc  # only writing needs it
 
     if isinstance(series.dtype, pd.CategoricalDtype):
         series = series.astype(object)
@@ -516,7 +528,9 @@ def to_xlsx_bytes(frame: pd.DataFrame, sheet_name: str = "readings",
 # --- the HTML report -------------------------------------------------------------------------
 
 def _esc(text: object) -> str:
-    return html.escape("" if text is None else str(text), quote=True)
+    from html import escape  # the report only: evaluate does not load it
+
+    return escape("" if text is None else str(text), quote=True)
 
 
 def _number(value: object) -> float:
@@ -780,7 +794,9 @@ def _caption_instead_of_title(figure) -> list[str]:
     the notes the drawing wrote under its title, as plain text; the area, which the machine's
     facts give, is left out."""
     match = _TITLE_NOTES.match(figure.layout.title.text or "")
-    notes = [html.unescape(note) for note in match.group(1).split("<br>")] if match else []
+    from html import unescape  # the report only
+
+    notes = [unescape(note) for note in match.group(1).split("<br>")] if match else []
     figure.update_layout(title_text="", margin={"t": 10, "b": 10, "l": 10, "r": 10})
     return [note for note in notes if not note.startswith("Charged area per revolution")]
 

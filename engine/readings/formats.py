@@ -13,7 +13,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO
 
-import charset_normalizer
 import numpy as np
 import pandas as pd
 
@@ -137,6 +136,8 @@ def _detect_encoding(inp: _Input) -> str:
         # Valid UTF-8 with any byte above 127 is almost never legacy text by chance; the
         # library may still prefer a code page for rare characters, so UTF-8 is kept.
         return "utf-8"
+    import charset_normalizer  # only for a sample that is not UTF-8
+
     best = charset_normalizer.from_bytes(sample, cp_isolation=list(CANDIDATE_ENCODINGS)).best()
     if best is None:
         return "latin-1"  # decodes any bytes; the binary check has run on the raw bytes
@@ -332,9 +333,9 @@ def _arrow_read_csv(inp: _Input, encoding: str, separator: str, decimal: str, sk
     ``most_rows`` data rows (refused after the C parser's reading). Numbers are parsed by
     Arrow, correctly rounded; the C parser's converter can differ in the last binary digit.
     """
-    import pyarrow as pa  # noqa: PLC0415 - imported when a CSV is read
-    import pyarrow.compute as pc  # noqa: PLC0415
-    from pyarrow import csv as arrow_csv  # noqa: PLC0415
+    import pyarrow as pa  # imported when a CSV is read
+    import pyarrow.compute as pc
+    from pyarrow import csv as arrow_csv
 
     if encoding not in ("utf-8", "utf-8-sig") or decimal != "." or width < 2:
         return None

@@ -117,8 +117,8 @@ def _iso_by_arrow(text: pd.Series) -> pd.Series | None:
     reads the same instant. Anything else (a bad time, times with different offsets or
     with and without one) is left to pandas, which marks, converts and says.
     """
-    import pyarrow as pa  # noqa: PLC0415 - imported when times are read
-    import pyarrow.compute as pc  # noqa: PLC0415
+    import pyarrow as pa  # imported when times are read
+    import pyarrow.compute as pc
 
     try:
         cells = pa.array(text, type=pa.string(), from_pandas=True)
