@@ -285,17 +285,7 @@ def _export_ready(frame: pd.DataFrame, replace_illegal: bool = False) -> pd.Data
     """Interval columns split in two, zoned times as ISO text, text cells neutralised."""
     parts = {}
     for name in frame.columns:
-        series = frame[name]
-        if pd.api.types.is_object_dtype(series):
-            filled = series.dropna()
-            if len(filled) and isinstance(filled.iloc[0], (list, tuple, np.ndarray)):
-                parts[f"{name}_low"] = pd.to_numeric(series.str[0], errors="coerce")
-                parts[f"{name}_high"] = pd.to_numeric(series.str[1], errors="coerce")
-                continue
-        if isinstance(series.dtype, pd.DatetimeTZDtype):
-            # spreadsheets have no time zones: keep the clock time and its offset as text
-            series = iso_text(series)
-        parts[name] = series
+        parts.update(_export_columns(name, frame[name]))
     ready = neutralise_frame(pd.DataFrame(parts, index=frame.index))
     if replace_illegal:
         from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
@@ -309,6 +299,19 @@ def _export_ready(frame: pd.DataFrame, replace_illegal: bool = False) -> pd.Data
                 except AttributeError:
                     continue
     return ready
+
+
+def _export_columns(name: object, series: pd.Series) -> dict[object, pd.Series]:
+    """A column as exported: an interval column split in two, zoned times as ISO text."""
+    if pd.api.types.is_object_dtype(series):
+        filled = series.dropna()
+        if len(filled) and isinstance(filled.iloc[0], (list, tuple, np.ndarray)):
+            return {f"{name}_low": pd.to_numeric(series.str[0], errors="coerce"),
+                    f"{name}_high": pd.to_numeric(series.str[1], errors="coerce")}
+    if isinstance(series.dtype, pd.DatetimeTZDtype):
+        # spreadsheets have no time zones: keep the clock time and its offset as text
+        return {name: iso_text(series)}
+    return {name: series}
 
 
 def round_significant(values: np.ndarray, digits: int = 12) -> np.ndarray:
@@ -431,20 +434,15 @@ def _csv_arrays(name: str, values: object) -> dict[str, pa.Array | pa.ChunkedArr
     series = values if isinstance(values, pd.Series) else pd.Series(
         values, dtype=object if isinstance(values, np.ndarray) and values.dtype == object
         else None)
-    if pd.api.types.is_object_dtype(series):
-        filled = series.dropna()
-        if len(filled) and isinstance(filled.iloc[0], (list, tuple, np.ndarray)):
-            return {f"{name}_{end}": _csv_numbers(pd.to_numeric(series.str[index],
-                                                                errors="coerce"))
-                    for index, end in ((0, "low"), (1, "high"))}
-    if isinstance(series.dtype, pd.DatetimeTZDtype):
-        # spreadsheets have no time zones: keep the clock time and its offset as text
-        series = _iso_strings(series)
+    return {str(part): _csv_array(cells) for part, cells in _export_columns(name, series).items()}
+
+
+def _csv_array(series: pd.Series) -> pa.Array | pa.ChunkedArray:
     if _is_text_column(series):
-        return {name: _csv_text(series)}
+        return _csv_text(series)
     if pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
-        return {name: pa.array(series.to_numpy())}
-    return {name: _csv_numbers(series)}
+        return pa.array(series.to_numpy())
+    return _csv_numbers(series)
 
 
 def _csv_numbers(series: pd.Series) -> pa.Array:
