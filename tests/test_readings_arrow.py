@@ -94,6 +94,8 @@ CASES = {
     "blank line": HEADER + b"d1,s,2026-03-02T08:00:00,300,5,40,x\n\n"
                   b"d1,s,2026-03-02T08:00:01,300,5,40,x\n",
     "blank lines at the end": HEADER + b"d1,s,2026-03-02T08:00:00,300,5,40,x\n\n\n",
+    "header only": HEADER,
+    "header and blank lines": HEADER + b"\n\n",
     "no line feed at the end": HEADER + b"d1,s,2026-03-02T08:00:00,300,5,40,x",
     "line ends of both kinds": HEADER.replace(b"\n", b"\r\n")
                                + b"d1,s,2026-03-02T08:00:00,300,5,40,x\r\n"
