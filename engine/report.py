@@ -425,10 +425,6 @@ def _write_parts(table: pa.Table, handle: BinaryIO, options: pa_csv.WriteOptions
             handle.write(part.result())
 
 
-#: A text that a spreadsheet would read as a formula (:data:`FORMULA_PREFIXES`), as a pattern.
-_FORMULA_START = "^[" + "".join(re.escape(prefix) for prefix in FORMULA_PREFIXES) + "]"
-
-
 def _csv_arrays(name: str, values: object) -> dict[str, pa.Array | pa.ChunkedArray]:
     """One column made ready for the CSV file as Arrow arrays (two for an interval column)."""
     series = values if isinstance(values, pd.Series) else pd.Series(
@@ -471,7 +467,9 @@ def _csv_text(series: pd.Series) -> pa.Array | pa.ChunkedArray:
     if array is None:
         ready = neutralise_frame(pd.DataFrame({"cells": series.reset_index(drop=True)}))
         return pa.array(ready["cells"].astype("string"), type=pa.string(), from_pandas=True)
-    risky = pc.match_substring_regex(array, _FORMULA_START)
+    # Every prefix is one character: the first character of each cell is looked up.
+    risky = pc.is_in(pc.utf8_slice_codeunits(array, 0, 1),
+                     value_set=pa.array(FORMULA_PREFIXES, type=pa.string()))
     if pc.any(risky).as_py():
         array = pc.if_else(risky, pc.binary_join_element_wise("'", array, ""), array)
     return array
