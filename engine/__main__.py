@@ -322,13 +322,18 @@ def _derived_from_files(args: argparse.Namespace):
 
 def _command_evaluate(args: argparse.Namespace) -> int:
     _machine_file, derived, messages = _derived_from_files(args)
-    table = report.output_frame(derived)
+    rows = len(derived)
     flagged = int((derived[columns.FLAGS] != "").sum())
-    if args.output:
-        target = Path(args.output)
-        suffix = target.suffix.lower()
-        if suffix not in {".csv", ".xlsx"}:
-            raise InputError(f"--output must end in .csv or .xlsx, got '{target.name}'")
+    target = Path(args.output) if args.output else None
+    suffix = target.suffix.lower() if target is not None else ""
+    if target is not None and suffix not in {".csv", ".xlsx"}:
+        raise InputError(f"--output must end in .csv or .xlsx, got '{target.name}'")
+    # A CSV is written from the output columns straight away; only JSON and XLSX need the
+    # output table as one frame (a million readings: a copy of every column saved).
+    table = (report.output_frame(derived) if args.json or suffix == ".xlsx"
+             else report.output_columns(derived))
+    del derived
+    if target is not None:
         try:
             if suffix == ".xlsx":
                 target.write_bytes(report.to_xlsx_bytes(table))
@@ -337,10 +342,10 @@ def _command_evaluate(args: argparse.Namespace) -> int:
         except OSError as error:
             raise InputError(f"{target}: cannot be written ({error.strerror or error})") from None
         if not args.json:
-            print(f"wrote {len(table)} readings ({flagged} flagged) to {target}")
+            print(f"wrote {rows} readings ({flagged} flagged) to {target}")
     if args.json:
         print(table.to_json(orient="records", date_format="iso"))
-    elif not args.output:
+    elif target is None:
         sys.stdout.flush()
         if hasattr(sys.stdout, "buffer"):
             report.write_csv(table, sys.stdout.buffer)

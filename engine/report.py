@@ -12,7 +12,6 @@ guidance on CSV injection. Every text in the HTML report is escaped.
 
 from __future__ import annotations
 
-import html
 import io
 import math
 import re
@@ -97,6 +96,24 @@ def iso_text(times: pd.Series) -> pd.Series:
         ``2026-02-03T09:10:00+01:00`` (with the offset when the time has a zone, with
         microseconds when any reading has them).
     """
+    text, codes = _iso_parts(times)
+    result = np.full(len(codes), "", dtype=object)
+    known = codes >= 0
+    result[known] = text[codes[known]]
+    return pd.Series(result, index=times.index, dtype=object)
+
+
+def _iso_strings(times: pd.Series) -> pd.Series:
+    """:func:`iso_text` as pandas' text type, the texts put in place by Arrow (no str object
+    per reading), index 0..n-1."""
+    text, codes = _iso_parts(times)
+    distinct = pa.array([*text, ""], type=pa.string())
+    return distinct.take(np.where(codes >= 0, codes, len(text))).to_pandas()
+
+
+def _iso_parts(times: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """The distinct times as ISO text (object array) and each reading's index into them, -1
+    where the time is unknown."""
     if not pd.api.types.is_datetime64_any_dtype(times):
         times = pd.to_datetime(times, errors="coerce", utc=True, format="mixed")
     zone = getattr(times.dt, "tz", None)
@@ -117,9 +134,9 @@ def iso_text(times: pd.Series) -> pd.Series:
         text = np.datetime_as_string(wall, unit=unit).astype(object) + labels[where_offset]
     else:
         text = np.datetime_as_string(distinct, unit=unit).astype(object)
-    result = np.full(len(instants), "", dtype=object)
-    result[known] = text[where_known]
-    return pd.Series(result, index=times.index, dtype=object)
+    codes = np.full(len(instants), -1, dtype=np.intp)
+    codes[known] = where_known
+    return text, codes
 
 
 def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
@@ -142,15 +159,35 @@ def output_frame(derived: pd.DataFrame) -> pd.DataFrame:
         charge per revolution [nC], relative humidity [%], absolute humidity [g/m^3], dew
         point [degC], relative air density [-], flags as "code;code" ("" when clean).
     """
+    return pd.DataFrame(output_columns(derived), index=pd.RangeIndex(len(derived)))
+
+
+def output_columns(derived: pd.DataFrame) -> dict[str, np.ndarray | pd.Series]:
+    """The columns of :func:`output_frame`, by name and in order, without making the frame.
+
+    What :func:`write_csv` takes to write a million readings without first copying them all
+    into one more frame (see :func:`output_frame` for the columns and their units).
+
+    Parameters
+    ----------
+    derived : pandas.DataFrame
+        Readings with :data:`engine.columns.DERIVED_COLUMNS` (SI units).
+
+    Returns
+    -------
+    dict of str to numpy.ndarray or pandas.Series
+        One array or series per column, ``len(derived)`` long.
+    """
     times = derived[col.TIME] if col.TIME in derived else pd.Series(pd.NaT, index=derived.index)
     with np.errstate(over="ignore", invalid="ignore"):  # absurd input gives inf, not a warning
         return _output_columns(derived, times)
 
 
-def _output_columns(derived: pd.DataFrame, times: pd.Series) -> pd.DataFrame:
+def _output_columns(derived: pd.DataFrame, times: pd.Series
+                    ) -> dict[str, np.ndarray | pd.Series]:
     out = {
         "machine": _texts(derived, col.MACHINE),
-        "time": iso_text(times).to_numpy(dtype=object),  # ISO text, "" when unknown
+        "time": _iso_strings(times),  # ISO text, "" when unknown
         "speed_rev_s": _floats(derived, col.SPEED_REV_S),
         "current_uA": to_display(_floats(derived, col.CURRENT_A), "current", "uA"),
         "ceiling_uA": to_display(_floats(derived, col.CEILING_A), "current", "uA"),
@@ -180,7 +217,7 @@ def _output_columns(derived: pd.DataFrame, times: pd.Series) -> pd.DataFrame:
     voltage_v = _floats(derived, col.VOLTAGE_V)
     out["voltage_kV"] = to_display(voltage_v, "voltage", "kV")
     out["output_power_W"] = voltage_v * _floats(derived, col.CURRENT_A)
-    return pd.DataFrame(out, index=pd.RangeIndex(len(derived)))
+    return out
 
 
 # --- spreadsheet safety ----------------------------------------------------------------------
@@ -248,17 +285,7 @@ def _export_ready(frame: pd.DataFrame, replace_illegal: bool = False) -> pd.Data
     """Interval columns split in two, zoned times as ISO text, text cells neutralised."""
     parts = {}
     for name in frame.columns:
-        series = frame[name]
-        if pd.api.types.is_object_dtype(series):
-            filled = series.dropna()
-            if len(filled) and isinstance(filled.iloc[0], (list, tuple, np.ndarray)):
-                parts[f"{name}_low"] = pd.to_numeric(series.str[0], errors="coerce")
-                parts[f"{name}_high"] = pd.to_numeric(series.str[1], errors="coerce")
-                continue
-        if isinstance(series.dtype, pd.DatetimeTZDtype):
-            # spreadsheets have no time zones: keep the clock time and its offset as text
-            series = iso_text(series)
-        parts[name] = series
+        parts.update(_export_columns(name, frame[name]))
     ready = neutralise_frame(pd.DataFrame(parts, index=frame.index))
     if replace_illegal:
         from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
@@ -272,6 +299,19 @@ def _export_ready(frame: pd.DataFrame, replace_illegal: bool = False) -> pd.Data
                 except AttributeError:
                     continue
     return ready
+
+
+def _export_columns(name: object, series: pd.Series) -> dict[object, pd.Series]:
+    """A column as exported: an interval column split in two, zoned times as ISO text."""
+    if pd.api.types.is_object_dtype(series):
+        filled = series.dropna()
+        if len(filled) and isinstance(filled.iloc[0], (list, tuple, np.ndarray)):
+            return {f"{name}_low": pd.to_numeric(series.str[0], errors="coerce"),
+                    f"{name}_high": pd.to_numeric(series.str[1], errors="coerce")}
+    if isinstance(series.dtype, pd.DatetimeTZDtype):
+        # spreadsheets have no time zones: keep the clock time and its offset as text
+        return {name: iso_text(series)}
+    return {name: series}
 
 
 def round_significant(values: np.ndarray, digits: int = 12) -> np.ndarray:
@@ -309,13 +349,15 @@ def round_significant(values: np.ndarray, digits: int = 12) -> np.ndarray:
     return result
 
 
-def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
+def write_csv(frame: pd.DataFrame | Mapping[str, object], target: str | Path | BinaryIO
+              ) -> None:
     """Write a frame as UTF-8 CSV, text cells neutralised against formula injection.
 
     Parameters
     ----------
-    frame : pandas.DataFrame
-        Typically :func:`output_frame` or the findings.
+    frame : pandas.DataFrame or mapping of str to array
+        Typically :func:`output_frame` or the findings; or the columns of one, by name, as
+        :func:`output_columns` gives them (no frame is made of them).
     target : str, Path or binary file
         Where to write; streamed, so a million readings are never held twice in memory.
 
@@ -324,36 +366,117 @@ def write_csv(frame: pd.DataFrame, target: str | Path | BinaryIO) -> None:
     Comma-separated, CRLF rows (RFC 4180), a header row and no index. Text cells are quoted;
     numbers are rounded to 12 significant digits (:func:`round_significant`), empty where
     unknown. Interval columns (2-item lists) are split into ``<name>_low`` and
-    ``<name>_high``. Written with Arrow's CSV writer, which formats in compiled code.
+    ``<name>_high``. Written with Arrow's CSV writer, which formats in compiled code; each
+    column is made ready on its own (neutralised, rounded) and handed to Arrow, so that no
+    copy of the whole table is made on the way.
     """
-    ready = _export_ready(frame)
-    arrays = {}
-    for name in ready.columns:
-        series = ready[name]
-        if _is_text_column(series):
-            # pandas' text type converts any other cell with str(), missing cells stay empty
-            arrays[name] = pa.array(series.astype("string"), type=pa.string(),
-                                    from_pandas=True)
-        elif pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
-            arrays[name] = pa.array(series.to_numpy())
-        else:
-            values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
-            arrays[name] = pa.array(round_significant(values), from_pandas=True)
+    arrays: dict[str, pa.Array | pa.ChunkedArray] = {}
+    for name, values in frame.items():
+        arrays.update(_csv_arrays(str(name), values))
     table = pa.table(arrays) if arrays else pa.table({})
     # Headers with a comma, quote or line break (plain-words headers such as "efficiency,
     # median [%]") are quoted as RFC 4180 asks; plain headers stay bare.
-    structural = any(mark in str(name) for name in ready.columns for mark in ',"\r\n')
+    structural = any(mark in name for name in arrays for mark in ',"\r\n')
     options = pa_csv.WriteOptions(include_header=True, quoting_style="needed",
                                   quoting_header="needed" if structural else "none",
                                   eol="\r\n")
+    if table.num_rows < 2 * _CSV_PART_ROWS:
+        pa_csv.write_csv(table, str(target) if isinstance(target, (str, Path)) else target,
+                         write_options=options)
+        return
     if isinstance(target, (str, Path)):
-        pa_csv.write_csv(table, str(target), write_options=options)
+        with open(target, "wb") as handle:
+            _write_parts(table, handle, options)
     else:
-        pa_csv.write_csv(table, target, write_options=options)
+        _write_parts(table, target, options)
 
 
-def to_csv_bytes(frame: pd.DataFrame) -> bytes:
-    """A frame as UTF-8 CSV bytes (see :func:`write_csv` for the layout)."""
+#: Rows formatted at a time when a large table is written in parts [rows].
+_CSV_PART_ROWS = 100_000
+
+
+def _write_parts(table: pa.Table, handle: BinaryIO, options: pa_csv.WriteOptions) -> None:
+    """A large table written in parts of :data:`_CSV_PART_ROWS` rows, two formatted at once.
+
+    Arrow's writer formats on one core; formatting the numbers is most of the time of writing
+    a million readings. Each part is formatted into memory by its own thread (Arrow releases
+    the interpreter meanwhile) and the parts are written in order, the header with the first,
+    so that the file is byte for byte the one a single call writes.
+    """
+    from concurrent.futures import ThreadPoolExecutor  # large tables only
+
+    body = pa_csv.WriteOptions(include_header=False, quoting_style=options.quoting_style,
+                               eol=options.eol)
+
+    def formatted(start: int) -> pa.Buffer:
+        sink = pa.BufferOutputStream()
+        pa_csv.write_csv(table.slice(start, _CSV_PART_ROWS), sink,
+                         write_options=options if start == 0 else body)
+        return sink.getvalue()
+
+    # At most four parts wait in memory, however slowly the target takes them (a pipe).
+    pending: list = []
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        for start in range(0, table.num_rows, _CSV_PART_ROWS):
+            pending.append(pool.submit(formatted, start))
+            if len(pending) == 4:
+                handle.write(pending.pop(0).result())
+        for part in pending:
+            handle.write(part.result())
+
+
+def _csv_arrays(name: str, values: object) -> dict[str, pa.Array | pa.ChunkedArray]:
+    """One column made ready for the CSV file as Arrow arrays (two for an interval column)."""
+    series = values if isinstance(values, pd.Series) else pd.Series(
+        values, dtype=object if isinstance(values, np.ndarray) and values.dtype == object
+        else None)
+    return {str(part): _csv_array(cells) for part, cells in _export_columns(name, series).items()}
+
+
+def _csv_array(series: pd.Series) -> pa.Array | pa.ChunkedArray:
+    if _is_text_column(series):
+        return _csv_text(series)
+    if pd.api.types.is_integer_dtype(series) or pd.api.types.is_bool_dtype(series):
+        return pa.array(series.to_numpy())
+    return _csv_numbers(series)
+
+
+def _csv_numbers(series: pd.Series) -> pa.Array:
+    values = pd.to_numeric(series, errors="coerce").to_numpy(dtype=float)
+    return pa.array(round_significant(values), from_pandas=True)
+
+
+def _csv_text(series: pd.Series) -> pa.Array | pa.ChunkedArray:
+    """A text column as Arrow strings, cells that start like a formula neutralised.
+
+    Equal to :func:`neutralise_frame` then pandas' text type: where every cell is text (or
+    missing) the check runs in Arrow; a column that also holds other cells (numbers in an
+    object column, which are not neutralised, only written) goes through pandas as before.
+    """
+    import pyarrow.compute as pc  # only writing needs it
+
+    if isinstance(series.dtype, pd.CategoricalDtype):
+        series = series.astype(object)
+    array = None
+    if not pd.api.types.is_object_dtype(series) or pd.api.types.infer_dtype(
+            series, skipna=True) in ("string", "empty"):
+        try:
+            array = pa.array(series, type=pa.string(), from_pandas=True)
+        except (pa.ArrowInvalid, pa.ArrowTypeError):
+            array = None
+    if array is None:
+        ready = neutralise_frame(pd.DataFrame({"cells": series.reset_index(drop=True)}))
+        return pa.array(ready["cells"].astype("string"), type=pa.string(), from_pandas=True)
+    # Every prefix is one character: the first character of each cell is looked up.
+    risky = pc.is_in(pc.utf8_slice_codeunits(array, 0, 1),
+                     value_set=pa.array(FORMULA_PREFIXES, type=pa.string()))
+    if pc.any(risky).as_py():
+        array = pc.if_else(risky, pc.binary_join_element_wise("'", array, ""), array)
+    return array
+
+
+def to_csv_bytes(frame: pd.DataFrame | Mapping[str, object]) -> bytes:
+    """A frame (or its columns) as UTF-8 CSV bytes (see :func:`write_csv` for the layout)."""
     buffer = io.BytesIO()
     write_csv(frame, buffer)
     return buffer.getvalue()
@@ -401,7 +524,9 @@ def to_xlsx_bytes(frame: pd.DataFrame, sheet_name: str = "readings",
 # --- the HTML report -------------------------------------------------------------------------
 
 def _esc(text: object) -> str:
-    return html.escape("" if text is None else str(text), quote=True)
+    from html import escape  # the report only: evaluate does not load it
+
+    return escape("" if text is None else str(text), quote=True)
 
 
 def _number(value: object) -> float:
@@ -665,7 +790,9 @@ def _caption_instead_of_title(figure) -> list[str]:
     the notes the drawing wrote under its title, as plain text; the area, which the machine's
     facts give, is left out."""
     match = _TITLE_NOTES.match(figure.layout.title.text or "")
-    notes = [html.unescape(note) for note in match.group(1).split("<br>")] if match else []
+    from html import unescape  # the report only
+
+    notes = [unescape(note) for note in match.group(1).split("<br>")] if match else []
     figure.update_layout(title_text="", margin={"t": 10, "b": 10, "l": 10, "r": 10})
     return [note for note in notes if not note.startswith("Charged area per revolution")]
 

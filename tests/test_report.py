@@ -31,11 +31,13 @@ from engine.report import (
     iso_text,
     neutralise_formula,
     neutralise_frame,
+    output_columns,
     output_frame,
     report_file_name,
     sessions_in_time_order,
     to_csv_bytes,
     to_xlsx_bytes,
+    write_csv,
 )
 from tests.test_figures import MACHINE_TABLES, make_derived, make_findings, make_machines
 from tests.test_security import _Tags
@@ -198,6 +200,53 @@ def test_csv_numbers_without_binary_noise():
     frame = pd.DataFrame({"current_uA": [0.1 + 0.2, 12e-6 * 1e6], "n": [1, 2]})
     text = to_csv_bytes(frame).decode("utf-8")
     assert text.splitlines() == ["current_uA,n", "0.3,1", "12,2"]
+
+
+def test_csv_of_the_output_columns_is_the_csv_of_the_output_frame():
+    # The command line writes the columns without making the frame: the same file.
+    readings = [one_reading(**{col.MACHINE: f"{leader}m", col.NOTE: None if number % 2 else
+                               f"{leader}n", col.TIME: pd.NaT if number == 3 else
+                               pd.Timestamp("2026-02-03T09:10:00+01:00")})
+                for number, leader in enumerate((*SIX_LEADERS, "plain"))]
+    derived = frame_of(*readings)
+    assert to_csv_bytes(output_columns(derived)) == to_csv_bytes(output_frame(derived))
+
+
+def test_csv_text_in_mixed_columns_as_before():
+    # A text cell is neutralised, a number in the same object column is only written (it is
+    # no formula); a zoned time is written as ISO text; an interval column is split in two.
+    frame = pd.DataFrame({
+        "mixed": pd.Series(["=cmd", -5, 2.5, None, "ok"], dtype=object),
+        "when": pd.to_datetime(["2026-02-03T09:10:00+01:00"] * 5),
+        "ci": pd.Series([(1.0, 2.0), None, (3.0, 4.5), None, None], dtype=object),
+    })
+    lines = to_csv_bytes(frame).decode("utf-8").split("\r\n")
+    assert lines[0] == "mixed,when,ci_low,ci_high"
+    assert lines[1] == '"\'=cmd","2026-02-03T09:10:00+01:00",1,2'
+    assert lines[2] == '"-5","2026-02-03T09:10:00+01:00",,'
+    assert lines[3] == '"2.5","2026-02-03T09:10:00+01:00",3,4.5'
+    assert lines[4] == ',"2026-02-03T09:10:00+01:00",,'
+
+
+def test_a_large_table_written_in_parts_is_the_file_one_call_writes(monkeypatch, tmp_path):
+    # Parts of 7 rows over 100 rows: every boundary case of the parts writer (header only on
+    # the first part, a short last part); the reference is the table written at once.
+    from engine import report
+
+    rows = 100
+    frame = pd.DataFrame({
+        "machine": [f"{SIX_LEADERS[row % 6]}m{row}" if row % 5 else "d" for row in range(rows)],
+        "value": np.where(np.arange(rows) % 9 == 0, np.nan, np.arange(rows) / 7.0),
+        "count": np.arange(rows),
+        "note": pd.Series([None if row % 4 else "a, \"quoted\" note" for row in range(rows)],
+                          dtype="str"),
+    })
+    whole = to_csv_bytes(frame)
+    monkeypatch.setattr(report, "_CSV_PART_ROWS", 7)
+    assert to_csv_bytes(frame) == whole
+    write_csv(frame, tmp_path / "parts.csv")
+    assert (tmp_path / "parts.csv").read_bytes() == whole
+    assert whole.count(b"\r\n") == rows + 1
 
 
 def test_xlsx_neutralises_each_leading_character_and_has_no_formulas():

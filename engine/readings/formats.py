@@ -13,7 +13,6 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import BinaryIO
 
-import charset_normalizer
 import numpy as np
 import pandas as pd
 
@@ -137,6 +136,8 @@ def _detect_encoding(inp: _Input) -> str:
         # Valid UTF-8 with any byte above 127 is almost never legacy text by chance; the
         # library may still prefer a code page for rare characters, so UTF-8 is kept.
         return "utf-8"
+    import charset_normalizer  # only for a sample that is not UTF-8
+
     best = charset_normalizer.from_bytes(sample, cp_isolation=list(CANDIDATE_ENCODINGS)).best()
     if best is None:
         return "latin-1"  # decodes any bytes; the binary check has run on the raw bytes
@@ -246,8 +247,13 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
         na_values=[""], nrows=options.max_rows + 1, engine="c", low_memory=False,
         skip_blank_lines=False,
     )
+    frame = None
+    if _plain_preamble(text, skipped):
+        frame = _arrow_read_csv(inp, encoding, separator, decimal, skipped, width,
+                                label_positions, options.max_rows + 1)
     try:
-        frame = _pandas_read_csv(inp, encoding, kwargs)
+        if frame is None:
+            frame = _pandas_read_csv(inp, encoding, kwargs)
     except UnicodeDecodeError:
         if options.encoding is not None:
             raise InputError(
@@ -296,6 +302,114 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
                    len(found.lines), found.lines, decisions + found.decisions,
                    records[:header_index], 1)
     return table
+
+
+#: A cell the C parser may read as a number or a truth value (then its column is no text):
+#: a column of such cells that Arrow did not read as plain numbers goes to the C parser.
+_NUMBER_LIKE = (r"(?i)^\s*(?:[+-]?(?:\d+\.?\d*|\.\d+)(?:e[+-]?\d+)?|[+-]?inf(?:inity)?"
+                r"|true|false)\s*$")
+
+
+def _plain_preamble(text: str, skipped: int) -> bool:
+    """Whether the lines above the data hold no quote (a quoted line break among them would
+    make Arrow and the C parser count lines differently)."""
+    return '"' not in "\n".join(text.split("\n")[:skipped])
+
+
+def _arrow_read_csv(inp: _Input, encoding: str, separator: str, decimal: str, skipped: int,
+                    width: int, label_positions: Sequence[int], most_rows: int
+                    ) -> pd.DataFrame | None:
+    """The table as the C parser reads it, read by Arrow (several times quicker); ``None``
+    where the file is not plain enough to be sure of that, and the C parser reads it.
+
+    Taken only for UTF-8 text with a decimal point. Every cell is read as text first; a
+    column whose cells are all plain numbers becomes float64 (an empty column too), label
+    columns stay text, and a column of text stays text unless every cell is something the C
+    parser would read as a number or a truth value (spaces around a number, ``inf``,
+    ``True``). The C parser reads the file instead, and its reading decides, when: such a
+    column is found; a cell says ``nan`` or ``inf``; a row has more or fewer fields than
+    the header (Arrow refuses it); there are fewer rows than lines (a quoted line break, a
+    quote never closed); a quote stands above the data; or there are more than
+    ``most_rows`` data rows (refused after the C parser's reading). Numbers are parsed by
+    Arrow, correctly rounded; the C parser's converter can differ in the last binary digit.
+    """
+    import pyarrow as pa  # imported when a CSV is read
+    import pyarrow.compute as pc
+    from pyarrow import csv as arrow_csv
+
+    if encoding not in ("utf-8", "utf-8-sig") or decimal != "." or width < 2:
+        return None
+    names = [str(position) for position in range(width)]
+    try:
+        reader = arrow_csv.open_csv(
+            inp.open() if inp.path is None else str(inp.path),
+            read_options=arrow_csv.ReadOptions(column_names=names, skip_rows=skipped),
+            parse_options=arrow_csv.ParseOptions(delimiter=separator, quote_char='"',
+                                                 double_quote=True, escape_char=False,
+                                                 newlines_in_values=True,
+                                                 ignore_empty_lines=False),
+            convert_options=arrow_csv.ConvertOptions(
+                column_types={name: pa.string() for name in names}, null_values=[""],
+                strings_can_be_null=True, quoted_strings_can_be_null=True))
+        batches = []
+        rows = 0
+        for batch in reader:
+            batches.append(batch)
+            rows += batch.num_rows
+            if rows >= most_rows:
+                return None  # too many rows: the C parser reads as many as it may, and refuses
+        table = pa.Table.from_batches(batches, schema=reader.schema)
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, OSError, ValueError):
+        return None
+    # One reading per line, as the line numbers given to the rows assume: a quoted line break
+    # (or a quote never closed) makes fewer rows than lines, and the C parser reads the file.
+    if table.num_rows != _line_count(inp) - skipped:
+        return None
+    columns: dict[int, object] = {}
+    for position, name in enumerate(names):
+        cells = table.column(name)
+        if cells.null_count == len(cells):
+            columns[position] = np.full(len(cells), np.nan)
+            continue
+        numbers = None
+        if position not in label_positions:
+            try:
+                numbers = pc.cast(cells, pa.float64())
+            except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+                numbers = None
+        if numbers is not None:
+            values = numbers.to_numpy()
+            # Arrow reads 'nan' and 'inf' as numbers; the C parser does not read 'nan' (a
+            # text cell, flagged): such a file is left to it.
+            if not np.isfinite(values[~cells.is_null().to_numpy(zero_copy_only=False)]).all():
+                return None
+            columns[position] = values
+            continue
+        if position not in label_positions and _all_number_like(cells, pc):
+            return None
+        columns[position] = cells.to_pandas()
+    return pd.DataFrame(columns, index=pd.RangeIndex(table.num_rows))
+
+
+def _all_number_like(cells, pc) -> bool:
+    """Whether every cell of a text column is one the C parser may read as a number or a
+    truth value (:data:`_NUMBER_LIKE`); the first cells usually settle it."""
+    head = cells.slice(0, 1000)
+    if not pc.all(pc.match_substring_regex(head, _NUMBER_LIKE)).as_py():
+        return False
+    return bool(pc.all(pc.match_substring_regex(cells, _NUMBER_LIKE)).as_py())
+
+
+def _line_count(inp: _Input) -> int:
+    """Lines of the file: its line feeds, and one more for a last line without one."""
+    count = 0
+    last = b"\n"
+    with (inp.path.open("rb") if inp.path is not None else io.BytesIO(inp.data or b"")
+          ) as handle:
+        for block in iter(lambda: handle.read(1 << 24), b""):
+            count += block.count(b"\n")
+            last = block[-1:]
+    return count + (last != b"\n")
 
 
 def _pandas_read_csv(inp: _Input, encoding: str, kwargs: dict) -> pd.DataFrame:

@@ -223,8 +223,9 @@ def check_log_clock(
     Notes
     -----
     For each whole-hour offset from -12 h to +12 h the readings with a log entry within the
-    tolerance are counted (a sorted search per offset). An offset is suggested when it
-    matches at least 90 % of the readings and more than the clocks as they stand.
+    tolerance are counted (a sorted search per offset, once per distinct reading time). An
+    offset is suggested when it matches at least 90 % of the readings and more than the
+    clocks as they stand.
     """
     reading_key, log_key = _merge_keys(readings, environment)
     reading_key = reading_key[~np.isnan(reading_key)]
@@ -232,16 +233,19 @@ def check_log_clock(
     if reading_key.size == 0 or log_key.size == 0:
         return LogClock(0, None, 0, [])
     tolerance = float(tolerance_s)
+    # Readings share their instants (several machines a second): each distinct time is
+    # searched once and counted as often as it occurs.
+    instants, occurrences = np.unique(reading_key, return_counts=True)
 
     def matched(offset_s: float) -> int:
         shifted = log_key + offset_s
-        position = np.clip(np.searchsorted(shifted, reading_key), 1, len(shifted) - 1)
+        position = np.clip(np.searchsorted(shifted, instants), 1, len(shifted) - 1)
         if len(shifted) == 1:
-            nearest = np.abs(reading_key - shifted[0])
+            nearest = np.abs(instants - shifted[0])
         else:
-            nearest = np.minimum(np.abs(reading_key - shifted[position - 1]),
-                                 np.abs(reading_key - shifted[position]))
-        return int((nearest <= tolerance).sum())
+            nearest = np.minimum(np.abs(instants - shifted[position - 1]),
+                                 np.abs(instants - shifted[position]))
+        return int(occurrences[nearest <= tolerance].sum())
 
     # Whole-hour clock errors belong to clocks; elapsed seconds from each file's own start
     # are only checked for overlap.

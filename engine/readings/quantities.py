@@ -344,10 +344,13 @@ def _column_si(
                else "")
             + (" (some such as 1,056 could be read either way; the file's mark decided)"
                if parsed.ambiguous else ""))
-    scales = np.full(len(values), scale)
-    offsets = np.full(len(values), offset)
+    # One scale and offset for the column, or (where cells carry units) one per cell.
+    scales: float | np.ndarray = scale
+    offsets: float | np.ndarray = offset
     mismatch = np.zeros(len(values), dtype=bool)
     if cells_carry_units:
+        scales = np.full(len(values), scale)
+        offsets = np.full(len(values), offset)
         cell_units, codes = np.unique(parsed.unit[with_unit].astype(str), return_inverse=True)
         unit_scale = np.full(len(cell_units), np.nan)
         unit_offset = np.zeros(len(cell_units))

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import re
 import warnings
 import zoneinfo
@@ -72,6 +73,9 @@ def _empty_times(length: int) -> pd.Series:
 
 def _parse_iso(text: pd.Series, messages: list[str], source: str) -> tuple[pd.Series, np.ndarray]:
     bad = np.zeros(len(text), dtype=bool)
+    quick = _iso_by_arrow(text)
+    if quick is not None:
+        return quick, bad
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         try:
@@ -99,6 +103,47 @@ def _parse_iso(text: pd.Series, messages: list[str], source: str) -> tuple[pd.Se
                 "change); they were converted to UTC"
             )
             return pd.to_datetime(text, format="ISO8601", errors="coerce", utc=True), bad
+
+
+_OFFSET = re.compile(r"([+-])(\d{2}):(\d{2})")
+
+
+def _iso_by_arrow(text: pd.Series) -> pd.Series | None:
+    """ISO 8601 times read by Arrow, as ``pandas.to_datetime(format="ISO8601")`` reads them;
+    ``None`` unless every time is one Arrow reads and all carry one UTC offset (or none).
+
+    Arrow's reading is the stricter (no single-digit fields, no more than six decimals of a
+    second, no basic format such as ``20260302T0800``): where it reads a time at all, pandas
+    reads the same instant. Anything else (a bad time, times with different offsets or
+    with and without one) is left to pandas, which marks, converts and says.
+    """
+    import pyarrow as pa  # imported when times are read
+    import pyarrow.compute as pc
+
+    try:
+        cells = pa.array(text, type=pa.string(), from_pandas=True)
+    except (pa.ArrowInvalid, pa.ArrowTypeError):
+        return None
+    if cells.null_count == len(cells):
+        return None
+    endings = pc.unique(pc.utf8_slice_codeunits(cells, -6)).drop_null().to_pylist()
+    offset = _OFFSET.fullmatch(endings[0]) if len(endings) == 1 else None
+    zone = None
+    if offset is not None:
+        sign = -1 if offset.group(1) == "-" else 1
+        zone = dt.timezone(dt.timedelta(minutes=sign * (int(offset.group(2)) * 60
+                                                        + int(offset.group(3)))))
+    elif pc.unique(pc.utf8_slice_codeunits(cells, -1)).drop_null().to_pylist() == ["Z"]:
+        zone = dt.UTC
+    try:
+        instants = pc.cast(cells, pa.timestamp("us", tz="UTC") if zone is not None
+                           else pa.timestamp("us"))
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+        return None
+    times = pd.Series(instants.to_numpy(zero_copy_only=False), index=text.index)
+    if zone is not None:
+        times = times.dt.tz_localize("UTC").dt.tz_convert(zone)
+    return times
 
 
 _DMY_PARTS = re.compile(
