@@ -721,7 +721,9 @@ def show_findings(findings: pd.DataFrame, machines, reference_rh: float = 0.45,
     described = described_findings(findings, machines)
     labels = {machine_id: machine.label for machine_id, machine in dict(machines).items()}
     table = findings_table(described, labels, reference_rh)
-    st.dataframe(table, hide_index=True, key=key, height=min(35 * (len(table) + 1) + 3, 620),
+    # An empty table still draws its header and an "empty" row: room for both.
+    st.dataframe(table, hide_index=True, key=key,
+                 height=min(35 * (max(len(table), 1) + 1) + 3, 620),
                  column_config={"units delivered": st.column_config.TextColumn(width="large")})
     notes = described["notes"].fillna("")
     if (notes != "").any():
