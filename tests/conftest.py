@@ -14,9 +14,10 @@ settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "ci"))
 
 
 @pytest.fixture(autouse=True)
-def _own_cache_folder(tmp_path, monkeypatch):
-    """Derived caches of server labs go to the user's cache folder: a test's own, here."""
-    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "user-cache"))
+def _own_cache_folder(tmp_path_factory, monkeypatch):
+    """Derived caches of server labs go to the user's cache folder: a test's own, here (not in
+    tmp_path, which some tests expect to find as they left it)."""
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path_factory.mktemp("user-cache")))
 
 
 @pytest.fixture(scope="session")
