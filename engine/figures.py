@@ -361,6 +361,31 @@ def _style(figure: go.Figure, title: str, x_title: str, y_title: str) -> None:
                                  "xanchor": "left", "y": -0.22, "yanchor": "top"})
     figure.update_xaxes(title_text=x_title)
     figure.update_yaxes(title_text=y_title)
+    _steady_values_axis(figure)
+
+
+def _steady_values_axis(figure: go.Figure) -> None:
+    """Give the y axis a readable range when every value is the same up to rounding (e.g. an
+    efficiency that does not change with speed): the browser's automatic range would span
+    1e-14 and show no tick labels. The range is the value +- 10 % (at least +- 1)."""
+    values = []
+    for trace in figure.data:
+        y = getattr(trace, "y", None)
+        if y is None or getattr(trace, "yaxis", None) not in (None, "y"):
+            continue
+        numbers = pd.to_numeric(pd.Series(np.asarray(y, dtype=object)), errors="coerce")
+        values.append(numbers.to_numpy(dtype=float))
+    if not values:
+        return
+    finite = np.concatenate(values)
+    finite = finite[np.isfinite(finite)]
+    if finite.size < 2:
+        return
+    low, high = float(finite.min()), float(finite.max())
+    if high - low > 1e-9 * max(1.0, abs(high)):
+        return
+    pad = max(abs(high) * 0.1, 1.0)
+    figure.update_yaxes(range=[low - pad, high + pad])
 
 
 def _wrap(text: str, width: int = 14) -> str:

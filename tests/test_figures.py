@@ -28,6 +28,7 @@ from engine.figures import (
     NO_READINGS,
     PALETTE,
     WEBGL_THRESHOLD,
+    _style,
     carrier_drawing,
     charge_per_rev,
     current_vs_speed,
@@ -617,3 +618,17 @@ def test_a_machine_s_sessions_get_their_own_marker_shapes():
     readings = [trace for trace in figure.data if trace.name == "m"][0]
     assert list(readings.marker.symbol) == ["circle"] * 3 + ["square"] * 3
     assert list(readings.customdata) == ["lesson 1"] * 3 + ["lesson 2"] * 3
+
+
+def test_an_axis_of_one_value_up_to_rounding_gets_a_readable_range():
+    """Values equal to 1e-14 (an efficiency that does not change with speed) would give the
+    browser an axis 1e-14 wide with no tick labels: the axis spans the value +- 10 %."""
+    steady = go.Figure(go.Scatter(x=[1, 2, 3], y=[36.45703236348271, 36.457032363482725,
+                                                     36.45703236348272]))
+    _style(steady, "t", "x", "y")
+    low, high = steady.layout.yaxis.range
+    assert low == pytest.approx(36.457 - 3.6457, rel=1e-4)  # hand-worked: 10 % of the value
+    assert high == pytest.approx(36.457 + 3.6457, rel=1e-4)
+    varying = go.Figure(go.Scatter(x=[1, 2, 3], y=[30.0, 36.5, 41.0]))
+    _style(varying, "t", "x", "y")
+    assert varying.layout.yaxis.range is None  # left to the browser
