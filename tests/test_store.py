@@ -324,6 +324,24 @@ def test_imports_and_counts_describe_the_store(store, machine_file):
     assert store.counts() == {"machines": 1, "imports": 1, "sessions": 2, "readings": 120}
 
 
+def test_counts_take_sessions_shared_by_imports_once_and_names_with_commas_whole(store):
+    # counts() reads the imports table only (session names kept per import): a session in two
+    # imports counts once, a name with ", " in it is one session, deleting an import forgets
+    # its sessions, and a bundle brings its sessions with it. Expected counts worked by hand.
+    first = make_readings(40, seed=12)
+    first[SESSION] = ["a, b"] * 20 + ["c"] * 20
+    second = make_readings(30, seed=13)
+    second[SESSION] = ["c"] * 10 + [""] * 20
+    one = store.import_readings(first, "one")
+    store.import_readings(second, "two")
+    assert store.counts()["sessions"] == 3 and store.counts()["readings"] == 70
+    bundle = store.export_bundle([one])
+    store.delete_import(one)
+    assert store.counts()["sessions"] == 2 and store.counts()["readings"] == 30
+    store.import_bundle(bundle)
+    assert store.counts()["sessions"] == 3 and store.counts()["readings"] == 70
+
+
 def test_environment_log_round_trips(store):
     log = environment_log(30, seed=2, tz="UTC")
     import_id = store.import_readings(make_readings(10, seed=11), "with log", environment=log)
@@ -509,10 +527,13 @@ def test_a_version_4_store_loses_two_readings_indexes_and_keeps_its_data(tmp_pat
         after = {row[0] for row in store._connection.execute(
             "SELECT name FROM sqlite_master WHERE type = 'index' AND name NOT LIKE 'sqlite_%'")}
         readings = store.readings(machines=["twin-disc"])
+        counts = store.counts()  # the sessions' names were gathered from the readings
         assert store.machines().machines == machine_file.machines
         assert store.delete_import(1) is True  # the cascade still finds the readings
         assert len(store.readings()) == 0
     assert after == before - {"readings_by_machine", "readings_by_session"}
+    assert counts == {"machines": len(machine_file.machines), "imports": 1, "sessions": 1,
+                      "readings": 2}
     assert "readings_by_import" in after
     # The two readings that build_version_1_store wrote, as it wrote them.
     assert readings[TIME].tolist()[0] == pd.Timestamp("2024-01-01 10:00")
