@@ -215,6 +215,35 @@ def _insert_chunk(connection: sqlite3.Connection, statement: str,
 
 
 
+class _Deriving:
+    """The derived table of an import's readings, made in a thread while SQLite writes them.
+
+    Both halves take about as long at 10^6 readings, and both leave Python's lock for much of
+    their work (SQLite while it writes its pages; numpy, pandas and Arrow in their loops), so
+    on two cores an import takes about the longer of the two instead of their sum.
+    :attr:`table` is None when deriving failed (the cache's refresh builds the file later).
+    """
+
+    def __init__(self, prepared: _Prepared, machine_file: MachineFile) -> None:
+        self.machine_file = machine_file
+        self.table = None
+        self._prepared = prepared
+        self._thread = threading.Thread(target=self._run, name="derive-import", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            from engine.store.cache import derived_table  # the cache imports the physics
+
+            self.table = derived_table(self._prepared.frame(READING_COLUMNS, _READING_FLOATS),
+                                       self.machine_file)
+        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
+            self.table = None
+
+    def join(self) -> None:
+        self._thread.join()
+
+
 class SQLiteStore(Store):
     """The embedded store of record: one SQLite file, a connection and the operations on it.
 
@@ -335,24 +364,29 @@ class SQLiteStore(Store):
                                 _prepare(environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
                                          f"{where}, environment log"))
         meta = {"name": name, "source": source, "created_at": _now_text(), "is_demo": demo}
-        import_id = self._write(lambda connection: _insert_import(connection, prepared,
-                                                                  prepared_environment, meta))
-        self._derive_import(import_id, prepared, str(meta["created_at"]))
+        deriving = _Deriving(prepared, self.machines())  # alongside SQLite's writing
+        try:
+            import_id = self._write(lambda connection: _insert_import(
+                connection, prepared, prepared_environment, meta))
+        finally:
+            deriving.join()
+        self._derive_import(import_id, deriving, str(meta["created_at"]))
         return import_id
 
-    def _derive_import(self, import_id: int, prepared: _Prepared, created_at: str) -> None:
+    def _derive_import(self, import_id: int, deriving: _Deriving, created_at: str) -> None:
         """Write the derived cache's file of an import just stored, from the arrays in memory
         (reading 10^6 readings back from SQLite costs several times the deriving).
 
         Best effort: the import is committed whatever happens here, and when the file is not
         written :meth:`DerivedCache.refresh` builds it from the store on the next read.
         """
-        from engine.store.cache import DerivedCache  # the cache imports the engine's physics
+        if deriving.table is None:
+            return
+        from engine.store.cache import DerivedCache
 
         try:
-            DerivedCache(self).add_import(import_id, created_at,
-                                          prepared.frame(READING_COLUMNS, _READING_FLOATS),
-                                          self.machines())
+            DerivedCache(self).add_table(import_id, created_at, deriving.table,
+                                         deriving.machine_file)
         except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
             pass
 
