@@ -812,7 +812,11 @@ def _group_positions(group_codes: np.ndarray, group_count: int) -> list[np.ndarr
     if group_count <= np.iinfo(np.int16).max:
         group_codes = group_codes.astype(np.int16)  # numpy sorts small integers stably by radix
     order = np.argsort(group_codes, kind="stable")
-    bounds = np.searchsorted(group_codes[order], np.arange(group_count + 1))
+    if group_codes.size and group_codes.min() < 0:  # codes below 0 belong to no group
+        bounds = np.searchsorted(group_codes[order], np.arange(group_count + 1))
+    else:  # where each group's run starts, by counting
+        bounds = np.zeros(group_count + 1, dtype=np.int64)
+        np.cumsum(np.bincount(group_codes, minlength=group_count)[:group_count], out=bounds[1:])
     return [order[bounds[index]:bounds[index + 1]] for index in range(group_count)]
 
 
@@ -1159,9 +1163,12 @@ def group_first_rows(derived: pd.DataFrame) -> pd.DataFrame:
         "", index=derived.index)
     machine_codes, machine_uniques = pd.factorize(machines)
     session_codes, session_uniques = pd.factorize(sessions)
-    codes = machine_codes.astype(np.int64) * max(len(session_uniques), 1) + session_codes
-    present, first = np.unique(codes, return_index=True)
     width = max(len(session_uniques), 1)
+    codes = machine_codes.astype(np.int64) * width + session_codes
+    present, compact = _compact_codes(codes, max(len(machine_uniques), 1) * width)
+    # The first position of each group, as np.unique(codes, return_index=True) gives it.
+    first = np.full(present.size, codes.size, dtype=np.int64)
+    np.minimum.at(first, compact, np.arange(codes.size, dtype=np.int64))
     return pd.DataFrame({
         "machine": [str(machine_uniques[code // width]) for code in present],
         "session": [str(session_uniques[code % width]) for code in present],
