@@ -750,10 +750,10 @@ def dashboard_sessions_in_run_order(machine_ids) -> list[str]:
     """
     signature = store_signature()
     _forget_older(signature)
-    groups = _dashboard_summary(str(lab_path()), signature)["group_times"]
-    chosen = groups[groups[col.MACHINE].isin(list(machine_ids)).to_numpy(dtype=bool)]
-    first_times = chosen[col.TIME].groupby(chosen[col.SESSION], observed=True, sort=False).min()
-    return [str(name) for name in first_times.sort_values(kind="stable").index]
+    # The groups' earliest times stand for their readings: the earliest of a session's
+    # groups is its earliest reading, and groups come in the order of their first reading.
+    return sessions_in_run_order(_dashboard_summary(str(lab_path()), signature)["group_times"],
+                                 machine_ids)
 
 
 def dashboard_bounds(column: str) -> tuple[object, object]:
