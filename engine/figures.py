@@ -190,8 +190,17 @@ def _session_marks(frame: pd.DataFrame, rows: np.ndarray) -> tuple[np.ndarray, n
     appearance), and the session names for the hover."""
     if col.SESSION not in frame:
         return np.full(int(rows.sum()), _SESSION_SYMBOLS[0]), np.full(int(rows.sum()), "")
-    names = frame[col.SESSION].to_numpy()[rows]
-    codes, uniques = pd.factorize(pd.Series(names).fillna("").astype("str"))
+    column = frame[col.SESSION]
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        # The names as text once per category, not once per reading of the whole frame (this
+        # runs for every machine of every chart).
+        texts = np.array([str(name) for name in column.cat.categories] + [""], dtype=object)
+        category = column.cat.codes.to_numpy()[rows]
+        names = texts[np.where(category < 0, len(texts) - 1, category)]
+        codes, uniques = pd.factorize(names)
+    else:
+        names = column.to_numpy()[rows]
+        codes, uniques = pd.factorize(pd.Series(names).fillna("").astype("str"))
     shapes = np.array(_SESSION_SYMBOLS, dtype=object)[codes % len(_SESSION_SYMBOLS)]
     return shapes, np.asarray(uniques, dtype=object)[codes]
 
