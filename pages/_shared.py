@@ -512,6 +512,7 @@ def _forget_older(signature: tuple) -> None:
     if _last_signature and _last_signature[0] != signature:
         derived_readings.clear()
         _group_findings.clear()
+        _dashboard_summary.clear()
         _machine_readings.clear()
     _last_signature[:] = [signature]
 
@@ -852,3 +853,42 @@ def sessions_in_run_order(derived: pd.DataFrame, machine_ids) -> list[str]:
     first_times = derived[col.TIME][of_chosen].groupby(
         derived[col.SESSION][of_chosen], observed=True, sort=False).min()
     return [str(name) for name in first_times.sort_values(kind="stable").index]
+
+
+def _group_times(derived: pd.DataFrame) -> pd.DataFrame:
+    """Each (machine, session) group's earliest time, groups in order of their first reading."""
+    times = derived[col.TIME].groupby([derived[col.MACHINE], derived[col.SESSION]],
+                                      observed=True, sort=False).min()
+    return times.reset_index()
+
+
+@st.cache_resource(show_spinner=False, max_entries=2)
+def _dashboard_summary(path: str, signature: tuple) -> dict[str, object]:
+    """What the dashboard's choices need of all its readings, computed once per state of the
+    store (each was a pass over every reading on every run: seconds at 10^7 readings)."""
+    derived = derived_readings(path, signature, DASHBOARD_COLUMNS)
+    return {"group_times": _group_times(derived),
+            "rh": (derived[col.RH].min(), derived[col.RH].max()),
+            "time": (derived[col.TIME].min(), derived[col.TIME].max())}
+
+
+def dashboard_sessions_in_run_order(machine_ids) -> list[str]:
+    """:func:`sessions_in_run_order` of ``load_derived(DASHBOARD_COLUMNS)``, from each group's
+    earliest time (kept once per state of the store) instead of every reading: the same list.
+    """
+    signature = store_signature()
+    _forget_older(signature)
+    # The groups' earliest times stand for their readings: the earliest of a session's
+    # groups is its earliest reading, and groups come in the order of their first reading.
+    return sessions_in_run_order(_dashboard_summary(str(lab_path()), signature)["group_times"],
+                                 machine_ids)
+
+
+def dashboard_bounds(column: str) -> tuple[object, object]:
+    """Smallest and largest value of ``col.RH`` or ``col.TIME`` among all the dashboard's
+    readings, missing values left out (NaN or NaT when none), kept once per state of the
+    store."""
+    signature = store_signature()
+    _forget_older(signature)
+    summary = _dashboard_summary(str(lab_path()), signature)
+    return summary["rh" if column == col.RH else "time"]

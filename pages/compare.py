@@ -30,7 +30,7 @@ with st.container(border=True):
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids,
                             format_func=labels.get, key="compare-machines",
                             placeholder="Choose machines")
-    sessions = shared.sessions_in_run_order(derived, chosen)
+    sessions = shared.dashboard_sessions_in_run_order(chosen)
     # Sessions follow the machines: when the machines change, every session of the chosen
     # machines is selected again (a selection that would match nothing is never kept).
     if st.session_state.get("compare-machines-seen") != chosen:
@@ -40,19 +40,19 @@ with st.container(border=True):
                                      format_func=lambda name: name or "(no session)",
                                      placeholder="Choose sessions")
     first, second, third = st.columns([3, 3, 2])
-    rh_known = derived[col.RH].dropna()
+    rh_lowest, rh_highest = shared.dashboard_bounds(col.RH)
     rh_range = (0, 100)
     rh_whole = True  # the humidity filter keeps every reading
-    if not rh_known.empty:
-        low = int(rh_known.min() * 100)
-        high = int(rh_known.max() * 100) + 1
+    if not pd.isna(rh_lowest):
+        low = int(rh_lowest * 100)
+        high = int(rh_highest * 100) + 1
         rh_bounds = (max(0, min(low, 100)), max(0, min(high, 100)))
         rh_range = first.slider("Relative humidity [%]", 0, 100, rh_bounds, key="compare-rh")
         rh_whole = rh_range[0] <= rh_bounds[0] and rh_range[1] >= rh_bounds[1]
-    times = derived[col.TIME].dropna()
+    earliest, latest = shared.dashboard_bounds(col.TIME)
     date_range = None
-    if not times.empty:
-        first_day, last_day = times.min().date(), times.max().date()
+    if not pd.isna(earliest):
+        first_day, last_day = earliest.date(), latest.date()
         if first_day < last_day:
             date_range = second.slider("Dates", first_day, last_day, (first_day, last_day),
                                        key="compare-dates")

@@ -27,7 +27,7 @@ else:
     machine_ids = [machine_id for machine_id in machines if machine_id in present]
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids, key="report-machines",
                             format_func=lambda key: labels.get(key, key))
-    sessions = shared.sessions_in_run_order(derived, chosen)
+    sessions = shared.dashboard_sessions_in_run_order(chosen)
     chosen_sessions = st.multiselect("Sessions", sessions, default=sessions,
                                      key="report-sessions",
                                      format_func=lambda name: name or "(no session)")

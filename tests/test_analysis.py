@@ -872,3 +872,22 @@ def test_small_negative_currents_within_the_meter_tolerance_are_readings_near_ze
     # A negative speed is always flagged.
     derived = derive(frame("drum", [1e-6], speed_rev_s=-5.0), machines)
     assert derived[col.FLAGS][0] == "negative"
+
+
+def test_t_critical_is_scipy_s_student_t_quantile_bit_for_bit():
+    # t_critical skips scipy.stats.t.ppf's argument handling; the values must stay those of
+    # scipy.stats.t.ppf (the reference), also for arrays, and for impossible degrees of freedom
+    # (NaN) and confidences (1 gives infinity). 12.706 at 1 degree of freedom, 95 %: the
+    # Student t table (NIST/SEMATECH e-Handbook of Statistical Methods, 1.3.6.7.2).
+    from scipy import stats
+
+    from engine.analysis import t_critical
+
+    assert round(float(t_critical(1)), 3) == 12.706
+    degrees = np.array([1, 2, 3.5, 10, 58, 1_000, 2.5e6, 1e9])
+    for confidence in (0.95, 0.9, 0.99):
+        assert np.array_equal(t_critical(degrees, confidence),
+                              stats.t.ppf(0.5 + confidence / 2, degrees))
+        assert t_critical(7, confidence) == stats.t.ppf(0.5 + confidence / 2, 7)
+    assert np.isnan(t_critical(np.array([0.0, 3.0]))[0])
+    assert t_critical(5, 1.0) == math.inf

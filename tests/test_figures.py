@@ -632,3 +632,24 @@ def test_an_axis_of_one_value_up_to_rounding_gets_a_readable_range():
     varying = go.Figure(go.Scatter(x=[1, 2, 3], y=[30.0, 36.5, 41.0]))
     _style(varying, "t", "x", "y")
     assert varying.layout.yaxis.range is None  # left to the browser
+
+
+def test_shapes_given_reading_by_reading_are_checked_once_each_and_drawn_the_same():
+    # _add_readings checks each distinct marker shape once instead of plotly's check of every
+    # element; the figure must be the one plotly's own checked path gives, and a shape plotly
+    # does not know must still be refused (plotly's symbol list, plotly.graph_objects docs).
+    from engine.figures import _add_readings, _scatter
+
+    shapes = np.array(["circle", "square", "circle", "triangle-up"], dtype=object)
+    trace = {"x": np.arange(4.0), "y": np.arange(4.0) ** 2, "mode": "markers", "name": "m",
+             "marker": {"color": "#0072B2", "size": 6, "symbol": shapes}}
+    checked = go.Figure()
+    checked.add_trace(_scatter(4, **trace))
+    quick = go.Figure()
+    _add_readings(quick, 4, **trace)
+    assert quick.to_json() == checked.to_json()
+    assert list(quick.data[0].marker.symbol) == list(shapes)
+    wrong = {**trace, "marker": {"symbol": np.array(["circle", "no-such-shape"] * 2,
+                                                     dtype=object)}}
+    with pytest.raises(ValueError, match="no-such-shape"):
+        _add_readings(go.Figure(), 4, **wrong)

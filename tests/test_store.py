@@ -44,6 +44,7 @@ from engine.machines import dump_machines, parse_machines_text
 from engine.store import (
     BUNDLE_FORMAT,
     IMPORT_ID,
+    MIGRATIONS,
     SCHEMA_V1,
     SCHEMA_VERSION,
     default_store_path,
@@ -169,7 +170,7 @@ def test_open_sets_the_connection_pragmas(sqlite_store):
     assert connection.execute("PRAGMA foreign_keys").fetchone()[0] == 1
     assert connection.execute("PRAGMA busy_timeout").fetchone()[0] == 30_000
     assert connection.execute("PRAGMA synchronous").fetchone()[0] == 1  # 1 is NORMAL
-    assert store.schema_version == SCHEMA_VERSION == 4
+    assert store.schema_version == SCHEMA_VERSION == 5
 
 
 def test_a_file_that_is_not_a_store_is_an_input_error(tmp_path):
@@ -333,6 +334,24 @@ def test_imports_and_counts_describe_the_store(store, machine_file):
     assert store.counts() == {"machines": 1, "imports": 1, "sessions": 2, "readings": 120}
 
 
+def test_counts_take_sessions_shared_by_imports_once_and_names_with_commas_whole(store):
+    # counts() reads the imports table only (session names kept per import): a session in two
+    # imports counts once, a name with ", " in it is one session, deleting an import forgets
+    # its sessions, and a bundle brings its sessions with it. Expected counts worked by hand.
+    first = make_readings(40, seed=12)
+    first[SESSION] = ["a, b"] * 20 + ["c"] * 20
+    second = make_readings(30, seed=13)
+    second[SESSION] = ["c"] * 10 + [""] * 20
+    one = store.import_readings(first, "one")
+    store.import_readings(second, "two")
+    assert store.counts()["sessions"] == 3 and store.counts()["readings"] == 70
+    bundle = store.export_bundle([one])
+    store.delete_import(one)
+    assert store.counts()["sessions"] == 2 and store.counts()["readings"] == 30
+    store.import_bundle(bundle)
+    assert store.counts()["sessions"] == 3 and store.counts()["readings"] == 70
+
+
 def test_environment_log_round_trips(store):
     log = environment_log(30, seed=2, tz="UTC")
     import_id = store.import_readings(make_readings(10, seed=11), "with log", environment=log)
@@ -470,8 +489,8 @@ def test_a_version_1_store_is_migrated_and_keeps_its_data(tmp_path, machine_file
     assert readings[TIME].tolist()[0] == pd.Timestamp("2024-01-01 10:00")
     assert pd.isna(readings[TIME].iloc[1]) and np.isnan(readings[CURRENT_A].iloc[1])
     assert readings[CURRENT_A].iloc[0] == 1.25e-5
-    assert {"readings_by_import", "readings_by_machine", "readings_by_session",
-            "environment_by_import"} <= indexes
+    assert {"readings_by_import", "environment_by_import"} <= indexes
+    assert not {"readings_by_machine", "readings_by_session"} & indexes  # dropped by version 5
 
 
 def test_a_version_3_disc_without_an_inner_edge_is_migrated_as_the_full_disc_it_was(tmp_path):
@@ -494,6 +513,43 @@ def test_a_version_3_disc_without_an_inner_edge_is_migrated_as_the_full_disc_it_
     assert machine.spec["inner_diameter"] == "0 cm"
     assert machine.carrier.area_per_rev_m2 == pytest.approx(math.pi * 0.2**2)  # pi r^2
     assert machine.units == 2 and machine.tolerance_spec == {"outer_diameter": "1 mm"}
+
+
+def test_a_version_4_store_loses_two_readings_indexes_and_keeps_its_data(tmp_path,
+                                                                      machine_file):
+    # Version 5 drops the readings' indexes by machine and by session (they made saving slow
+    # and nothing reads by them); the index by import, and every reading, stay.
+    path = tmp_path / "v4.sqlite3"
+    build_version_1_store(path, machine_file)
+    connection = sqlite3.connect(path)
+    for steps in MIGRATIONS[1:4]:
+        for step in steps:
+            if callable(step):
+                step(connection)
+            else:
+                connection.execute(step)
+    connection.execute("PRAGMA user_version = 4")
+    connection.commit()
+    before = {row[0] for row in connection.execute(
+        "SELECT name FROM sqlite_master WHERE type = 'index' AND name NOT LIKE 'sqlite_%'")}
+    connection.close()
+    assert {"readings_by_machine", "readings_by_session"} <= before  # a true version 4 store
+    with open_store(path) as store:
+        assert store.schema_version == 5
+        after = {row[0] for row in store._connection.execute(
+            "SELECT name FROM sqlite_master WHERE type = 'index' AND name NOT LIKE 'sqlite_%'")}
+        readings = store.readings(machines=["twin-disc"])
+        counts = store.counts()  # the sessions' names were gathered from the readings
+        assert store.machines().machines == machine_file.machines
+        assert store.delete_import(1) is True  # the cascade still finds the readings
+        assert len(store.readings()) == 0
+    assert after == before - {"readings_by_machine", "readings_by_session"}
+    assert counts == {"machines": len(machine_file.machines), "imports": 1, "sessions": 1,
+                      "readings": 2}
+    assert "readings_by_import" in after
+    # The two readings that build_version_1_store wrote, as it wrote them.
+    assert readings[TIME].tolist()[0] == pd.Timestamp("2024-01-01 10:00")
+    assert readings[CURRENT_A].tolist()[0] == 1.25e-5 and np.isnan(readings[CURRENT_A].iloc[1])
 
 
 # --- foreign keys, cascades and demonstration data -----------------------------------------------

@@ -232,8 +232,8 @@ def test_a_bundle_of_the_same_machines_asks_nothing(store, machine_file):
     first, second, aware, naive = filled_store(store, machine_file)
     data = store.export_bundle(import_ids=[second])
     assert store.bundle_preview(data)["replaced"] == []
-    store.import_bundle(data)  # the same machines: nothing is replaced
-    assert store.counts()["imports"] == 3
+    assert store.import_bundle(data) == []  # the same machines: nothing is replaced
+    assert store.counts()["imports"] == 2  # and its import is there already: not added twice
 
 
 # --- 3. store faults -----------------------------------------------------------------------------

@@ -48,6 +48,7 @@ from engine.store.schema import (
     SCHEMA_V2,
     SCHEMA_V3,
     SCHEMA_V4,
+    SCHEMA_V5,
     SCHEMA_VERSION,
     schema_version,
 )
@@ -62,7 +63,8 @@ from engine.store.sqlite import (
 __all__ = [
     "BUNDLE_FORMAT", "BUNDLE_VERSION", "BUSY_TIMEOUT_S", "CHUNK_ROWS", "IMPORT_ID",
     "LOCK_WAIT_S", "MAX_BUNDLE_BYTES", "MAX_BUNDLE_MEMBERS", "MAX_NAME_LENGTH", "MIGRATIONS",
-    "SCHEMA_V1", "SCHEMA_V2", "SCHEMA_V3", "SCHEMA_V4", "SCHEMA_VERSION", "STORE_ENV_VAR",
+    "SCHEMA_V1", "SCHEMA_V2", "SCHEMA_V3", "SCHEMA_V4", "SCHEMA_V5",
+    "SCHEMA_VERSION", "STORE_ENV_VAR",
     "STORE_FILE_NAME", "SQLiteStore", "Store", "default_store_path", "open_store",
     "schema_version",
 ]

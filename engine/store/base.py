@@ -11,6 +11,7 @@ from __future__ import annotations
 import abc
 import contextlib
 import os
+import threading
 from collections.abc import Iterable, Mapping
 from pathlib import Path
 
@@ -381,20 +382,51 @@ class Store(abc.ABC):
     def _stored_machine_texts(self) -> dict[str, str]:
         """Machine id -> its stored machines-file text."""
 
-    def _derive_import(self, import_id: int, prepared: object, created_at: str) -> None:
-        """Write the derived cache's file of an import just stored, from the arrays in memory
-        (reading 10^6 readings back from the store costs several times the deriving).
+    def _derive_import(self, import_id: int, deriving: _Deriving, created_at: str) -> None:
+        """Write the derived cache's file of an import just stored, from the table derived
+        alongside the writing (reading 10^6 readings back costs several times the deriving).
 
         Best effort: the import is committed whatever happens here, and when the file is not
         written :meth:`DerivedCache.refresh` builds it from the store on the next read.
         """
-        from engine.columns import READING_COLUMNS
-        from engine.store.cache import DerivedCache  # the cache imports the engine's physics
-        from engine.store.schema import _READING_FLOATS
+        if deriving.table is None:
+            return
+        from engine.store.cache import DerivedCache
 
         try:
-            DerivedCache(self).add_import(import_id, created_at,
-                                          prepared.frame(READING_COLUMNS, _READING_FLOATS),
-                                          self.machines())
+            DerivedCache(self).add_table(import_id, created_at, deriving.table,
+                                         deriving.machine_file)
         except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
             pass
+
+
+class _Deriving:
+    """The derived table of an import's readings, made in a thread while the store writes them.
+
+    Both halves take about as long at 10^6 readings, and both leave Python's lock for much of
+    their work (SQLite while it writes its pages, a server while it takes the rows; numpy,
+    pandas and Arrow in their loops), so on two cores an import takes about the longer of the
+    two instead of their sum. :attr:`table` is None when deriving failed (the cache's refresh
+    builds the file later).
+    """
+
+    def __init__(self, prepared: object, machine_file: MachineFile) -> None:
+        self.machine_file = machine_file
+        self.table = None
+        self._prepared = prepared
+        self._thread = threading.Thread(target=self._run, name="derive-import", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            from engine.columns import READING_COLUMNS
+            from engine.store.cache import derived_table  # the cache imports the physics
+            from engine.store.schema import _READING_FLOATS
+
+            self.table = derived_table(self._prepared.frame(READING_COLUMNS, _READING_FLOATS),
+                                       self.machine_file)
+        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
+            self.table = None
+
+    def join(self) -> None:
+        self._thread.join()

@@ -114,9 +114,22 @@ def _unified_time(tables: list[pa.Table], column: str) -> list[pa.Table]:
     return unified
 
 
-def _write_derived(readings: pd.DataFrame, path: Path, machine_file: MachineFile) -> None:
+def derived_table(readings: pd.DataFrame, machine_file: MachineFile) -> pa.Table:
+    """The derived readings of one import as the Arrow table its file holds.
+
+    Parameters
+    ----------
+    readings : pandas.DataFrame
+        Exactly what ``store.readings(import_ids=[import_id])`` returns, without ``import_id``.
+    machine_file : MachineFile
+        The store's machines and site.
+    """
     derived = analysis.derive(readings, machine_file.by_id(), machine_file.site)
-    _write_atomically(pa.Table.from_pandas(derived, preserve_index=False), path)
+    return pa.Table.from_pandas(derived, preserve_index=False)
+
+
+def _write_derived(readings: pd.DataFrame, path: Path, machine_file: MachineFile) -> None:
+    _write_atomically(derived_table(readings, machine_file), path)
 
 
 class DerivedCache:
@@ -201,11 +214,25 @@ class DerivedCache:
         Path
             The file written (the one :meth:`refresh` looks for).
         """
+        return self.add_table(import_id, created_at, derived_table(readings, machine_file),
+                              machine_file)
+
+    def add_table(self, import_id: int, created_at: str, table: pa.Table,
+                  machine_file: MachineFile) -> Path:
+        """Write the file of an import just stored from its :func:`derived_table` (which the
+        store derives while SQLite writes the readings); see :meth:`add_import`.
+
+        Returns
+        -------
+        Path
+            The file written (the one :meth:`refresh` looks for).
+        """
         key = machines_key(machine_file)
-        name = f"import-{import_id}-{_file_key(key, import_id, created_at, len(readings))}.parquet"
+        rows = table.num_rows
+        name = f"import-{import_id}-{_file_key(key, import_id, created_at, rows)}.parquet"
         self._folder.mkdir(parents=True, exist_ok=True)
         path = self._folder / name
-        _write_derived(readings, path, machine_file)
+        _write_atomically(table, path)
         return path
 
     def read(self, columns: Sequence[str] | None = None,
@@ -251,7 +278,13 @@ class DerivedCache:
             return self._empty(wanted)
         if col.TIME in tables[0].column_names:
             tables = _unified_time(tables, col.TIME)
-        frame = pa.concat_tables(tables).to_pandas()
+        table = pa.concat_tables(tables)
+        del tables
+        frame = table.to_pandas(self_destruct=True)  # each column freed once converted
+        del table
+        # Arrow's allocator keeps what it freed for reuse: at 10^7 readings that was 1 GB of
+        # the process's memory, held for good.
+        pa.default_memory_pool().release_unused()
         return frame
 
     def _empty(self, columns: list[str] | None) -> pd.DataFrame:

@@ -74,7 +74,7 @@ from engine.machines import (
     parse_machines_text,
     site_from_table,
 )
-from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store
+from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store, _Deriving
 from engine.store.bundle import BundleReader, _bundle_key
 from engine.store.frames import (
     _TEXT_DTYPE,
@@ -95,6 +95,7 @@ from engine.store.schema import (
     _TIME_NS,
     SCHEMA_VERSION,
 )
+from engine.store.sqlite import _session_names
 
 #: Beginnings of a location that names a PostgreSQL server instead of a file.
 SERVER_SCHEMES = ("postgresql://", "postgres://")
@@ -191,7 +192,15 @@ POSTGRES_LAYOUT: tuple[str, ...] = (
 POSTGRES_FIRST_VERSION = 4
 #: Statements that bring a server store from version ``n`` to ``n + 1`` are
 #: ``POSTGRES_STEPS[n]``, for every version from :data:`POSTGRES_FIRST_VERSION` on.
-POSTGRES_STEPS: dict[int, tuple[str, ...]] = {}
+POSTGRES_STEPS: dict[int, tuple[str, ...]] = {
+    # Version 5: each import keeps its sessions' names (a JSON array), so that counting the
+    # lab's sessions reads no reading. (The embedded store's dropped indexes by machine and
+    # session never existed here.)
+    4: ("ALTER TABLE imports ADD COLUMN IF NOT EXISTS session_names text NOT NULL "
+        "DEFAULT '[]'",
+        "UPDATE imports SET session_names = COALESCE((SELECT json_agg(DISTINCT session "
+        "ORDER BY session)::text FROM readings WHERE readings.import_id = imports.id), '[]')"),
+}
 
 #: What each kind of account may do, table by table (granted to the group roles).
 _GRANTS = {
@@ -745,8 +754,12 @@ class PostgresStore(Store):
                                  "the imports list to see them")
             return int(found[0])
 
-        import_id = self._run(work, "import_readings", on_commit=stored)
-        self._derive_import(import_id, prepared, str(meta["created_at"]))
+        deriving = _Deriving(prepared, self.machines())  # alongside the server's writing
+        try:
+            import_id = self._run(work, "import_readings", on_commit=stored)
+        finally:
+            deriving.join()
+        self._derive_import(import_id, deriving, str(meta["created_at"]))
         return import_id
 
     def readings(self, machines: Iterable[str] | str | None = None,
@@ -921,10 +934,12 @@ class PostgresStore(Store):
                                 "OR EXISTS (SELECT 1 FROM imports WHERE is_demo)")[0][0])
 
     def counts(self) -> dict[str, int]:
-        """Numbers of machines, imports, sessions (distinct session names) and readings."""
+        """Numbers of machines, imports, sessions (distinct session names) and readings, from
+        the imports table alone (each import keeps its sessions' names and its readings)."""
         machines, imports, sessions, readings = self._query(
             "SELECT (SELECT COUNT(*) FROM machines), (SELECT COUNT(*) FROM imports), "
-            "(SELECT COUNT(DISTINCT session) FROM readings), "
+            "(SELECT COUNT(DISTINCT listed.value) FROM imports, "
+            "json_array_elements_text(imports.session_names::json) AS listed(value)), "
             "(SELECT COALESCE(SUM(rows), 0) FROM imports)")[0]
         return {"machines": int(machines), "imports": int(imports), "sessions": int(sessions),
                 "readings": int(readings)}
@@ -1032,12 +1047,14 @@ def _save_machine(connection: psycopg.Connection, machine: Machine, text: str,
 
 def _insert_import_row(connection: psycopg.Connection, meta: Mapping[str, object],
                        readings: _Prepared, environment: _Prepared | None) -> int:
+    session_names = _session_names(readings.arrays[READING_COLUMNS.index(SESSION)])
     return int(connection.execute(
         "INSERT INTO imports (name, source, created_at, is_demo, rows, machines, sessions, "
-        "time_dtype, environment_rows, environment_time_dtype) "
-        "VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s) RETURNING id",
+        "session_names, time_dtype, environment_rows, environment_time_dtype) "
+        "VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s) RETURNING id",
         (meta["name"], meta["source"], meta["created_at"], bool(meta["is_demo"]),
-         readings.rows, readings.machines, readings.sessions, readings.time_dtype,
+         readings.rows, readings.machines, readings.sessions, session_names,
+         readings.time_dtype,
          0 if environment is None else environment.rows,
          "datetime64[ns]" if environment is None else environment.time_dtype)).fetchone()[0])
 
@@ -1220,8 +1237,10 @@ def _insert_bundle(connection: psycopg.Connection, bundle: BundleReader,
                 machines[import_id].update(pd.unique(prepared.arrays[machine_at]).tolist())
                 sessions[import_id].update(pd.unique(prepared.arrays[session_at]).tolist())
     with connection.cursor() as cursor:
-        cursor.executemany("UPDATE imports SET machines = %s, sessions = %s WHERE id = %s",
+        cursor.executemany("UPDATE imports SET machines = %s, sessions = %s, "
+                           "session_names = %s WHERE id = %s",
                            [(", ".join(sorted(machines[import_id])),
-                             ", ".join(sorted(sessions[import_id])), import_id)
+                             ", ".join(sorted(sessions[import_id])),
+                             _session_names(sessions[import_id]), import_id)
                             for import_id in new_ids.values()])
     return list(new_ids.values())
