@@ -866,9 +866,9 @@ def build_parser() -> argparse.ArgumentParser:
                              "Compare and Sessions pages driven, findings checked for "
                              "exactness (see engine.dashboard_bench)")
     parser.add_argument("--store", metavar="postgresql://...",
-                        help="benchmark saving into a lab on a PostgreSQL server (an empty "
-                             "database of its own) against an SQLite file instead "
-                             "(see engine.store_bench)")
+                        help="a lab on a PostgreSQL server (an empty database of its own): "
+                             "benchmark saving into it against an SQLite file (see "
+                             "engine.store_bench), or with --dashboard, the dashboard on it")
     parser.add_argument("--imports", type=_positive, default=None,
                         help="with --dashboard: imports the readings are saved in "
                              "(default 10)")
@@ -889,7 +889,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         from engine import dashboard_bench
 
         result = dashboard_bench.run_dashboard_benchmark(
-            args.rows, args.machines, args.imports or dashboard_bench.DEFAULT_IMPORTS, args.keep)
+            args.rows, args.machines, args.imports or dashboard_bench.DEFAULT_IMPORTS, args.keep,
+            store=args.store)
         print(json.dumps(_finite(result)) if args.json
               else dashboard_bench.format_dashboard_table(result))
         return 0

@@ -233,7 +233,8 @@ def dashboard_targets_met(result: Mapping[str, object]) -> dict[str, bool | None
 
 
 def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAULT_IMPORTS,
-                            keep: Path | None = None) -> dict[str, object]:
+                            keep: Path | None = None,
+                            store: str | None = None) -> dict[str, object]:
     """Build the store, drive the pages, check the findings; return the figures by key.
 
     Parameters
@@ -246,6 +247,9 @@ def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAUL
         Imports K the readings are saved in.
     keep : Path, optional
         Folder that keeps the store and its cache; default a temporary folder, removed.
+    store : str, optional
+        A lab on a PostgreSQL server (``postgresql://...``, an empty database of its own)
+        to use instead of an SQLite file; what the benchmark saved there is removed at the end.
 
     Returns
     -------
@@ -256,7 +260,12 @@ def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAUL
 
     folder = Path(keep) if keep is not None else Path(tempfile.mkdtemp(prefix="dashboard-"))
     folder.mkdir(parents=True, exist_ok=True)
-    path = folder / "dashboard.sqlite3"
+    path = folder / "dashboard.sqlite3" if store is None else store
+    if store is not None:
+        with open_store(store) as server:
+            if not server.is_empty():
+                raise SystemExit(f"--store: {server.location} is not empty; give the benchmark "
+                                 "a lab of its own (it removes what it saved afterwards)")
     try:
         machine_file = synthetic_machines(machines)
         _progress(f"building a store of {rows:,} readings in {imports} imports...")
@@ -268,6 +277,8 @@ def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAUL
     finally:
         if keep is None:
             shutil.rmtree(folder, ignore_errors=True)
+        if store is not None:
+            _empty_the_lab(store)
     result: dict[str, object] = {
         "rows": rows, "machines": machines, "imports": imports, "long_session_rows": long_rows,
         "import_s": import_s, "cache_s": cache_s, **app,
@@ -277,6 +288,16 @@ def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAUL
     }
     result["met"] = dashboard_targets_met(result)
     return {key: result.get(key) for key in DASHBOARD_KEYS}
+
+
+def _empty_the_lab(location: str) -> None:
+    """Remove what the benchmark saved in a server lab (its imports, machines and site)."""
+    with open_store(location) as server:
+        for import_id in server.imports()["id"].tolist():
+            server.delete_import(import_id)
+        for machine in server.machines().machines:
+            server.delete_machine(machine.id)
+        server.save_site({})
 
 
 def format_dashboard_table(result: Mapping[str, object]) -> str:

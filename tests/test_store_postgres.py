@@ -537,3 +537,19 @@ def test_the_store_benchmark_runs_and_leaves_the_lab_as_it_found_it(pg_lab):
         store.save_machine(parse_machines_text(MACHINES_TEXT).machines[0])
     with pytest.raises(SystemExit, match="not empty"):
         run_store_benchmark(pg_lab, rows=100, machines=2)
+
+
+def test_the_dashboard_benchmark_runs_on_a_server_lab(pg_lab, capsys):
+    """``--dashboard --store URL``: the pages on a server lab, findings exact, lab left empty."""
+    import json
+
+    from engine import bench, dashboard_bench
+
+    assert bench.main(["--dashboard", "--store", pg_lab, "--rows", "4000", "--machines", "4",
+                       "--imports", "2", "--json"]) == 0
+    result = json.loads(capsys.readouterr().out)
+    assert list(result) == list(dashboard_bench.DASHBOARD_KEYS)
+    assert result["findings_exact"] is True and result["rows"] == 4000
+    assert result["compare_first_s"] > 0 and result["import_s"] > 0
+    with open_store(pg_lab) as store:
+        assert store.is_empty() and store.machines().site.spec == {}
