@@ -376,6 +376,10 @@ def test_a_bench_cannot_reach_around_the_app(pg_cluster, pg_lab):
         assert raw.execute("DELETE FROM imports").rowcount == 0  # not its own: not seen
         assert raw.execute("UPDATE imports SET name = 'x'").rowcount == 0
         assert raw.execute("UPDATE machines SET label = 'x'").rowcount == 0  # the keeper's
+        keepers = raw.execute("SELECT id FROM imports").fetchone()[0]
+        with pytest.raises(psycopg.errors.InsufficientPrivilege, match="import of one's own"):
+            raw.execute('INSERT INTO readings (import_id, position, "row", machine, session, '
+                        "note, flags) VALUES (%s, 99, 1, 'x', '', '', '')", (keepers,))
     with open_store(pg_lab) as keeper:
         assert keeper.machines().machines[0].label == "Twin-disc, restored"
         assert keeper.counts()["readings"] == 10

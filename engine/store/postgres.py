@@ -181,6 +181,25 @@ POSTGRES_LAYOUT: tuple[str, ...] = (
     "CREATE POLICY imports_added ON imports FOR INSERT WITH CHECK (saved_by = current_user)",
     "CREATE POLICY imports_changed ON imports FOR UPDATE USING (saved_by = current_user)",
     "CREATE POLICY imports_removed ON imports FOR DELETE USING (saved_by = current_user)",
+    # Rows go only into an import of the account's own (checked once per statement, over the
+    # rows it added: a COPY of 10^6 readings costs one pass, not a check per row); the
+    # keeper, who owns the tables, may add to any.
+    """CREATE FUNCTION ceiling_lab_own_import_rows() RETURNS trigger LANGUAGE plpgsql AS $$
+    BEGIN
+        IF NOT pg_has_role(current_user, (SELECT tableowner FROM pg_tables
+                                          WHERE tablename = 'imports'
+                                          AND schemaname = current_schema()), 'MEMBER')
+           AND EXISTS (SELECT 1 FROM added JOIN imports ON imports.id = added.import_id
+                       WHERE imports.saved_by <> current_user) THEN
+            RAISE EXCEPTION USING ERRCODE = 'insufficient_privilege',
+                MESSAGE = 'rows may be added only to an import of one''s own';
+        END IF;
+        RETURN NULL;
+    END $$""",
+    "CREATE TRIGGER readings_own_import AFTER INSERT ON readings REFERENCING NEW TABLE AS added "
+    "FOR EACH STATEMENT EXECUTE FUNCTION ceiling_lab_own_import_rows()",
+    "CREATE TRIGGER environment_own_import AFTER INSERT ON environment REFERENCING NEW TABLE "
+    "AS added FOR EACH STATEMENT EXECUTE FUNCTION ceiling_lab_own_import_rows()",
     # The same for machines: a bench adds machines and changes those it described.
     "ALTER TABLE machines ENABLE ROW LEVEL SECURITY",
     "CREATE POLICY machines_seen ON machines FOR SELECT USING (true)",
