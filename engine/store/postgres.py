@@ -40,6 +40,7 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import io
+import os
 import re
 import threading
 import time
@@ -315,10 +316,11 @@ def describe_location(url: str) -> str:
     "database 'ceiling_lab' on 10.0.0.5:5433"
     """
     settings = _settings(url)
-    host = settings.get("host") or settings.get("hostaddr") or "this computer"
+    host = (settings.get("host") or settings.get("hostaddr") or os.environ.get("PGHOST")
+            or "this computer")
     if host.startswith("/"):
         host = "this computer (local socket)"
-    port = settings.get("port", "5432")
+    port = settings.get("port") or os.environ.get("PGPORT") or "5432"
     database = settings.get("dbname") or settings.get("user") or "(the account's own)"
     return f"database '{database}' on {host}:{port}"
 
