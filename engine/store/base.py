@@ -12,7 +12,7 @@ import abc
 import contextlib
 import os
 import threading
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from pathlib import Path
 
 import pandas as pd
@@ -178,7 +178,6 @@ class Store(abc.ABC):
             and the column). Nothing is stored then.
         """
 
-    @abc.abstractmethod
     def readings(self, machines: Iterable[str] | str | None = None,
                  sessions: Iterable[str] | str | None = None,
                  import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
@@ -200,11 +199,24 @@ class Store(abc.ABC):
             as UTC), else naive, in nanoseconds.
         """
 
-    @abc.abstractmethod
+        from engine.columns import MACHINE, READING_COLUMNS, SESSION
+        from engine.store.frames import _ids, _texts
+        from engine.store.schema import _READING_FLOATS
+
+        filters = [(MACHINE, _texts(machines)), (SESSION, _texts(sessions)),
+                   (IMPORT_ID, _ids(import_ids))]
+        return self._read_table("readings", READING_COLUMNS, _READING_FLOATS, filters,
+                                "time_dtype")
+
     def environment(self, import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
         """Stored environment logs, columns ENVIRONMENT_COLUMNS and ``import_id``."""
+        from engine.columns import ENVIRONMENT_COLUMNS
+        from engine.store.frames import _ids
+        from engine.store.schema import _ENVIRONMENT_FLOATS
 
-    @abc.abstractmethod
+        return self._read_table("environment", ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
+                                [(IMPORT_ID, _ids(import_ids))], "environment_time_dtype")
+
     def imports(self) -> pd.DataFrame:
         """The imports, oldest first.
 
@@ -215,6 +227,9 @@ class Store(abc.ABC):
             ``is_demo`` (bool), ``rows`` (number of readings), ``machines`` and ``sessions``
             (their names, joined by ", "), ``environment_rows``.
         """
+        from engine.store.frames import _imports_frame
+
+        return _imports_frame(*reversed(self._import_rows()))
 
     @abc.abstractmethod
     def delete_import(self, import_id: int) -> bool:
@@ -377,6 +392,19 @@ class Store(abc.ABC):
     @abc.abstractmethod
     def _time_dtypes(self) -> dict[int, tuple[str, str]]:
         """Import id -> time dtype of its readings and of its environment log."""
+
+    @abc.abstractmethod
+    def _read_table(self, table: str, columns: Sequence[str], floats: Sequence[str],
+                    filters: Sequence[tuple[str, list | None]],
+                    dtype_column: str) -> pd.DataFrame:
+        """Rows of ``readings`` or ``environment`` in stored order, ``columns`` and
+        ``import_id``, filtered by ``(column, values or None)``; time in the dtype the imports'
+        ``dtype_column`` names (see :meth:`readings`)."""
+
+    @abc.abstractmethod
+    def _import_rows(self) -> tuple[list[str], list[tuple]]:
+        """The column names and rows of the imports table, oldest first (the columns of
+        :meth:`imports`, and any the back end adds)."""
 
     @abc.abstractmethod
     def _stored_machine_texts(self) -> dict[str, str]:

@@ -229,3 +229,50 @@ def _restore_time(nanoseconds: np.ndarray, dtype_texts: set[str]) -> pd.Datetime
         return index.tz_localize("UTC").tz_convert(dtype.tz).as_unit(dtype.unit)
     return index.as_unit(np.datetime_data(dtype)[0])
 
+
+
+def _machine_text(machine) -> str:
+    """A machine as the machines-file text a store keeps, checked to read back as itself."""
+    from engine.machines import dump_machines, parse_machines_text
+
+    text = dump_machines([machine])
+    restored = parse_machines_text(text, f"machine '{machine.id}'").machines
+    if len(restored) != 1 or restored[0].id != machine.id:
+        raise InputError(f"machine '{machine.id}': it cannot be written as a machines file")
+    return text
+
+
+def _prepare_import(frame: pd.DataFrame, name: object, source: object,
+                    environment: pd.DataFrame | None, demo: bool
+                    ) -> tuple[_Prepared, _Prepared | None, dict[str, object], str]:
+    """An import checked and converted before any write: the readings, the environment log,
+    the import's row (name, source, time stored, demo) and the name its messages use."""
+    from engine.columns import ENVIRONMENT_COLUMNS
+    from engine.store.schema import _ENVIRONMENT_FLOATS, _READING_FLOATS
+
+    name, source = _import_names(name, source)
+    where = source or name  # messages name the file the user knows
+    prepared = _prepare(frame, READING_COLUMNS, _READING_FLOATS, where)
+    prepared_environment = (None if environment is None else
+                            _prepare(environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
+                                     f"{where}, environment log"))
+    meta = {"name": name, "source": source, "created_at": _now_text(), "is_demo": demo}
+    return prepared, prepared_environment, meta, where
+
+
+#: Columns of :meth:`Store.imports` and their kinds.
+_IMPORT_COLUMNS = {"id": "int", "name": "text", "source": "text", "created_at": "text",
+                   "is_demo": "bool", "rows": "int", "machines": "text", "sessions": "text",
+                   "environment_rows": "int"}
+
+
+def _imports_frame(rows: Sequence[Sequence[object]], columns: Sequence[str]) -> pd.DataFrame:
+    """The frame of :meth:`Store.imports` from a store's rows of ``columns`` (other columns
+    than :data:`_IMPORT_COLUMNS` are text)."""
+    frame = pd.DataFrame(rows, columns=list(columns))
+    for column in columns:
+        kind = _IMPORT_COLUMNS.get(column, "text")
+        frame[column] = (frame[column].astype(np.int64) if kind == "int" else
+                         frame[column].astype(bool) if kind == "bool" else
+                         frame[column].astype(object).astype(_TEXT_DTYPE))
+    return frame

@@ -78,14 +78,13 @@ from engine.machines import (
 from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store, _Deriving
 from engine.store.bundle import BundleReader, _bundle_key
 from engine.store.frames import (
+    _IMPORT_COLUMNS,
     _TEXT_DTYPE,
-    _ids,
-    _import_names,
+    _machine_text,
     _now_text,
-    _prepare,
+    _prepare_import,
     _Prepared,
     _restore_time,
-    _texts,
 )
 from engine.store.schema import (
     _ENVIRONMENT_FLOATS,
@@ -704,10 +703,7 @@ class PostgresStore(Store):
     # --- machines and site ---------------------------------------------------------------------
     def save_machine(self, machine: Machine, demo: bool = False) -> None:
         """See :meth:`engine.store.base.Store.save_machine`."""
-        text = dump_machines([machine])
-        restored = parse_machines_text(text, f"machine '{machine.id}'").machines
-        if len(restored) != 1 or restored[0].id != machine.id:
-            raise InputError(f"machine '{machine.id}': it cannot be written as a machines file")
+        text = _machine_text(machine)
         self._run(lambda connection: _save_machine(connection, machine, text, demo),
                   "save_machine", on_commit=_nothing)
 
@@ -745,17 +741,13 @@ class PostgresStore(Store):
     def import_readings(self, frame: pd.DataFrame, name: str, source: str = "",
                         environment: pd.DataFrame | None = None, demo: bool = False) -> int:
         """See :meth:`engine.store.base.Store.import_readings`."""
-        name, source = _import_names(name, source)
-        where = source or name
-        prepared = _prepare(frame, READING_COLUMNS, _READING_FLOATS, where)
-        prepared_environment = (None if environment is None else
-                                _prepare(environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
-                                         f"{where}, environment log"))
+        prepared, prepared_environment, meta, where = _prepare_import(
+            frame, name, source, environment, demo)
+        name, source = meta["name"], meta["source"]
         blocks = _copy_blocks(prepared, READING_COLUMNS, _READING_FLOATS, where)
         environment_blocks = (None if prepared_environment is None else _copy_blocks(
             prepared_environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
             f"{where}, environment log"))
-        meta = {"name": name, "source": source, "created_at": _now_text(), "is_demo": demo}
 
         def work(connection: psycopg.Connection) -> int:
             import_id = _insert_import_row(connection, meta, prepared, prepared_environment)
@@ -782,20 +774,6 @@ class PostgresStore(Store):
             deriving.join()
         self._derive_import(import_id, deriving, str(meta["created_at"]))
         return import_id
-
-    def readings(self, machines: Iterable[str] | str | None = None,
-                 sessions: Iterable[str] | str | None = None,
-                 import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
-        """See :meth:`engine.store.base.Store.readings`."""
-        filters = [(MACHINE, _texts(machines)), (SESSION, _texts(sessions)),
-                   (IMPORT_ID, _ids(import_ids))]
-        return self._read_table("readings", READING_COLUMNS, _READING_FLOATS, filters,
-                                "time_dtype")
-
-    def environment(self, import_ids: Iterable[int] | int | None = None) -> pd.DataFrame:
-        """Stored environment logs, columns ENVIRONMENT_COLUMNS and ``import_id``."""
-        return self._read_table("environment", ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
-                                [(IMPORT_ID, _ids(import_ids))], "environment_time_dtype")
 
     def _read_table(self, table: str, columns: Sequence[str], floats: Sequence[str],
                     filters: Sequence[tuple[str, list | None]],
@@ -879,20 +857,10 @@ class PostgresStore(Store):
         data[IMPORT_ID] = import_ids.astype(np.int64)
         return pd.DataFrame(data, columns=[*columns, IMPORT_ID])
 
-    def imports(self) -> pd.DataFrame:
-        """The imports, oldest first (see :meth:`Store.imports`), with ``saved_by``: the account
-        that saved each."""
-        columns = ["id", "name", "source", "created_at", "is_demo", "rows", "machines",
-                   "sessions", "environment_rows", "saved_by"]
-        rows = self._query(f"SELECT {', '.join(columns)} FROM imports ORDER BY id")
-        frame = pd.DataFrame(rows, columns=columns)
-        frame["saved_by"] = frame["saved_by"].astype(object).astype(_TEXT_DTYPE)
-        for column in ("id", "rows", "environment_rows"):
-            frame[column] = frame[column].astype(np.int64)
-        frame["is_demo"] = frame["is_demo"].astype(bool)
-        for column in ("name", "source", "created_at", "machines", "sessions"):
-            frame[column] = frame[column].astype(object).astype(_TEXT_DTYPE)
-        return frame
+    def _import_rows(self) -> tuple[list[str], list[tuple]]:
+        """The imports' rows, with ``saved_by``: the account that saved each."""
+        columns = [*_IMPORT_COLUMNS, "saved_by"]
+        return columns, self._query(f"SELECT {', '.join(columns)} FROM imports ORDER BY id")
 
     def delete_import(self, import_id: int) -> bool:
         """Remove an import with its readings and environment log. Returns whether it existed.
