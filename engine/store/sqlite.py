@@ -224,10 +224,15 @@ class _Deriving:
     :attr:`table` is None when deriving failed (the cache's refresh builds the file later).
     """
 
-    def __init__(self, prepared: _Prepared, machine_file: MachineFile) -> None:
-        self.machine_file = machine_file
+    def __init__(self, prepared: _Prepared, store: SQLiteStore) -> None:
+        self.machine_file: MachineFile | None = None
         self.table = None
         self._prepared = prepared
+        try:
+            self.machine_file = store.machines()
+        except Exception:  # noqa: BLE001 - the import goes on; refresh builds the file later
+            self._thread = None
+            return
         self._thread = threading.Thread(target=self._run, name="derive-import", daemon=True)
         self._thread.start()
 
@@ -241,7 +246,8 @@ class _Deriving:
             self.table = None
 
     def join(self) -> None:
-        self._thread.join()
+        if self._thread is not None:
+            self._thread.join()
 
 
 class SQLiteStore(Store):
@@ -364,7 +370,7 @@ class SQLiteStore(Store):
                                 _prepare(environment, ENVIRONMENT_COLUMNS, _ENVIRONMENT_FLOATS,
                                          f"{where}, environment log"))
         meta = {"name": name, "source": source, "created_at": _now_text(), "is_demo": demo}
-        deriving = _Deriving(prepared, self.machines())  # alongside SQLite's writing
+        deriving = _Deriving(prepared, self)  # alongside SQLite's writing
         try:
             import_id = self._write(lambda connection: _insert_import(
                 connection, prepared, prepared_environment, meta))
@@ -380,7 +386,7 @@ class SQLiteStore(Store):
         Best effort: the import is committed whatever happens here, and when the file is not
         written :meth:`DerivedCache.refresh` builds it from the store on the next read.
         """
-        if deriving.table is None:
+        if deriving.table is None or deriving.machine_file is None:
             return
         from engine.store.cache import DerivedCache
 
