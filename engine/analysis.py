@@ -832,17 +832,18 @@ def _compact_codes(codes: np.ndarray, code_count: int) -> tuple[np.ndarray, np.n
     return present, compact[codes]
 
 
-def _flag_free(derived: pd.DataFrame) -> np.ndarray:
-    """True where a reading has no flag (flags missing or ""): ``_clean_flags(derived) == ""``,
-    decided once per distinct flags text instead of once per reading."""
+def _flag_free(derived: pd.DataFrame, allowed: Sequence[str] = ("",)) -> np.ndarray:
+    """True where a reading's flags text (missing as "") is one of ``allowed`` (default: no
+    flag, ``_clean_flags(derived) == ""``), decided once per distinct flags text instead of once
+    per reading (a Python text per reading also held its memory at millions of readings)."""
     if col.FLAGS not in derived:
-        return np.ones(len(derived), dtype=bool)
+        return np.full(len(derived), "" in allowed, dtype=bool)
     flags = derived[col.FLAGS]
     if isinstance(flags.dtype, pd.CategoricalDtype):
         codes, texts = flags.cat.codes.to_numpy(), flags.cat.categories
     else:
         codes, texts = pd.factorize(flags, use_na_sentinel=True)
-    free = np.array([str(text) == "" for text in texts] + [True])  # the last: missing flags
+    free = np.array([str(text) in allowed for text in texts] + ["" in allowed])  # last: missing
     return free[np.where(codes < 0, len(texts), codes)]
 
 
@@ -953,15 +954,6 @@ def findings(derived: pd.DataFrame, machines: Mapping[str, Machine] | MachineFil
         rows.append(_group_findings(machine_id, session, machine_map.get(machine_id),
                                     positions, data, clean, usable, reference_rh))
     return pd.DataFrame(rows, columns=list(FINDINGS_COLUMNS))
-
-
-def _usable_for_fits(flags: pd.Series, efficiency: np.ndarray) -> np.ndarray:
-    """Readings the fits use: those without any flag, with a finite efficiency."""
-    flag_text = flags.to_numpy(dtype=object) if not isinstance(flags, np.ndarray) else flags
-    codes, texts = pd.factorize(pd.Series(flag_text), use_na_sentinel=True)
-    clean_text = np.array([text == "" for text in texts] + [True])
-    codes = np.where(codes < 0, len(texts), codes)
-    return np.isfinite(efficiency) & clean_text[codes]
 
 
 def _empty_findings(machine_id: str, session: str | None, machine: Machine | None) -> dict:
@@ -1311,9 +1303,8 @@ def compare_sessions(derived: pd.DataFrame, machine_id: str, session_a: str,
             raise InputError(f"machine '{machine_id}' has no readings in session '{name}'; its "
                              f"sessions are {listed}")
 
-    flags = _clean_flags(derived)
     efficiency = derived[col.EFFICIENCY].to_numpy(dtype=float)
-    usable = machine_rows & _usable_for_fits(flags, efficiency)
+    usable = machine_rows & _flag_free(derived) & np.isfinite(efficiency)
     in_a = usable & (sessions == session_a).to_numpy()
     in_b = usable & (sessions == session_b).to_numpy()
     n_a, n_b = int(in_a.sum()), int(in_b.sum())
@@ -1747,8 +1738,7 @@ def load_line_findings(derived: pd.DataFrame, by_session: bool = True) -> pd.Dat
 
     current, voltage, speed = floats(col.CURRENT_A), floats(col.VOLTAGE_V), floats(
         col.SPEED_REV_S)
-    flags = _clean_flags(derived).to_numpy(dtype=object)
-    usable = ((flags == "") | (flags == "above_ceiling")) & np.isfinite(current) & np.isfinite(
+    usable = _flag_free(derived, ("", "above_ceiling")) & np.isfinite(current) & np.isfinite(
         voltage)
     machines = derived[col.MACHINE].fillna("").astype(str)
     keys = [machines]

@@ -417,7 +417,7 @@ class Store(abc.ABC):
         Best effort: the import is committed whatever happens here, and when the file is not
         written :meth:`DerivedCache.refresh` builds it from the store on the next read.
         """
-        if deriving.table is None:
+        if deriving.table is None or deriving.machine_file is None:
             return
         from engine.store.cache import DerivedCache
 
@@ -438,10 +438,15 @@ class _Deriving:
     builds the file later).
     """
 
-    def __init__(self, prepared: object, machine_file: MachineFile) -> None:
-        self.machine_file = machine_file
+    def __init__(self, prepared: object, store: Store) -> None:
+        self.machine_file: MachineFile | None = None
         self.table = None
         self._prepared = prepared
+        try:
+            self.machine_file = store.machines()
+        except Exception:  # noqa: BLE001 - the import goes on; refresh builds the file later
+            self._thread = None
+            return
         self._thread = threading.Thread(target=self._run, name="derive-import", daemon=True)
         self._thread.start()
 
@@ -457,4 +462,5 @@ class _Deriving:
             self.table = None
 
     def join(self) -> None:
-        self._thread.join()
+        if self._thread is not None:
+            self._thread.join()

@@ -767,7 +767,7 @@ class PostgresStore(Store):
                                  "the imports list to see them")
             return int(found[0])
 
-        deriving = _Deriving(prepared, self.machines())  # alongside the server's writing
+        deriving = _Deriving(prepared, self)  # alongside the server's writing
         try:
             import_id = self._run(work, "import_readings", on_commit=stored)
         finally:

@@ -338,7 +338,7 @@ class SQLiteStore(Store):
         """See :meth:`engine.store.base.Store.import_readings`."""
         prepared, prepared_environment, meta, where = _prepare_import(
             frame, name, source, environment, demo)
-        deriving = _Deriving(prepared, self.machines())  # alongside SQLite's writing
+        deriving = _Deriving(prepared, self)  # alongside SQLite's writing
         try:
             import_id = self._write(lambda connection: _insert_import(
                 connection, prepared, prepared_environment, meta))
