@@ -7,10 +7,6 @@ both back ends as well."""
 import contextlib
 import os
 import signal
-import subprocess
-import sys
-import time
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -24,9 +20,14 @@ from engine.machines import parse_machines_text
 from engine.store import IMPORT_ID, SCHEMA_VERSION, open_store
 from engine.store.cache import DerivedCache
 from tests.helpers.store_worker import make_readings
-from tests.test_store import MACHINES_TEXT, environment_log, filled_store, random_bit_floats
-
-ROOT = Path(__file__).resolve().parents[1]
+from tests.test_store import (
+    MACHINES_TEXT,
+    environment_log,
+    filled_store,
+    random_bit_floats,
+    read_until,
+    run_worker,
+)
 
 
 @pytest.fixture
@@ -415,30 +416,13 @@ def test_a_viewer_sees_everything_and_changes_nothing(pg_cluster, pg_lab, machin
 
 
 # --- many benches at once, and a bench killed half-way ----------------------------------------
-def run_worker(*arguments):
-    return subprocess.Popen([sys.executable, "-m", "tests.helpers.store_worker", *arguments],
-                            cwd=ROOT, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                            env={**os.environ, "PYTHONPATH": str(ROOT)})
-
-
-def read_until(process, prefix, timeout_s=60.0):
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        line = process.stdout.readline()
-        if not line:
-            raise AssertionError(f"worker ended before {prefix!r}: {process.stderr.read()}")
-        if line.startswith(prefix):
-            return line.strip()
-    raise AssertionError(f"no {prefix!r} from the worker in {timeout_s} s")
-
-
 def run_workers(url, jobs, go_file):
     """Worker processes importing at once: each opens the lab, waits for ``go_file``, imports."""
     workers = [run_worker(url, "import", name, str(rows), str(seed), str(go_file))
                for name, rows, seed in jobs]
     try:
         for worker in workers:
-            read_until(worker, "OPEN")
+            read_until(worker, "OPEN", timeout_s=60.0)
         go_file.touch()
         outputs = [worker.communicate(timeout=180) for worker in workers]
     finally:

@@ -124,9 +124,16 @@ class Store(abc.ABC):
     def delete_machine(self, machine_id: str) -> bool:
         """Remove a machine; its readings stay. Returns whether it was in the store."""
 
-    @abc.abstractmethod
     def machines(self) -> MachineFile:
         """The site and the machines, in the order they were first saved."""
+        from engine.machines import parse_machines_text, site_from_table
+
+        with self._snapshot():
+            site_rows, machine_rows = self._machine_rows()
+        site = site_from_table(dict(site_rows), f"{self.location}, site")
+        machines = tuple(parse_machines_text(text, f"{self.location}, machine '{machine_id}'")
+                         .machines[0] for machine_id, text in machine_rows)
+        return MachineFile(site, machines)
 
     @abc.abstractmethod
     def save_site(self, site_spec: Mapping[str, str], demo: bool = False) -> None:
@@ -405,6 +412,11 @@ class Store(abc.ABC):
     def _import_rows(self) -> tuple[list[str], list[tuple]]:
         """The column names and rows of the imports table, oldest first (the columns of
         :meth:`imports`, and any the back end adds)."""
+
+    @abc.abstractmethod
+    def _machine_rows(self) -> tuple[list[tuple], list[tuple]]:
+        """The site's (key, value) rows and the machines' (id, text) rows, each in the order
+        first saved."""
 
     @abc.abstractmethod
     def _stored_machine_texts(self) -> dict[str, str]:

@@ -380,6 +380,30 @@ def _bundle_key(entry: Mapping) -> tuple:
     return (entry["name"], entry["source"], entry["created_at"], int(entry["rows"]))
 
 
+def _bundle_machines(bundle: BundleReader, stored: Mapping[str, tuple[str, bool]],
+                     replace_machines: bool) -> list[tuple[object, str, bool]]:
+    """The machines a bundle's import saves: (machine, its text, demo), in the bundle's order.
+
+    ``stored`` maps each stored machine id to its text and demonstration status. A stored
+    machine the bundle describes differently is replaced only with ``replace_machines``
+    (otherwise an ``InputError`` names them); a bundle never changes the demonstration status
+    of a stored machine.
+    """
+    texts = {machine.id: dump_machines([machine]) for machine in bundle.machine_file.machines}
+    replaced = [machine_id for machine_id, text in texts.items()
+                if machine_id in stored and stored[machine_id][0] != text]
+    if replaced and not replace_machines:
+        raise InputError(
+            f"bundle: it would replace {len(replaced)} machine(s) already in the "
+            f"lab and described differently: {', '.join(replaced[:20])}"
+            f"{' ...' if len(replaced) > 20 else ''}; nothing was imported. "
+            "Confirm the replacement to import it")
+    return [(machine, texts[machine.id],
+             stored[machine.id][1] if machine.id in stored
+             else machine.id in bundle.demo_machines)
+            for machine in bundle.machine_file.machines]
+
+
 def machines_replaced(stored: MachineFile, bundled: MachineFile) -> list[str]:
     """Ids of stored machines that a bundle's machine of the same id would change.
 

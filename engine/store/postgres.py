@@ -70,13 +70,10 @@ from engine.columns import (
 from engine.errors import InputError
 from engine.machines import (
     Machine,
-    MachineFile,
-    dump_machines,
-    parse_machines_text,
     site_from_table,
 )
 from engine.store.base import IMPORT_ID, STORE_ENV_VAR, Store, _Deriving
-from engine.store.bundle import BundleReader, _bundle_key
+from engine.store.bundle import BundleReader, _bundle_key, _bundle_machines
 from engine.store.frames import (
     _IMPORT_COLUMNS,
     _TEXT_DTYPE,
@@ -713,15 +710,9 @@ class PostgresStore(Store):
             "DELETE FROM machines WHERE id = %s", (machine_id,)).rowcount > 0, "delete_machine",
             on_commit=_removed)
 
-    def machines(self) -> MachineFile:
-        """The site and the machines, in the order they were first saved."""
-        with self._snapshot():
-            site_rows = self._query("SELECT key, value FROM site ORDER BY position")
-            machine_rows = self._query("SELECT id, toml FROM machines ORDER BY position")
-        site = site_from_table(dict(site_rows), f"{self._where}, site")
-        machines = tuple(parse_machines_text(text, f"{self._where}, machine '{machine_id}'")
-                         .machines[0] for machine_id, text in machine_rows)
-        return MachineFile(site, machines)
+    def _machine_rows(self) -> tuple[list[tuple], list[tuple]]:
+        return (self._query("SELECT key, value FROM site ORDER BY position"),
+                self._query("SELECT id, toml FROM machines ORDER BY position"))
 
     def save_site(self, site_spec: Mapping[str, str], demo: bool = False) -> None:
         """See :meth:`engine.store.base.Store.save_site`."""
@@ -956,23 +947,12 @@ class PostgresStore(Store):
         """See :meth:`engine.store.base.Store.import_bundle`."""
         with BundleReader(data) as bundle:
             machine_file = bundle.machine_file
-            texts = {machine.id: dump_machines([machine]) for machine in machine_file.machines}
 
             def work(connection: psycopg.Connection) -> list[int]:
                 stored = {row[0]: (row[1], bool(row[2])) for row in connection.execute(
                     "SELECT id, toml, is_demo FROM machines").fetchall()}
-                replaced = [machine_id for machine_id, text in texts.items()
-                            if machine_id in stored and stored[machine_id][0] != text]
-                if replaced and not replace_machines:
-                    raise InputError(
-                        f"bundle: it would replace {len(replaced)} machine(s) already in the "
-                        f"lab and described differently: {', '.join(replaced[:20])}"
-                        f"{' ...' if len(replaced) > 20 else ''}; nothing was imported. "
-                        "Confirm the replacement to import it")
-                for machine in machine_file.machines:
-                    demo = (stored[machine.id][1] if machine.id in stored
-                            else machine.id in bundle.demo_machines)
-                    _save_machine(connection, machine, texts[machine.id], demo)
+                for machine, text, demo in _bundle_machines(bundle, stored, replace_machines):
+                    _save_machine(connection, machine, text, demo)
                 has_site = connection.execute("SELECT EXISTS (SELECT 1 FROM site)").fetchone()[0]
                 if machine_file.site.spec and not has_site:
                     with connection.cursor() as cursor:
