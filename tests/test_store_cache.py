@@ -45,6 +45,12 @@ def everything_at_once(store):
     return analysis.derive(store.readings(), machine_file.by_id(), machine_file.site)
 
 
+def derived_files(folder):
+    """The derived files of a cache folder (not their group and sample companions)."""
+    return [path for path in folder.glob("*.parquet")
+            if not path.name.endswith((".groups.parquet", ".sample.parquet"))]
+
+
 def assert_same_frame(cached, reference):
     cached = cached[list(reference.columns)].copy()
     # The cache reads text columns as categoricals (the same texts, stored once each).
@@ -95,14 +101,19 @@ def test_an_import_writes_its_file_from_memory_the_same_as_one_built_from_the_st
         frame.loc[4, col.SESSION] = "Übung 3"
         store.import_readings(frame, "in memory")
         cache = DerivedCache(store)
-        written = list(cache.folder.glob("*.parquet"))
+        written = derived_files(cache.folder)
         assert len(written) == 1  # there before any refresh
-        at_import = pq.read_table(written[0])
-        written[0].unlink()
+        companions = [written[0].with_name(written[0].name.replace(".parquet", f".{kind}.parquet"))
+                      for kind in ("groups", "sample")]
+        at_import = [pq.read_table(path) for path in (written[0], *companions)]
+        for path in (written[0], *companions):
+            path.unlink()
         rebuilt = cache.refresh()[1]
         assert rebuilt.name == written[0].name
-        from_store = pq.read_table(rebuilt)
-    assert at_import.equals(from_store)
+        from_store = [pq.read_table(path) for path in (written[0], *companions)]
+    for first, second in zip(at_import, from_store, strict=True):
+        assert first.equals(second)
+    at_import = at_import[0]
     assert np.signbit(at_import.column(col.CURRENT_A).to_numpy()[0])
 
 
@@ -118,8 +129,9 @@ def test_the_cache_reads_only_the_columns_and_machines_asked_for(lab):
 def test_a_changed_machine_or_site_rebuilds_the_files_and_a_deleted_import_loses_its_file(lab):
     cache = DerivedCache(lab)
     before = cache.refresh()
-    assert sorted(path.name for path in cache.folder.glob("*.parquet")) == \
+    assert sorted(path.name for path in derived_files(cache.folder)) == \
         sorted(path.name for path in before.values())
+    assert len(list(cache.folder.glob("*.parquet"))) == 3 * len(before)  # with companions
     changed = parse_machines_text(MACHINES_TEXT.replace('width = "5 cm"', 'width = "7 cm"'))
     lab.save_machine(changed.by_id()["school-belt"])
     after = cache.refresh()
@@ -130,7 +142,7 @@ def test_a_changed_machine_or_site_rebuilds_the_files_and_a_deleted_import_loses
     lab.delete_import(2)
     remaining = cache.refresh()
     assert sorted(remaining) == [1, 3]
-    assert len(list(cache.folder.glob("*.parquet"))) == 2
+    assert len(list(cache.folder.glob("*.parquet"))) == 2 * 3
     assert_same_frame(cache.read(), everything_at_once(lab))
 
 
@@ -198,3 +210,27 @@ def test_a_chart_sample_of_filtered_rows_draws_only_those(lab):
     assert len(sample) <= 400 and "stack" not in set(sample[col.MACHINE])
     small = figures.chart_sample(derived, max_points=400, rows=np.arange(len(derived)) < 50)
     assert small.equals(derived.iloc[:50])
+
+
+def test_an_import_that_is_not_stored_leaves_no_derived_files(tmp_path, monkeypatch):
+    """The files are written while SQLite writes the readings; an import that fails (here the
+    insert itself) must not leave them behind, and one that is stored gets them named."""
+    from engine.store import sqlite as sqlite_store
+
+    machine_file = parse_machines_text(MACHINES_TEXT)
+    with open_store(tmp_path / "lab.sqlite3") as store:
+        for machine in machine_file.machines:
+            store.save_machine(machine)
+
+        def broken(*_arguments, **_keywords):
+            raise OSError("disk full (a test)")
+
+        with monkeypatch.context() as patch:
+            patch.setattr(sqlite_store, "_insert_import", broken)
+            with pytest.raises(OSError, match="disk full"):
+                store.import_readings(make_readings(800, seed=5), "fails")
+        folder = DerivedCache(store).folder
+        assert not [path for path in folder.glob("*") if path.is_file()]
+        store.import_readings(make_readings(800, seed=5), "stored")
+        names = sorted(path.name for path in folder.glob("*"))
+    assert len(names) == 3 and not any(name.startswith(".") for name in names)

@@ -423,40 +423,51 @@ class Store(abc.ABC):
         """Machine id -> its stored machines-file text."""
 
     def _derive_import(self, import_id: int, deriving: _Deriving, created_at: str) -> None:
-        """Write the derived cache's file of an import just stored, from the table derived
-        alongside the writing (reading 10^6 readings back costs several times the deriving).
+        """Give the derived cache the files of an import just stored, made alongside the
+        writing (reading 10^6 readings back costs several times the deriving).
 
-        Best effort: the import is committed whatever happens here, and when the file is not
-        written :meth:`DerivedCache.refresh` builds it from the store on the next read.
+        Best effort: the import is committed whatever happens here, and when the files are not
+        there :meth:`DerivedCache.refresh` builds them from the store on the next read.
         """
-        if deriving.table is None or deriving.machine_file is None:
+        if deriving.machine_file is None or (deriving.files is None and not deriving.pending):
             return
         from engine.store.cache import DerivedCache
 
         try:
-            DerivedCache(self).add_table(import_id, created_at, deriving.table,
-                                         deriving.machine_file)
-        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
-            pass
+            cache = DerivedCache(self)
+            if deriving.pending:
+                cache.adopt(import_id, created_at, deriving.rows, deriving.pending,
+                            deriving.machine_file)
+            else:
+                cache.add_files(import_id, created_at, deriving.files, deriving.machine_file)
+        except Exception:  # noqa: BLE001 - derived files only; refresh builds them again
+            deriving.discard()
 
 
 class _Deriving:
-    """The derived table of an import's readings, made in a thread while the store writes them.
+    """The derived files of an import's readings, made in a thread while the store writes them.
 
     Both halves take about as long at 10^6 readings, and both leave Python's lock for much of
     their work (SQLite while it writes its pages, a server while it takes the rows; numpy,
     pandas and Arrow in their loops), so on two cores an import takes about the longer of the
-    two instead of their sum. :attr:`table` is None when deriving failed (the cache's refresh
-    builds the file later).
+    two instead of their sum. The thread derives the readings, makes the group and sample
+    tables (:class:`engine.store.cache.ImportFiles`) and writes the three files under
+    temporary names (:attr:`pending`); once the import is stored they get their names
+    (:meth:`Store._derive_import`), or are removed (:meth:`discard`) when it is not. Where
+    writing failed, :attr:`files` keeps the tables to write after the commit; both are empty
+    when deriving failed (the cache's refresh builds the files later).
     """
 
     def __init__(self, prepared: object, store: Store) -> None:
         self.machine_file: MachineFile | None = None
-        self.table = None
+        self.files = None
+        self.pending: dict[str, Path] = {}
+        self.rows = 0
         self._prepared = prepared
+        self._folder = store.cache_folder
         try:
             self.machine_file = store.machines()
-        except Exception:  # noqa: BLE001 - the import goes on; refresh builds the file later
+        except Exception:  # noqa: BLE001 - the import goes on; refresh builds the files later
             self._thread = None
             return
         self._thread = threading.Thread(target=self._run, name="derive-import", daemon=True)
@@ -465,14 +476,32 @@ class _Deriving:
     def _run(self) -> None:
         try:
             from engine.columns import READING_COLUMNS
-            from engine.store.cache import derived_table  # the cache imports the physics
+            from engine.store.cache import import_files  # the cache imports the physics
             from engine.store.schema import _READING_FLOATS
 
-            self.table = derived_table(self._prepared.frame(READING_COLUMNS, _READING_FLOATS),
-                                       self.machine_file)
-        except Exception:  # noqa: BLE001 - a derived file only; refresh builds it again
-            self.table = None
+            self.files = import_files(self._prepared.frame(READING_COLUMNS, _READING_FLOATS),
+                                      self.machine_file)
+            self.rows = self.files.derived.num_rows
+        except Exception:  # noqa: BLE001 - derived files only; refresh builds them again
+            self.files = None
+            return
+        try:
+            from engine.store.cache import write_pending
+
+            self.pending = write_pending(self._folder, self.files)
+            self.files = None  # written: the tables need not stay in memory
+        except Exception:  # noqa: BLE001 - written after the commit instead
+            self.pending = {}
 
     def join(self) -> None:
         if self._thread is not None:
             self._thread.join()
+
+    def discard(self) -> None:
+        """Remove the files written for an import that was not stored."""
+        self.join()
+        if self.pending:
+            from engine.store.cache import discard_pending
+
+            discard_pending(self.pending)
+            self.pending = {}

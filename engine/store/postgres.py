@@ -761,8 +761,10 @@ class PostgresStore(Store):
         deriving = _Deriving(prepared, self)  # alongside the server's writing
         try:
             import_id = self._run(work, "import_readings", on_commit=stored)
-        finally:
-            deriving.join()
+        except BaseException:
+            deriving.discard()  # not stored: neither are its derived files
+            raise
+        deriving.join()
         self._derive_import(import_id, deriving, str(meta["created_at"]))
         return import_id
 

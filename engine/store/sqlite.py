@@ -333,8 +333,10 @@ class SQLiteStore(Store):
         try:
             import_id = self._write(lambda connection: _insert_import(
                 connection, prepared, prepared_environment, meta))
-        finally:
-            deriving.join()
+        except BaseException:
+            deriving.discard()  # not stored: neither are its derived files
+            raise
+        deriving.join()
         self._derive_import(import_id, deriving, str(meta["created_at"]))
         return import_id
 
