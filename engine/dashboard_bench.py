@@ -6,7 +6,9 @@ Run as ``python -m engine.bench --dashboard --rows N [--imports K] [--json] [--k
    merged with its environment log) in K imports; the first import is one session of one
    machine with ``min(10^6, N / K)`` readings (the Sessions page's long session), the other
    imports share the rest (``import_s``: all the imports into SQLite; ``cache_s``: building the
-   derived cache of every import, :mod:`engine.store.cache`);
+   derived cache of every import, :mod:`engine.store.cache`; ``summary_s``: making the lab's
+   summary, :mod:`engine.store.summary`, which the first page that needs it after an import
+   or a change of machines waits for, once per state of the store: the pages read it after);
 2. runs the app in a separate process (``pages/_dashboard_bench.py``, Streamlit's AppTest):
    Compare's first draw after the start, a rerun after one machine is left out, a rerun after
    the humidity range is narrowed, the Sessions page on the long session, a warm Overview
@@ -14,9 +16,10 @@ Run as ``python -m engine.bench --dashboard --rows N [--imports K] [--json] [--k
    after Overview, Compare and Sessions (``app_memory_dashboard_mb``), on the way through
    every page once Report has run (``app_memory_report_mb``) and after visiting every page
    (``app_memory_mb``);
-3. checks that the findings (per machine, per machine and session, of a selection of whole
-   groups) and a two-session comparison computed through the cache equal those computed from
-   all the readings at once (``analysis.derive(store.readings())``), to 1e-9 relative
+3. checks that the findings (per machine, per machine and session and of a selection of whole
+   groups through the lab's summary, :mod:`engine.store.summary`) and a two-session comparison
+   computed through the cache equal those computed from all the readings at once
+   (``analysis.derive(store.readings())``), to 1e-9 relative
    (``findings_max_relative_difference``, ``findings_exact``).
 
 The engine does not import Streamlit: the app half runs as ``python -m pages._dashboard_bench``.
@@ -59,7 +62,7 @@ LONG_SESSION = "long run"
 EXACT_RELATIVE = 1e-9
 #: Keys of the result, in order.
 DASHBOARD_KEYS = (
-    "rows", "machines", "imports", "long_session_rows", "import_s", "cache_s",
+    "rows", "machines", "imports", "long_session_rows", "import_s", "cache_s", "summary_s",
     "compare_first_s", "compare_rerun_s", "compare_rh_rerun_s", "sessions_s", "overview_s",
     "app_memory_dashboard_mb", "app_memory_report_mb", "app_memory_mb", "app_peak_memory_mb",
     "chart_bytes_max", "chart_bytes",
@@ -107,9 +110,10 @@ def build_store(path: Path, machine_file: MachineFile, rows: int,
 
     Returns
     -------
-    tuple of (float, float, int)
+    tuple of (float, float, float, int)
         Seconds spent in ``import_readings`` (all imports), seconds building the derived
-        cache, and the long session's number of readings.
+        cache, seconds making the lab's summary (:meth:`DerivedCache.summary`, once per state
+        of the store), and the long session's number of readings.
     """
     import_s = 0.0
     long_rows = 0
@@ -128,7 +132,10 @@ def build_store(path: Path, machine_file: MachineFile, rows: int,
         start = time.perf_counter()
         DerivedCache(store).refresh()
         cache_s = time.perf_counter() - start
-    return import_s, cache_s, long_rows
+        start = time.perf_counter()
+        DerivedCache(store).summary()
+        summary_s = time.perf_counter() - start
+    return import_s, cache_s, summary_s, long_rows
 
 
 def drive_app(path: Path, machine: str) -> dict[str, object]:
@@ -179,17 +186,18 @@ def exactness(path: Path) -> float:
     """Largest relative difference between findings through the cache and from all at once."""
     with open_store(path) as store:
         machine_file = store.machines()
-        cached = DerivedCache(store).read(columns=analysis.FINDINGS_INPUT_COLUMNS,
-                                          machine_file=machine_file)
+        cache = DerivedCache(store)
+        cached = cache.read(columns=analysis.FINDINGS_INPUT_COLUMNS, machine_file=machine_file)
+        # Per machine from the cache's readings; per machine and session, and of a selection
+        # of whole groups, from the lab's summary (the pages' way).
+        summary = cache.summary(machine_file)
         through_cache = {
             "machine": analysis.findings(cached, machine_file),
-            "session": analysis.findings(cached, machine_file, by_session=True),
+            "session": summary.findings,
         }
-        first_rows = analysis.group_first_rows(cached)
         machine_ids = sorted(cached[col.MACHINE].unique())[1::2]
         sessions = sorted(cached[col.SESSION].unique())[::2]
-        through_cache["groups"] = analysis.findings_of_groups(
-            through_cache["session"], first_rows, machine_file, machine_ids, sessions)
+        through_cache["groups"] = summary.findings_of(machine_file, machine_ids, sessions)
         del cached
         gc.collect()
         everything = analysis.derive(store.readings(), machine_file.by_id(), machine_file.site)
@@ -208,7 +216,8 @@ def exactness(path: Path) -> float:
     del everything
     if len(session_names) >= 2:
         with open_store(path) as store:
-            cached = DerivedCache(store).read(machines=[machine])
+            cached = DerivedCache(store).read(
+                machines=[machine], sessions=[session_names[0], session_names[-1]])
         expected = analysis.compare_sessions(of_machine, machine, session_names[0],
                                              session_names[-1])
         got = analysis.compare_sessions(cached, machine, session_names[0], session_names[-1])
@@ -269,7 +278,7 @@ def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAUL
     try:
         machine_file = synthetic_machines(machines)
         _progress(f"building a store of {rows:,} readings in {imports} imports...")
-        import_s, cache_s, long_rows = build_store(path, machine_file, rows, imports)
+        import_s, cache_s, summary_s, long_rows = build_store(path, machine_file, rows, imports)
         _progress("driving the pages...")
         app = drive_app(path, machine_file.machines[0].id)
         _progress("checking the findings against all readings at once...")
@@ -281,7 +290,7 @@ def run_dashboard_benchmark(rows: int, machines: int = 20, imports: int = DEFAUL
             _empty_the_lab(store)
     result: dict[str, object] = {
         "rows": rows, "machines": machines, "imports": imports, "long_session_rows": long_rows,
-        "import_s": import_s, "cache_s": cache_s, **app,
+        "import_s": import_s, "cache_s": cache_s, "summary_s": summary_s, **app,
         "findings_max_relative_difference": worst,
         "findings_exact": bool(worst <= EXACT_RELATIVE),
         "targets": DASHBOARD_TARGETS,

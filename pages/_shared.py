@@ -9,6 +9,7 @@ import hashlib
 import math
 import re
 
+import numpy as np
 import pandas as pd
 import streamlit as st
 
@@ -28,6 +29,7 @@ from engine.machines import (
     site_from_table,
 )
 from engine.store import Store, default_store_path, open_store
+from engine.store import summary as summaries
 from engine.store.base import is_server_location, store_location
 from engine.store.cache import DerivedCache
 
@@ -490,14 +492,9 @@ def store_counts() -> dict[str, int]:
     return _store_counts(str(lab_path()), store_signature())
 
 
-#: Columns of the derived readings of the whole store that the Overview, Compare and Sessions
-#: pages read (the derived cache reads only these from disk): the findings' and the comparison
-#: charts' columns, and the time.
-DASHBOARD_COLUMNS = (
-    col.MACHINE, col.SESSION, col.TIME, col.FLAGS, col.SPEED_REV_S, col.BELT_SPEED_M_S,
-    col.CURRENT_A, col.RH, col.EFFICIENCY, col.EFFICIENCY_U, col.CHARGE_PER_REV_C,
-    col.RELATIVE_AIR_DENSITY,
-)
+#: Columns of the derived readings that the Overview, Compare and Sessions pages draw and filter
+#: on (the charts' readings are kept per import with these columns).
+DASHBOARD_COLUMNS = summaries.DASHBOARD_COLUMNS
 #: Columns of one machine's readings on the Sessions page (timeline, load line, flagged).
 MACHINE_COLUMNS = (
     *DASHBOARD_COLUMNS, col.ROW, col.ELAPSED_S, col.TEMPERATURE_K, col.VOLTAGE_V, col.NOTE,
@@ -510,102 +507,134 @@ _last_signature: list[tuple] = []
 def _forget_older(signature: tuple) -> None:
     """Drop the cached frames of an older state of the store, so that they free memory."""
     if _last_signature and _last_signature[0] != signature:
-        derived_readings.clear()
-        _group_findings.clear()
-        _dashboard_summary.clear()
-        _machine_readings.clear()
+        _lab_summary.clear()
+        _session_readings.clear()
+        _filtered_findings.clear()
     _last_signature[:] = [signature]
 
 
-# cache_resource, not cache_data: the frame is shared as it is, never serialised and copied on a
-# rerun. Pages only read it (filters make new frames).
-@st.cache_resource(show_spinner="Reading the derived readings...", max_entries=3)
-def derived_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
-                     columns: tuple[str, ...] | None = None) -> pd.DataFrame:
-    """Stored readings with their derived columns, from the derived cache beside the store.
-
-    Only ``columns`` are read (None: all). The cache derives each import once and keeps it
-    until a machine or the site changes.
-    """
+# cache_resource, not cache_data: the summary is shared as it is, never serialised and copied on
+# a rerun. Pages only read it (filters make new frames).
+@st.cache_resource(show_spinner="Reading the lab's summary...", max_entries=2)
+def _lab_summary(path: str, signature: tuple) -> summaries.LabSummary:  # noqa: ARG001 - key
     current = store()
-    return DerivedCache(current).read(columns=columns, machine_file=current.machines())
+    return DerivedCache(current).summary(current.machines())
 
 
-def load_derived(columns: tuple[str, ...] | None = None) -> pd.DataFrame:
-    """Derived readings of the whole store (cached until the store changes); do not modify it.
-
-    Parameters
-    ----------
-    columns : tuple of str, optional
-        Columns to read; None reads every column (the Report page's tables).
-    """
+def lab_summary() -> summaries.LabSummary:
+    """The lab's machine-session groups, their findings and the readings kept to draw
+    (:class:`engine.store.summary.LabSummary`), read once per state of the store from the
+    files the derived cache keeps beside each import; do not modify it."""
     signature = store_signature()
     _forget_older(signature)
-    return derived_readings(str(lab_path()), signature, columns)
+    return _lab_summary(str(lab_path()), signature)
 
 
-def read_selection(current: Store, machine_ids, sessions) -> pd.DataFrame:
-    """Every derived column of the readings of some machines and sessions, read now from the
-    derived cache of ``current`` and not kept (the Report page's files build from it on the
-    click).
+def read_selection(current: Store, machine_ids, sessions,
+                   columns: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """The derived readings of some machines and sessions, read now from the derived cache of
+    ``current`` and not kept (the Report page's files build from it on the click).
 
     The store is given, not looked up: a download's callable runs outside the page's run, where
     the session (and so the lab the user opened) is not known.
 
-    Rows in stored order, as ``load_derived()`` filtered to ``machine_ids`` and ``sessions``
-    ("" for readings without a session), with a fresh index 0..n-1.
+    Rows in stored order (those of the whole store's derived readings of these machines and
+    sessions, "" for readings without a session), with a fresh index 0..n-1; ``columns`` (None:
+    every column) and ``import_id``.
     """
-    chosen = DerivedCache(current).read(machines=[str(key) for key in machine_ids],
-                                        machine_file=current.machines())
-    kept = chosen[chosen[col.SESSION].isin([str(name) for name in sessions])]
-    return kept.reset_index(drop=True)
-
-
-@st.cache_resource(show_spinner="Reading the machine's readings...", max_entries=2)
-def _machine_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
-                      machine_id: str) -> pd.DataFrame:
-    current = store()
-    return DerivedCache(current).read(columns=MACHINE_COLUMNS, machines=[machine_id],
+    return DerivedCache(current).read(columns=columns,
+                                      machines=[str(key) for key in machine_ids],
+                                      sessions=[str(name) for name in sessions],
                                       machine_file=current.machines())
 
 
-def load_machine(machine_id: str) -> pd.DataFrame:
-    """One machine's derived readings with the columns of :data:`MACHINE_COLUMNS`, in stored
-    order (cached until the store changes); do not modify it."""
+@st.cache_resource(show_spinner="Reading the session's readings...", max_entries=2)
+def _session_readings(path: str, signature: tuple,  # noqa: ARG001 - cache key
+                      machine_id: str, sessions: tuple[str, ...]) -> pd.DataFrame:
+    return read_selection(store(), [machine_id], sessions, MACHINE_COLUMNS)
+
+
+def load_sessions(machine_id: str, sessions) -> pd.DataFrame:
+    """The readings of some sessions of one machine with the columns of
+    :data:`MACHINE_COLUMNS`, in stored order (cached until the store changes); do not modify
+    it."""
     signature = store_signature()
     _forget_older(signature)
-    return _machine_readings(str(lab_path()), signature, str(machine_id))
+    return _session_readings(str(lab_path()), signature, str(machine_id),
+                             tuple(str(name) for name in sessions))
 
 
-@st.cache_resource(show_spinner="Fitting speed and humidity...", max_entries=8)
-def _group_findings(path: str, signature: tuple,
-                    reference_rh: float) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Findings per machine and session of all readings, and each group's first reading."""
-    derived = derived_readings(path, signature, DASHBOARD_COLUMNS)
-    machine_file = store().machines()
-    return (analysis.findings(derived, machine_file.by_id(), by_session=True,
-                              reference_rh=reference_rh),
-            analysis.group_first_rows(derived))
+def reading_filter(readings: pd.DataFrame, rh_range: tuple[float, float] | None = None,
+                   date_range: tuple[object, object] | None = None) -> np.ndarray:
+    """Which readings the Compare page's humidity and date filters keep (bool per reading).
 
-
-def findings_of(shown: pd.DataFrame, machine_ids, sessions, whole_groups: bool,
-                reference_rh: float = 0.45) -> pd.DataFrame:
-    """Findings per machine and session of the readings shown.
-
-    When the filters keep whole machine-session groups (``whole_groups``), they are taken from
-    the cached findings of all readings (:func:`engine.analysis.findings_of_groups`, the same
-    values); otherwise computed from ``shown``.
+    Parameters
+    ----------
+    readings : pandas.DataFrame
+        Readings with ``rh`` and ``time``.
+    rh_range : (float, float), optional
+        Relative humidity kept [%], ends included; readings without humidity are kept, and the
+        slider's ends at 0 and 100 % keep readings beyond them. None keeps every reading.
+    date_range : (datetime.date, datetime.date), optional
+        First and last day kept, whole days in the times' own zone; readings without a time
+        are kept. None keeps every day.
     """
-    machine_file = store().machines()
-    if not whole_groups:
-        return analysis.findings(shown, machine_file.by_id(), by_session=True,
-                                 reference_rh=reference_rh)
+    kept = np.ones(len(readings), dtype=bool)
+    if rh_range is not None:
+        rh_percent = readings[col.RH].to_numpy(dtype=float) * 100
+        with np.errstate(invalid="ignore"):
+            kept &= (np.isnan(rh_percent)
+                     | ((rh_percent >= rh_range[0]) & (rh_percent <= rh_range[1]))
+                     | ((rh_range[1] == 100) & (rh_percent > 100))
+                     | ((rh_range[0] == 0) & (rh_percent < 0)))
+    if date_range is not None:
+        # Whole days in the times' own zone, compared as times (no date object per reading).
+        time_column = readings[col.TIME]
+        zone = getattr(time_column.dt, "tz", None)
+        start = pd.Timestamp(date_range[0]).tz_localize(zone)
+        stop = (pd.Timestamp(date_range[1]) + pd.Timedelta(days=1)).tz_localize(zone)
+        kept &= (time_column.isna() | ((time_column >= start)
+                                       & (time_column < stop))).to_numpy(dtype=bool)
+    return kept
+
+
+@st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=8)
+def _filtered_findings(path: str, signature: tuple,  # noqa: ARG001 - cache key
+                       machine_ids: tuple[str, ...], sessions: tuple[str, ...],
+                       rh_range, date_range, reference_rh: float
+                       ) -> tuple[pd.DataFrame, int, int]:
+    current = store()
+    columns = (*analysis.FINDINGS_INPUT_COLUMNS, col.TIME)
+    readings = read_selection(current, machine_ids, sessions, columns)
+    kept = reading_filter(readings, rh_range, date_range)
+    if not kept.all():
+        readings = readings[kept].reset_index(drop=True)
+    flagged = int(np.count_nonzero(~analysis._flag_free(readings)))  # noqa: SLF001
+    found = analysis.findings(readings, current.machines().by_id(), by_session=True,
+                              reference_rh=reference_rh)
+    return found, len(readings), flagged
+
+
+def findings_of(machine_ids, sessions, rh_range=None, date_range=None,
+                reference_rh: float = analysis.REFERENCE_RH) -> tuple[pd.DataFrame, int, int]:
+    """Findings per machine and session of the readings the filters keep, with the number of
+    readings kept and of those flagged.
+
+    Whole machine-session groups at the reference humidity the summary was made at come from
+    the lab's summary (:meth:`engine.store.summary.LabSummary.findings_of`, the same values as
+    fitting their readings); otherwise the kept readings are read from the derived cache and
+    fitted (a small result, kept for the next run).
+    """
+    summary = lab_summary()
+    if rh_range is None and date_range is None and reference_rh == analysis.REFERENCE_RH:
+        chosen = summary.groups[summary.selected(machine_ids, sessions)]
+        return (summary.findings_of(store().machines(), machine_ids, sessions),
+                int(chosen["readings"].sum()), int(chosen["flagged"].sum()))
     signature = store_signature()
-    _forget_older(signature)
-    by_session, first_rows = _group_findings(str(lab_path()), signature,
-                                             float(reference_rh))
-    return analysis.findings_of_groups(by_session, first_rows, machine_file.by_id(),
-                                       list(machine_ids), list(sessions))
+    return _filtered_findings(str(lab_path()), signature,
+                              tuple(str(key) for key in machine_ids),
+                              tuple(str(name) for name in sessions), rh_range, date_range,
+                              float(reference_rh))
 
 
 _MARKDOWN_MARKS = re.compile(r"([\\`*_{}\[\]()#+\-.!|<>~$:])")
@@ -643,22 +672,15 @@ def show_flash() -> None:
         (st.error if error else st.success)(plain(message))
 
 
-@st.cache_data(show_spinner="Fitting speed and humidity...", max_entries=16)
-def _findings(path: str, signature: tuple, by_session: bool,
-              reference_rh: float) -> pd.DataFrame:
-    machine_file = store().machines()
-    return analysis.findings(derived_readings(path, signature, DASHBOARD_COLUMNS),
-                             machine_file.by_id(), by_session=by_session,
-                             reference_rh=reference_rh)
-
-
-def load_findings(by_session: bool = False, reference_rh: float = 0.45) -> pd.DataFrame:
-    """Findings of the whole store (cached until the store changes; a small frame)."""
-    signature = store_signature()
-    _forget_older(signature)
-    if by_session:  # the same table the Compare page starts from: computed once for both
-        return _group_findings(str(lab_path()), signature, float(reference_rh))[0]
-    return _findings(str(lab_path()), signature, by_session, reference_rh)
+def load_findings(reference_rh: float = analysis.REFERENCE_RH) -> pd.DataFrame:
+    """Findings per machine and session of the whole store (a small frame, kept until the store
+    changes)."""
+    summary = lab_summary()
+    if reference_rh == analysis.REFERENCE_RH:
+        return summary.findings
+    machine_ids = list(dict.fromkeys(summary.groups["machine"]))
+    sessions = list(dict.fromkeys(summary.groups["session"]))
+    return findings_of(machine_ids, sessions, reference_rh=reference_rh)[0]
 
 
 DASH = "—"
@@ -739,9 +761,9 @@ def show_findings(findings: pd.DataFrame, machines, reference_rh: float = 0.45,
     return table
 
 
-def undescribed_warning(derived: pd.DataFrame, machines) -> None:
+def undescribed_warning(machines) -> None:
     """Readings of machine ids the lab does not describe: a warning with the fix, not findings."""
-    counts = derived[col.MACHINE].value_counts()  # one count per id (cheap on categories)
+    counts = lab_summary().machine_counts()
     unknown = counts[~counts.index.astype("str").isin(list(machines)) & (counts > 0)]
     if unknown.empty:
         return
@@ -817,7 +839,7 @@ def measured_efficiency(machine_id: str) -> tuple[float, float, float, str] | No
     """A machine's measured efficiency in its latest session with a speed fit: observed units
     over its units, with the 95 % interval of the observed units, and the session's name; None
     without a speed fit. (A restored machine is planned by what it does now.)"""
-    findings = load_findings(by_session=True)
+    findings = load_findings()
     rows = findings[findings["machine"] == machine_id]
     for _index, row in rows.iloc[::-1].iterrows():  # sessions in the order they were run
         observed, units, interval = (row["observed_units"], row["units"],
@@ -846,49 +868,13 @@ def read_upload(upload, options, kind: str = "readings"):
     return _read_upload(digest, upload.name, options, kind, data)
 
 
-def sessions_in_run_order(derived: pd.DataFrame, machine_ids) -> list[str]:
-    """The sessions of these machines in the order they were run (first reading first), so
-    that "before" comes before "after"."""
-    of_chosen = derived[col.MACHINE].isin(list(machine_ids)).to_numpy(dtype=bool)
-    first_times = derived[col.TIME][of_chosen].groupby(
-        derived[col.SESSION][of_chosen], observed=True, sort=False).min()
-    return [str(name) for name in first_times.sort_values(kind="stable").index]
-
-
-def _group_times(derived: pd.DataFrame) -> pd.DataFrame:
-    """Each (machine, session) group's earliest time, groups in order of their first reading."""
-    times = derived[col.TIME].groupby([derived[col.MACHINE], derived[col.SESSION]],
-                                      observed=True, sort=False).min()
-    return times.reset_index()
-
-
-@st.cache_resource(show_spinner=False, max_entries=2)
-def _dashboard_summary(path: str, signature: tuple) -> dict[str, object]:
-    """What the dashboard's choices need of all its readings, computed once per state of the
-    store (each was a pass over every reading on every run: seconds at 10^7 readings)."""
-    derived = derived_readings(path, signature, DASHBOARD_COLUMNS)
-    return {"group_times": _group_times(derived),
-            "rh": (derived[col.RH].min(), derived[col.RH].max()),
-            "time": (derived[col.TIME].min(), derived[col.TIME].max())}
-
-
 def dashboard_sessions_in_run_order(machine_ids) -> list[str]:
-    """:func:`sessions_in_run_order` of ``load_derived(DASHBOARD_COLUMNS)``, from each group's
-    earliest time (kept once per state of the store) instead of every reading: the same list.
-    """
-    signature = store_signature()
-    _forget_older(signature)
-    # The groups' earliest times stand for their readings: the earliest of a session's
-    # groups is its earliest reading, and groups come in the order of their first reading.
-    return sessions_in_run_order(_dashboard_summary(str(lab_path()), signature)["group_times"],
-                                 machine_ids)
+    """The sessions of these machines in the order they were run (earliest reading first), so
+    that "before" comes before "after"; from the lab's summary."""
+    return lab_summary().sessions_in_run_order(machine_ids)
 
 
 def dashboard_bounds(column: str) -> tuple[object, object]:
-    """Smallest and largest value of ``col.RH`` or ``col.TIME`` among all the dashboard's
-    readings, missing values left out (NaN or NaT when none), kept once per state of the
-    store."""
-    signature = store_signature()
-    _forget_older(signature)
-    summary = _dashboard_summary(str(lab_path()), signature)
-    return summary["rh" if column == col.RH else "time"]
+    """Smallest and largest value of ``col.RH`` or ``col.TIME`` among all the readings, missing
+    values left out (NaN or NaT when none); from the lab's summary."""
+    return lab_summary().bounds(column)

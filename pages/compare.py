@@ -8,19 +8,21 @@ from engine import figures, report
 from pages import _shared as shared
 
 st.title("Compare")
-derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
+# The lab's machine-session groups, their findings and a bounded set of readings to draw, kept
+# beside the store: no page run reads every reading.
+summary = shared.lab_summary()
 machine_file = shared.store().machines()
 machines = machine_file.by_id()
 labels = {machine_id: machine.label for machine_id, machine in machines.items()}
 
-if derived.empty:
+if summary.readings == 0:
     st.info("No readings yet. Import readings on the Readings page, or keep the demonstration "
             "lab, to compare machines here.")
     st.page_link("pages/readings.py", label="Import readings", icon=":material/upload_file:")
     st.stop()
 
-shared.undescribed_warning(derived, machines)
-present = set(derived[col.MACHINE].unique())
+shared.undescribed_warning(machines)
+present = set(summary.groups["machine"])
 machine_ids = [machine_id for machine_id in machines if machine_id in present]
 if not machine_ids:
     st.info("No readings of a described machine yet: add the machines on the Machines page.")
@@ -64,37 +66,25 @@ with st.container(border=True):
     reference_rh = third.number_input("Compare efficiency at RH [%]", 0, 100, 45,
                                       key="compare-ref-rh") / 100
 
-mask = derived[col.MACHINE].isin(chosen) & derived[col.SESSION].isin(chosen_sessions)
-if not rh_whole:
-    rh_percent = derived[col.RH] * 100
-    # The slider stops at 0 and 100 %: readings outside (flagged) stay with the nearest end.
-    mask &= (rh_percent.isna() | rh_percent.between(*rh_range)
-             | ((rh_range[1] == 100) & (rh_percent > 100))
-             | ((rh_range[0] == 0) & (rh_percent < 0)))
-if date_range is not None:
-    # Whole days in the times' own zone, compared as times (no date object per reading).
-    time_column = derived[col.TIME]
-    zone = getattr(time_column.dt, "tz", None)
-    start = pd.Timestamp(date_range[0]).tz_localize(zone)
-    stop = (pd.Timestamp(date_range[1]) + pd.Timedelta(days=1)).tz_localize(zone)
-    mask &= time_column.isna() | ((time_column >= start) & (time_column < stop))
-# Whole machine-session groups: their findings come from the cache of all readings.
-whole_groups = rh_whole and date_range is None
-selected = mask.to_numpy(dtype=bool)
-shown_count = int(selected.sum())
-# The readings shown are copied out only when their findings must be computed from them.
-shown = derived if shown_count == len(derived) else None if whole_groups else derived[selected]
+# Whole machine-session groups: their findings and counts come from the lab's summary; a
+# humidity or date filter reads the readings of the chosen groups and fits them.
+findings, shown_count, flagged = shared.findings_of(
+    chosen, chosen_sessions, None if rh_whole else rh_range, date_range, reference_rh)
 if shown_count == 0:
     st.warning("No readings match these filters: widen the humidity range or pick more "
                "machines or sessions.")
     st.stop()
 
-findings = shared.findings_of(shown, chosen, chosen_sessions, whole_groups, reference_rh)
 colours = shared.colours_for(machine_file)
 arguments = {"findings": findings, "machines": machines, "colours": colours,
              "show_flagged": show_flagged}
-# The charts are built from a bounded sample; the fits and the table use every reading.
-drawn = figures.chart_sample(derived, rows=selected)
+# The charts are drawn from the readings kept to draw (a bounded share of each group, filtered
+# the same way); the fits and the table use every reading.
+sample = summary.sample
+in_sample = (sample[col.MACHINE].isin(chosen) & sample[col.SESSION].isin(chosen_sessions)
+             ).to_numpy(dtype=bool)
+in_sample = in_sample & shared.reading_filter(sample, None if rh_whole else rh_range, date_range)
+drawn = figures.chart_sample(sample, rows=in_sample)
 top_left, top_right = st.columns(2)
 top_left.plotly_chart(figures.current_vs_speed(drawn, **arguments), key="compare-current")
 top_right.plotly_chart(figures.efficiency_vs_speed(drawn, **arguments), key="compare-efficiency")
@@ -105,11 +95,11 @@ bottom_right.plotly_chart(figures.efficiency_vs_humidity(drawn, **arguments,
                           key="compare-humidity")
 
 if len(drawn) < shown_count:
-    st.caption(f"The charts draw {len(drawn):,} evenly spaced readings so that the browser "
-               f"stays quick; the fits and the table use all {shown_count:,}.")
+    st.caption(f"The charts draw {len(drawn):,} of the {shown_count:,} readings, evenly spaced "
+               "within each machine and session, so that the browser stays quick; the fits "
+               "and the table use all of them.")
 st.caption("Colour tells the machine; marker shape tells its sessions apart (hover a point "
            "for its session). " + shared.site_words(machine_file.site))
-flagged = int(((derived[col.FLAGS] != "").to_numpy(dtype=bool) & selected).sum())
 st.subheader("Findings")
 st.caption(f"{shown_count:,} readings shown, {flagged:,} flagged and left out of the fits. "
            "One row per machine and session; intervals are 95 % confidence intervals.")

@@ -3,7 +3,6 @@
 import pandas as pd
 import streamlit as st
 
-from engine import columns as col
 from engine.air import relative_air_density
 from engine.carriers import SPEC_KEYS
 from engine.ceiling import ceiling_figures
@@ -216,8 +215,7 @@ with edit_tab:
                 delete_column.button("Delete machine…", key=f"machines-delete-{chosen}"):
             st.session_state["machines-confirm-delete"] = current.id
         if current and st.session_state.get("machines-confirm-delete") == current.id:
-            derived = shared.load_derived(shared.DASHBOARD_COLUMNS)  # shared, no copy
-            readings = int((derived[col.MACHINE] == current.id).sum())
+            readings = int(shared.lab_summary().machine_counts().get(current.id, 0))
             what = (f"its {readings:,} readings stay in the lab, shown as readings of a machine "
                     "that is not described" if readings else "it has no readings")
             st.warning(f"Delete machine '{shared.plain(current.id)}' "

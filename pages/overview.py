@@ -65,10 +65,10 @@ st.subheader("Latest findings")
 if counts["readings"] == 0:
     st.write("No readings yet. Import a readings file to see each machine against its ceiling.")
 else:
-    findings = shared.load_findings(by_session=True)
+    findings = shared.load_findings()
     machines = store.machines().by_id()
     shared.show_findings(findings, machines, key="overview-findings")
-    shared.undescribed_warning(shared.load_derived(shared.DASHBOARD_COLUMNS), machines)
+    shared.undescribed_warning(machines)
     st.caption("One row per machine and session. Efficiency is the measured current over the "
                "ceiling. Flagged readings are kept but left out of the fits; the Readings and "
                "Sessions pages show them.")

@@ -2,7 +2,6 @@
 
 import streamlit as st
 
-from engine import columns as col
 from engine import report
 from engine.errors import InputError
 from pages import _shared as shared
@@ -12,18 +11,18 @@ shared.show_flash()
 store = shared.store()
 machine_file = store.machines()
 machines = machine_file.by_id()
-# The dashboard's columns, shared with Overview, Compare and Sessions (no copy, nothing more
-# read): enough for the choices, the count and the findings. The files read their readings on
-# the click (below), so visiting Report adds little memory.
-derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
+# The lab's summary, shared with Overview, Compare and Sessions: enough for the choices, the
+# count and the findings. The files read their readings on the click (below), so visiting
+# Report adds little memory.
+summary = shared.lab_summary()
 imports = store.imports()
 
-if derived.empty:
+if summary.readings == 0:
     st.info("No readings to report yet. Import readings first, or restore a lab bundle below.")
 else:
     labels = {machine.id: machine.label for machine in machine_file.machines}
-    shared.undescribed_warning(derived, machines)
-    present = set(derived[col.MACHINE].unique())
+    shared.undescribed_warning(machines)
+    present = set(summary.groups["machine"])
     machine_ids = [machine_id for machine_id in machines if machine_id in present]
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids, key="report-machines",
                             format_func=lambda key: labels.get(key, key))
@@ -34,13 +33,13 @@ else:
     title = st.text_input("Report title", "Ceiling Lab report", key="report-title",
                           max_chars=120)
     chosen_sessions = [str(name) for name in chosen_sessions]
-    selected_count = int((derived[col.MACHINE].isin(chosen)
-                          & derived[col.SESSION].isin(chosen_sessions)).sum())
+    selected_count = int(summary.groups["readings"][summary.selected(chosen, chosen_sessions)]
+                         .sum())
     if selected_count == 0:
         st.warning("Pick at least one machine and one session.")
     else:
         # Whole machine-session groups: the cached findings of all readings give them exactly.
-        findings = shared.findings_of(None, chosen, chosen_sessions, whole_groups=True)
+        findings = shared.findings_of(chosen, chosen_sessions)[0]
         st.write(f"{selected_count:,} readings of {len(chosen)} machines in "
                  f"{len(chosen_sessions)} sessions.")
         chosen_machines = {key: machines[key] for key in chosen if key in machines}

@@ -9,30 +9,31 @@ from engine.errors import InputError
 from pages import _shared as shared
 
 st.title("Sessions")
-derived = shared.load_derived(shared.DASHBOARD_COLUMNS)
+summary = shared.lab_summary()  # the lab's machine-session groups
 machine_file = shared.store().machines()
 labels = {machine.id: machine.label for machine in machine_file.machines}
-if derived.empty:
+if summary.readings == 0:
     st.info("No readings yet: import a session on the Readings page.")
     st.stop()
 
-shared.undescribed_warning(derived, labels)
+shared.undescribed_warning(labels)
 machine_ids = [machine_id for machine_id in labels
-               if machine_id in set(derived[col.MACHINE].unique())]
+               if machine_id in set(summary.groups["machine"])]
 if not machine_ids:
     st.info("No readings of a described machine yet: add the machines on the Machines page.")
     st.stop()
 machine_id = st.selectbox("Machine", machine_ids, key="sessions-machine",
                           format_func=lambda key: labels.get(key, key))
-# Only this machine's readings, with the columns of its charts and tables, from the cache.
-of_machine = shared.load_machine(machine_id)
-# Sessions in the order they were run (first reading first), so "before" comes before "after".
-first_times = of_machine.groupby(col.SESSION, sort=False)[col.TIME].min()
-first_times.index = first_times.index.astype(str)  # ties in name order, also from categoricals
-sessions = list(first_times.sort_index().sort_values(kind="stable", na_position="last").index)
+# Sessions in the order they were run (first reading first), so "before" comes before "after";
+# ties in name order.
+groups = summary.groups[summary.groups["machine"] == machine_id]
+first_times = groups.groupby("session")["time_min"].min()
+sessions = [str(name) for name in first_times.sort_values(kind="stable",
+                                                          na_position="last").index]
 session = st.selectbox("Session", sessions, key="sessions-session",
                        format_func=lambda name: name or "(no session)")
-one_session = of_machine[of_machine[col.SESSION] == session]
+# Only this session's readings, with the columns of its charts and tables, from the cache.
+one_session = shared.load_sessions(machine_id, [session])
 flagged = one_session[one_session[col.FLAGS] != ""]
 # Charts from a bounded sample of the session; the fits use all its readings.
 drawn = figures.chart_sample(one_session, figures.MAX_SESSION_CHART_POINTS)
@@ -93,6 +94,8 @@ else:
     second = right.selectbox("After", sessions, index=len(sessions) - 1, key="sessions-b",
                              format_func=lambda name: name or "(no session)")
     try:
+        of_machine = shared.load_sessions(machine_id, [first, second]) if first != second \
+            else one_session  # the two sessions' readings (the same one is refused below)
         comparison = analysis.compare_sessions(of_machine, machine_id, first, second)
         st.success(shared.plain(comparison["verdict"]))
         st.plotly_chart(figures.sessions_compared(of_machine, machine_id, first, second,
