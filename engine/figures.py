@@ -424,6 +424,10 @@ def _steady_values_axis(figure: go.Figure) -> None:
         y = getattr(trace, "y", None)
         if y is None or getattr(trace, "yaxis", None) not in (None, "y"):
             continue
+        array = np.asarray(y)
+        if array.dtype.kind in "fiu":  # numbers already (most traces): no conversion
+            values.append(array.astype(float, copy=False).ravel())
+            continue
         numbers = pd.to_numeric(pd.Series(np.asarray(y, dtype=object)), errors="coerce")
         values.append(numbers.to_numpy(dtype=float))
     if not values:
@@ -520,6 +524,69 @@ def _fit_name(label: str, session: str) -> str:
     return f"{label}, {session}: fit" if session else f"{label}: fit"
 
 
+def _session_ranges(frame: pd.DataFrame, rows: np.ndarray, values: np.ndarray
+                    ) -> dict[str, tuple[float, float]]:
+    """Smallest and largest finite value of each session among ``rows`` (one pass per machine
+    instead of one mask over the whole frame per session)."""
+    if col.SESSION not in frame:
+        return {}
+    _shapes, names = _session_marks(frame, rows)
+    kept = values[rows]
+    finite = np.isfinite(kept)
+    if not finite.any():
+        return {}
+    spans = pd.Series(kept[finite]).groupby(names[finite], sort=False).agg(["min", "max"])
+    return {str(name): (float(low), float(high))
+            for name, low, high in zip(spans.index, spans["min"], spans["max"], strict=True)}
+
+
+class _FitLines:
+    """Fitted lines of one chart gathered per machine, line style and hover layout, each kind
+    drawn as one trace with gaps between its lines: plotly builds and checks a few traces
+    instead of one per machine and session (hundreds in a lab of many sessions). The figures
+    of each line go to the hover as numbers (``customdata``, sent packed) and its session as a
+    short text, so the chart stays small."""
+
+    def __init__(self, hover_tail: str) -> None:
+        self._hover_tail = hover_tail
+        self._pieces: dict[tuple[str, str, str], list[tuple[np.ndarray, np.ndarray, str,
+                                                            tuple[float, ...]]]] = {}
+        self._looks: dict[tuple[str, str, str], tuple[str, str]] = {}
+
+    def add(self, machine_id: str, label: str, colour: str, session: str, x: np.ndarray,
+            y: np.ndarray, hover: str, numbers: Sequence[float] = ()) -> None:
+        """One fitted line. ``hover`` (plotly hover text) may show ``numbers`` as
+        ``%{customdata[i]}``; lines of one machine with the same ``hover`` share a trace."""
+        dash = "dot" if session else "solid"
+        key = (machine_id, dash, hover)
+        self._looks[key] = (label, colour)
+        self._pieces.setdefault(key, []).append((np.asarray(x, dtype=float),
+                                                 np.asarray(y, dtype=float), _escape(session),
+                                                 tuple(float(value) for value in numbers)))
+
+    def traces(self) -> list[dict[str, object]]:
+        """The traces, as dicts for ``figure.add_traces``."""
+        traces = []
+        for (machine_id, dash, hover), pieces in self._pieces.items():
+            label, colour = self._looks[(machine_id, dash, hover)]
+            gap = np.array([np.nan])
+            x = np.concatenate([part for piece in pieces for part in (piece[0], gap)][:-1])
+            y = np.concatenate([part for piece in pieces for part in (piece[1], gap)][:-1])
+            sizes = [piece[0].size + 1 for piece in pieces]
+            text = np.repeat(np.array([piece[2] for piece in pieces], dtype=object), sizes)[:-1]
+            trace = dict(type="scatter", x=x, y=y, mode="lines", name=f"{label}: fit",
+                         legendgroup=machine_id, line={"color": colour, "dash": dash, "width": 2},
+                         hovertemplate=hover + self._hover_tail
+                         + ("<extra>%{text}</extra>" if dash == "dot" else "<extra></extra>"))
+            if dash == "dot":
+                trace["text"] = text
+            if pieces[0][3]:
+                trace["customdata"] = np.repeat(np.array([piece[3] for piece in pieces]),
+                                                sizes, axis=0)[:-1]
+            traces.append(trace)
+        return traces
+
+
 def _flagged_trace(frame: pd.DataFrame, x: np.ndarray, y: np.ndarray,
                    machines: Mapping[str, Machine], x_text: str, y_text: str,
                    showlegend: bool = True, label: str | None = None) -> go.Scatter | go.Scattergl:
@@ -607,6 +674,7 @@ def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None
     current_ua = _micro_amp(_floats(derived, col.CURRENT_A))
     figure = go.Figure()
     lines: list[dict[str, object]] = []  # added in batches (see charge_per_rev)
+    fits = _FitLines("<br>Speed %{x:.0f} rpm<br>Current %{y:.3g} µA")
     no_speed, no_description = [], []
     for machine_id, rows, label, colour in _clean_machines(ids, machine_column, flagged,
                                                            machines, colours):
@@ -639,6 +707,7 @@ def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None
                     hovertemplate=(f"Ceiling at relative air density {density:.3f}"
                                    "<br>Speed %{x:.0f} rpm<br>Ceiling %{y:.3g} µA"),
                 ))
+        ranges = _session_ranges(derived, rows, speed_rev_s)
         for row in _findings_rows(findings, machine_id):
             charge_nc = _number(row.get("charge_per_rev_nC"))
             offset_ua = _number(row.get("offset_current_uA"))
@@ -646,18 +715,13 @@ def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None
                 continue
             offset_ua = offset_ua if math.isfinite(offset_ua) else 0.0
             session = _session_of(row)
-            fit_rows = rows & _session_rows(derived, session)
-            fit_range = _finite_range(speed_rev_s[fit_rows]) or speed_range
+            fit_range = ranges.get(session, speed_range) if session else speed_range
             fit_rev_s = np.linspace(*fit_range, _LINE_POINTS)
             fitted_ua = _micro_amp(charge_nc / _NANO * fit_rev_s) + offset_ua
-            lines.append(dict(type="scatter",
-                x=_rpm(fit_rev_s), y=fitted_ua, mode="lines",
-                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
-                line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
-                hovertemplate=(f"Fit I = q f + I0: q = {charge_nc:.3g} nC, "
-                               f"I0 = {offset_ua:.3g} µA"
-                               "<br>Speed %{x:.0f} rpm<br>Current %{y:.3g} µA"),
-            ))
+            fits.add(machine_id, label, colour, session, _rpm(fit_rev_s), fitted_ua,
+                     "Fit I = q f + I0: q = %{customdata[0]:.3g} nC, "
+                     "I0 = %{customdata[1]:.3g} µA", (charge_nc, offset_ua))
+    lines.extend(fits.traces())
     _flush(figure, lines)
     shown_flagged = flagged & np.isfinite(speed_rev_s)
     if show_flagged and shown_flagged.any():
@@ -700,6 +764,7 @@ def efficiency_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | N
     uncertainty_pct = _percent(_floats(derived, col.EFFICIENCY_U))
     figure = go.Figure()
     lines: list[dict[str, object]] = []  # added in batches (see charge_per_rev)
+    fits = _FitLines("<br>Speed %{x:.0f} rpm<br>Efficiency %{y:.1f} %")
     no_speed, no_description = [], []
     for machine_id, rows, label, colour in _clean_machines(ids, machine_column, flagged,
                                                            machines, colours):
@@ -725,6 +790,7 @@ def efficiency_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | N
             no_description.append(machine_id)
             continue
         density = _median_density(derived[rows])
+        ranges = _session_ranges(derived, rows, speed_rev_s)
         for row in _findings_rows(findings, machine_id):
             charge_nc = _number(row.get("charge_per_rev_nC"))
             offset_ua = _number(row.get("offset_current_uA"))
@@ -732,21 +798,17 @@ def efficiency_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | N
                 continue
             offset_ua = offset_ua if math.isfinite(offset_ua) else 0.0
             session = _session_of(row)
-            fit_range = (_finite_range(speed_rev_s[rows & _session_rows(derived, session)])
-                         or speed_range)
+            fit_range = ranges.get(session, speed_range) if session else speed_range
             fit_rev_s = np.linspace(*fit_range, _LINE_POINTS)
             ceiling = _ceiling_at_density(machine, fit_rev_s, density)
             if ceiling is None or not np.all(ceiling > 0):
                 continue
             fitted_ua = _micro_amp(charge_nc / _NANO * fit_rev_s) + offset_ua
-            lines.append(dict(type="scatter",
-                x=_rpm(fit_rev_s), y=100.0 * fitted_ua / _micro_amp(ceiling), mode="lines",
-                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
-                line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
-                hovertemplate=("Speed fit over ceiling at relative air density "
-                               f"{density:.3f}<br>Speed %{{x:.0f}} rpm"
-                               "<br>Efficiency %{y:.1f} %"),
-            ))
+            fits.add(machine_id, label, colour, session, _rpm(fit_rev_s),
+                     100.0 * fitted_ua / _micro_amp(ceiling),
+                     "Speed fit over ceiling at relative air density %{customdata[0]:.3f}",
+                     (density,))
+    lines.extend(fits.traces())
     _flush(figure, lines)
     shown_flagged = flagged & np.isfinite(speed_rev_s)
     if show_flagged and shown_flagged.any():
@@ -798,16 +860,15 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     ids, colours, flagged, machine_column = _chart_basics(derived, colours)
     charge_nc = _floats(derived, col.CHARGE_PER_REV_C) * _NANO
     figure = go.Figure()
-    # Traces gathered as dicts and added in one call: plotly checks a trace object twice (when
-    # made and when added) and a dict once, which halves the time of a chart of hundreds of
-    # machine-session boxes.
+    # Traces gathered as dicts and added in one call (plotly checks a trace object twice, when
+    # made and when added, and a dict once), and one trace per machine for each kind of mark
+    # (its sessions' boxes, readings, fitted values and ceilings): a lab of hundreds of
+    # machine-session groups makes a few dozen traces instead of a thousand.
     boxes_and_marks: list[dict[str, object]] = []
     position_of: dict[str, int] = {}
     tick_text: list[str] = []
     no_speed, no_description = [], []
     jitter = np.random.default_rng(0)  # fixed seed: the same data draw the same chart
-    sessions_column = (derived[col.SESSION].fillna("").astype("str").to_numpy()
-                       if col.SESSION in derived else np.full(len(derived), "", dtype=object))
     for machine_id in ids:
         machine_rows = machine_column == machine_id
         rows_all = machine_rows & ~flagged & np.isfinite(charge_nc)
@@ -822,64 +883,88 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
             no_description.append(machine_id)
         # One box per session (before and after a restoration never share a box), in the
         # order the sessions were run.
-        sessions = list(dict.fromkeys(sessions_column[rows_all]))
+        _shapes, session_of_row = _session_marks(derived, rows_all)
+        values_all = charge_nc[rows_all]
+        density_all = _floats(derived, col.RELATIVE_AIR_DENSITY)[rows_all]
+        sessions = list(dict.fromkeys(session_of_row))
+        box: dict[str, list[float]] = {name: [] for name in
+                                       ("x", "q1", "median", "q3", "lowerfence", "upperfence")}
+        strip_x, strip_y = [], []
+        fitted: dict[str, list] = {name: [] for name in ("x", "y", "plus", "minus", "text")}
+        has_intervals = []
+        ceilings: dict[str, list] = {"x": [], "y": [], "text": []}
+        rows_of_machine = _findings_rows(findings, machine_id)
         for session in sessions:
-            rows = rows_all & (sessions_column == session)
+            in_session = session_of_row == session
             position = len(tick_text)
             position_of.setdefault(machine_id, position)
             # A machine of several sessions is named by its sessions (its colour and the
             # legend name the machine); a machine of one session by its name.
             tick_text.append(_escape(session) if len(sessions) > 1 and session else label)
-            values = charge_nc[rows]
-            boxes_and_marks.append(dict(type="box",
-                x=[position], **_box_statistics(values), name=label, legendgroup=machine_id,
-                marker={"color": colour}, line={"color": colour}, boxpoints=False,
-                hoverinfo="y+name", showlegend=session == sessions[0],
-            ))
+            values = values_all[in_session]
+            box["x"].append(position)
+            for name, value in _box_statistics(values).items():
+                box[name].extend(value)
             if values.size <= _STRIP_POINTS_MAX:
-                boxes_and_marks.append(dict(type="scatter",
-                    x=position + jitter.uniform(-0.18, 0.18, values.size), y=values,
-                    mode="markers", name=f"{label}: readings", legendgroup=machine_id,
-                    showlegend=False, marker={"color": colour, "size": 4, "opacity": 0.45},
-                    hovertemplate="Charge per revolution %{y:.3g} nC",
-                ))
-            for row in _findings_rows(findings, machine_id):
+                strip_x.append(position + jitter.uniform(-0.18, 0.18, values.size))
+                strip_y.append(values)
+            for row in rows_of_machine:
                 if len(sessions) > 1 and _session_of(row) not in ("", session):
                     continue
-                fitted = _number(row.get("charge_per_rev_nC"))
-                if not math.isfinite(fitted):
+                value = _number(row.get("charge_per_rev_nC"))
+                if not math.isfinite(value):
                     continue
                 low, high = _interval(row.get("charge_per_rev_ci_nC"))
                 has_interval = math.isfinite(low) and math.isfinite(high)
-                boxes_and_marks.append(dict(type="scatter",
-                    x=[position + 0.3], y=[fitted], mode="markers",
-                    name=_fit_name(label, _escape(_session_of(row))), legendgroup=machine_id,
-                    marker={"color": colour, "symbol": "diamond", "size": 10,
-                            "line": {"color": "#000000", "width": 1}},
-                    error_y={"type": "data", "symmetric": False,
-                             "array": [high - fitted if has_interval else 0.0],
-                             "arrayminus": [fitted - low if has_interval else 0.0],
-                             "visible": has_interval},
-                    hovertemplate=(f"Fitted q = {fitted:.3g} nC"
-                                   + (f" (95 % CI {low:.3g} to {high:.3g} nC)"
-                                      if has_interval else "") + "<extra></extra>"),
-                ))
+                has_intervals.append(has_interval)
+                fitted["x"].append(position + 0.3)
+                fitted["y"].append(value)
+                fitted["plus"].append(high - value if has_interval else 0.0)
+                fitted["minus"].append(value - low if has_interval else 0.0)
+                session_name = _escape(_session_of(row))
+                fitted["text"].append(
+                    (f"{session_name}: " if session_name else "")
+                    + f"Fitted q = {value:.3g} nC"
+                    + (f" (95 % CI {low:.3g} to {high:.3g} nC)" if has_interval else ""))
             if machine is None:
                 continue
-            density = _median_density(derived[rows])
+            density = density_all[in_session]
+            density = density[np.isfinite(density) & (density > 0)]
+            density = float(np.median(density)) if density.size else 1.0
             ceiling = _ceiling_at_density(machine, 1.0, density)  # the current at 1 rev/s
             if ceiling is None:
                 continue
+            ceilings["x"].append(position)
+            ceilings["y"].append(float(ceiling) * _NANO)
+            ceilings["text"].append(
+                f"Ceiling per revolution at relative air density {density:.3f}"
+                f"<br>{float(ceiling) * _NANO:.3g} nC: {machine.units:g} unit"
+                f"{'s' if machine.units != 1 else ''}<br>{_escape(machine.unit_rule.rule)}")
+        boxes_and_marks.append(dict(type="box",
+            **box, name=label, legendgroup=machine_id, marker={"color": colour},
+            line={"color": colour}, boxpoints=False, hoverinfo="y+name"))
+        if strip_x:
             boxes_and_marks.append(dict(type="scatter",
-                x=[position], y=[float(ceiling) * _NANO], mode="markers",
+                x=np.concatenate(strip_x), y=np.concatenate(strip_y), mode="markers",
+                name=f"{label}: readings", legendgroup=machine_id, showlegend=False,
+                marker={"color": colour, "size": 4, "opacity": 0.45},
+                hovertemplate="Charge per revolution %{y:.3g} nC"))
+        if fitted["x"]:
+            boxes_and_marks.append(dict(type="scatter",
+                x=fitted["x"], y=fitted["y"], text=fitted["text"], mode="markers",
+                name=f"{label}: fit", legendgroup=machine_id,
+                marker={"color": colour, "symbol": "diamond", "size": 10,
+                        "line": {"color": "#000000", "width": 1}},
+                error_y={"type": "data", "symmetric": False, "array": fitted["plus"],
+                         "arrayminus": fitted["minus"], "visible": any(has_intervals)},
+                hovertemplate="%{text}<extra></extra>"))
+        if ceilings["x"]:
+            boxes_and_marks.append(dict(type="scatter",
+                x=ceilings["x"], y=ceilings["y"], text=ceilings["text"], mode="markers",
                 name=f"{label}: ceiling", legendgroup=machine_id,
                 marker={"color": colour, "symbol": "line-ew-open", "size": 44,
                         "line": {"color": colour, "width": 3}},
-                hovertemplate=(f"Ceiling per revolution at relative air density {density:.3f}"
-                               f"<br>%{{y:.3g}} nC: {machine.units:g} unit"
-                               f"{'s' if machine.units != 1 else ''}"
-                               f"<br>{_escape(machine.unit_rule.rule)}<extra></extra>"),
-            ))
+                hovertemplate="%{text}<extra></extra>"))
     figure.add_traces(boxes_and_marks)
     shown_flagged = flagged & np.isfinite(charge_nc)
     if show_flagged and shown_flagged.any():
@@ -938,6 +1023,7 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
     efficiency_pct = _percent(_floats(derived, col.EFFICIENCY))
     figure = go.Figure()
     lines: list[dict[str, object]] = []  # added in batches (see charge_per_rev)
+    fits = _FitLines("<br>RH %{x:.1f} %<br>Efficiency %{y:.1f} %")
     no_humidity = []
     for machine_id, rows, label, colour in _clean_machines(ids, machine_column, flagged,
                                                            machines, colours):
@@ -954,35 +1040,35 @@ def efficiency_vs_humidity(derived: pd.DataFrame | None, findings: pd.DataFrame 
             marker={"color": colour, "size": 6, "opacity": 0.75, "symbol": shapes},
             hovertemplate="Session %{customdata}<br>RH %{x:.1f} %<br>Efficiency %{y:.1f} %",
         )
+        ranges = _session_ranges(derived, rows, rh_pct)
         for row in _findings_rows(findings, machine_id):
             at_reference = _number(row.get("efficiency_at_reference_rh"))
             slope = _number(row.get("humidity_slope_per_10pct"))
             if not (math.isfinite(at_reference) and math.isfinite(slope)):
                 continue
             session = _session_of(row)
-            fit_range = _finite_range(rh_pct[rows & _session_rows(derived, session)]) or rh_range
-            line_rh = np.linspace(*fit_range, _LINE_POINTS * 4)
+            fit_range = ranges.get(session, rh_range) if session else rh_range
             if row.get("humidity_model") == "logistic decline":
                 # The curve that was fitted, and that gave the efficiency at the reference RH.
+                line_rh = np.linspace(*fit_range, _LINE_POINTS * 2)
                 dry = _number(row.get("logistic_dry_efficiency"))
                 half = _number(row.get("logistic_rh_half_pct"))
                 width = _number(row.get("logistic_width_pct"))
                 line_efficiency = _percent(logistic_efficiency(line_rh / 100, dry, half / 100,
                                                                width / 100))
-                what = (f"Logistic decline: half the dry {_percent(dry):.1f} % at "
-                        f"{half:.0f} % RH")
+                what = ("Logistic decline: half the dry %{customdata[0]:.1f} % at "
+                        "%{customdata[1]:.0f} % RH")
+                numbers = (_percent(dry), half)
             else:
+                line_rh = np.linspace(*fit_range, _LINE_POINTS)  # a straight line
                 line_efficiency = _percent(at_reference
                                            + slope * (line_rh - reference_rh_pct) / 10)
-                what = f"Humidity fit: {_percent(slope):+.1f} percentage points per +10 % RH"
-            lines.append(dict(type="scatter",
-                x=line_rh, y=line_efficiency, mode="lines",
-                name=_fit_name(label, _escape(session)), legendgroup=machine_id,
-                line={"color": colour, "dash": "dot" if session else "solid", "width": 2},
-                hovertemplate=(f"{what}, {_percent(at_reference):.1f} % at "
-                               f"{reference_rh_pct:g} % RH"
-                               "<br>RH %{x:.1f} %<br>Efficiency %{y:.1f} %"),
-            ))
+                what = "Humidity fit: %{customdata[0]:+.1f} percentage points per +10 % RH"
+                numbers = (_percent(slope), math.nan)
+            fits.add(machine_id, label, colour, session, line_rh, line_efficiency,
+                     what + f", %{{customdata[2]:.1f}} % at {reference_rh_pct:g} % RH",
+                     (*numbers, _percent(at_reference)))
+    lines.extend(fits.traces())
     _flush(figure, lines)
     shown_flagged = flagged & np.isfinite(rh_pct)
     if show_flagged and shown_flagged.any():
