@@ -216,6 +216,9 @@ POSTGRES_STEPS: dict[int, tuple[str, ...]] = {
         "DEFAULT '[]'",
         "UPDATE imports SET session_names = COALESCE((SELECT json_agg(DISTINCT session "
         "ORDER BY session)::text FROM readings WHERE readings.import_id = imports.id), '[]')"),
+    # Version 6: the embedded store keeps its readings in blocks (engine.store.blocks); a
+    # server keeps one row a reading, which COPY writes quickly: nothing changes here.
+    5: (),
 }
 
 #: What each kind of account may do, table by table (granted to the group roles).

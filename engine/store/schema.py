@@ -18,14 +18,19 @@ Layout
     sessions it holds (``sessions`` as text for people, ``session_names`` as a JSON array), and
     the pandas dtype of its time columns (naive or with a time zone, and the unit), so that the
     frame reads back as it went in.
-``readings`` and ``environment``
-    The columns of :data:`engine.columns.READING_COLUMNS` and
-    :data:`engine.columns.ENVIRONMENT_COLUMNS`, SI units, each row tied to its import by a
-    foreign key with ``ON DELETE CASCADE``. Times are int64 nanoseconds since 1970 (UTC for
-    zone-aware times, wall clock for naive ones), NULL for NaT. Float columns carry no declared
-    type, so SQLite keeps every double bit for bit (a REAL column would turn -0.0 into 0).
-    NaN is stored as NULL and reads back as NaN. Text columns hold no missing values: a missing
-    text (None, NaN) is stored and read back as "".
+``reading_blocks``
+    The readings of each import in blocks of many readings (``import_id``, ``block`` number,
+    ``rows``, ``data``: the columns of :data:`engine.columns.READING_COLUMNS` as an Arrow IPC
+    stream, see :mod:`engine.store.blocks`), tied to the import by a foreign key with
+    ``ON DELETE CASCADE``. Until version 5 the readings were rows of a ``readings`` table,
+    with the columns and rules of ``environment`` below.
+``environment``
+    The columns of :data:`engine.columns.ENVIRONMENT_COLUMNS`, SI units, each row tied to its
+    import by a foreign key with ``ON DELETE CASCADE``. Times are int64 nanoseconds since 1970
+    (UTC for zone-aware times, wall clock for naive ones), NULL for NaT. Float columns carry
+    no declared type, so SQLite keeps every double bit for bit (a REAL column would turn -0.0
+    into 0). NaN is stored as NULL and reads back as NaN. Text columns hold no missing
+    values: a missing text (None, NaN) is stored and read back as "".
 ``settings``
     Key and text value of settings that outlive a restart.
 """
@@ -163,8 +168,15 @@ def _session_names(connection: sqlite3.Connection) -> None:
     if "session_names" not in columns:
         connection.execute("ALTER TABLE imports ADD COLUMN session_names TEXT NOT NULL "
                            "DEFAULT '[]'")
-    connection.execute("UPDATE imports SET session_names = (SELECT json_group_array(DISTINCT "
-                       "session) FROM readings WHERE readings.import_id = imports.id)")
+    if _has_table(connection, "readings"):  # else the readings are blocks: names kept
+        connection.execute("UPDATE imports SET session_names = (SELECT json_group_array("
+                           "DISTINCT session) FROM readings WHERE readings.import_id = "
+                           "imports.id)")
+
+
+def _has_table(connection: sqlite3.Connection, name: str) -> bool:
+    return bool(connection.execute("SELECT COUNT(*) FROM sqlite_master WHERE type = 'table' "
+                                   "AND name = ?", (name,)).fetchone()[0])
 
 
 SCHEMA_V5: tuple[object, ...] = (
@@ -173,15 +185,61 @@ SCHEMA_V5: tuple[object, ...] = (
     "DROP INDEX IF EXISTS readings_by_session",
 )
 
+_READING_SQL = tuple(_TIME_NS if column == TIME else column for column in READING_COLUMNS)
+_ENVIRONMENT_SQL = tuple(_TIME_NS if column == TIME else column for column in ENVIRONMENT_COLUMNS)
+#: Readings moved into blocks at a time by the step to version 6.
+_MOVED_ROWS = 200_000
+
+
+def _readings_to_blocks(connection: sqlite3.Connection) -> None:
+    """Version 6: move every import's readings from ``readings`` (one row a reading) into
+    ``reading_blocks`` (:mod:`engine.store.blocks`), in stored order, and drop the old table.
+    A one-time wait on opening a large store (about a minute per 10^7 readings)."""
+    from engine.store.blocks import encode_block
+
+    if not _has_table(connection, "readings"):  # already blocks (the step met a newer store)
+        return
+    connection.execute("""CREATE TABLE reading_blocks (
+        import_id INTEGER NOT NULL REFERENCES imports(id) ON DELETE CASCADE,
+        block INTEGER NOT NULL,
+        rows INTEGER NOT NULL,
+        data BLOB NOT NULL
+    )""")
+    connection.execute("CREATE UNIQUE INDEX reading_blocks_by_import "
+                       "ON reading_blocks(import_id, block)")
+    kinds = ["int" if column in ("row", _TIME_NS) else "float" if column in _READING_FLOATS
+             else "text" for column in _READING_SQL]
+    selected = ", ".join(f'IFNULL("{column}", {_NAT_NS})' if column == _TIME_NS
+                         else f'"{column}"' for column in _READING_SQL)
+    import_ids = [row[0] for row in connection.execute("SELECT id FROM imports ORDER BY id")]
+    for import_id in import_ids:
+        cursor = connection.execute(f"SELECT {selected} FROM readings WHERE import_id = ? "
+                                    "ORDER BY rowid", (import_id,))
+        block = 0
+        while batch := cursor.fetchmany(_MOVED_ROWS):
+            values = np.array(batch, dtype=object)
+            arrays = [values[:, number].astype(np.float64) if kind == "float" else
+                      values[:, number].astype(np.int64) if kind == "int" else
+                      np.array(["" if text is None else str(text) for text in values[:, number]],
+                               dtype=object)
+                      for number, kind in enumerate(kinds)]
+            connection.execute("INSERT INTO reading_blocks (import_id, block, rows, data) "
+                               "VALUES (?, ?, ?, ?)",
+                               (import_id, block, len(batch),
+                                encode_block(_READING_SQL, arrays, 0, len(batch))))
+            block += 1
+    connection.execute("DROP TABLE readings")
+
+
+#: Version 6: readings kept in blocks of many readings (see :mod:`engine.store.blocks`).
+SCHEMA_V6: tuple[object, ...] = (_readings_to_blocks,)
+
 #: Statements (or Python steps taking the connection) that bring a store from version ``n`` to
 #: ``n + 1`` are ``MIGRATIONS[n]``.
 MIGRATIONS: tuple[tuple[object, ...], ...] = (SCHEMA_V1, SCHEMA_V2, SCHEMA_V3, SCHEMA_V4,
-                                              SCHEMA_V5)
+                                              SCHEMA_V5, SCHEMA_V6)
 #: Version of a store written by this module.
 SCHEMA_VERSION = len(MIGRATIONS)
-
-_READING_SQL = tuple(_TIME_NS if column == TIME else column for column in READING_COLUMNS)
-_ENVIRONMENT_SQL = tuple(_TIME_NS if column == TIME else column for column in ENVIRONMENT_COLUMNS)
 
 def schema_version(connection: sqlite3.Connection) -> int:
     """Schema version of an open SQLite connection (``PRAGMA user_version``)."""

@@ -30,6 +30,7 @@ from typing import TypeVar
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 
 from engine.columns import (
     MACHINE,
@@ -51,6 +52,7 @@ from engine.store.base import (
     is_server_location,
     store_location,
 )
+from engine.store.blocks import column_values, decode_block, encode_block
 from engine.store.bundle import BundleReader, _bundle_key, _bundle_machines
 from engine.store.frames import (
     _IMPORT_COLUMNS,
@@ -216,6 +218,31 @@ def _retry(work: Callable[[], _Result], path: Path) -> _Result:
             delay = min(2 * delay, 2.0)
 
 
+def _frame(columns: Sequence[str], floats: Sequence[str], gathered: list[np.ndarray],
+           dtypes: dict[int, str]) -> pd.DataFrame:
+    """The frame of a table's columns read back: import ids first in ``gathered``, then one
+    array per column (times as int64 nanoseconds, numbers, texts as objects)."""
+    import_ids = gathered[0]
+    data: dict[str, object] = {}
+    for column, values in zip(columns, gathered[1:], strict=True):
+        if column == TIME:
+            present = {dtypes.get(import_id, "datetime64[ns]")
+                       for import_id in np.unique(import_ids).tolist()}
+            data[column] = _restore_time(values, present)
+        elif column in floats or column == ROW:
+            data[column] = values  # NULL (None) became NaN in the float conversion
+        else:
+            data[column] = pd.Series(values, dtype=object).astype(_TEXT_DTYPE)
+    data[IMPORT_ID] = import_ids
+    return pd.DataFrame(data, columns=[*columns, IMPORT_ID])
+
+
+_ENVIRONMENT_NAMES = ", ".join(f'"{column}"' for column in ("import_id", *_ENVIRONMENT_SQL))
+_ENVIRONMENT_INSERT = (f"INSERT INTO environment ({_ENVIRONMENT_NAMES}) "
+                       f"VALUES ({', '.join('?' * (len(_ENVIRONMENT_SQL) + 1))})")
+_BLOCK_INSERT = "INSERT INTO reading_blocks (import_id, block, rows, data) VALUES (?, ?, ?, ?)"
+
+
 def _insert_chunk(connection: sqlite3.Connection, statement: str,
                   rows: Iterable[tuple[object, ...]]) -> None:
     """Write one chunk of rows (a seam for tests that make a chunk fail)."""
@@ -343,6 +370,8 @@ class SQLiteStore(Store):
     def _read_table(self, table: str, columns: Sequence[str], floats: Sequence[str],
                     filters: Sequence[tuple[str, list | None]],
                     dtype_column: str) -> pd.DataFrame:
+        if table == "readings":
+            return self._read_blocks(columns, floats, filters, dtype_column)
         sql_columns = [_TIME_NS if column == TIME else column for column in columns]
         selected = [f"IFNULL({_TIME_NS}, ?)" if column == _TIME_NS else f'"{column}"'
                     for column in sql_columns]
@@ -378,19 +407,39 @@ class SQLiteStore(Store):
         empty = {"id": np.int64, "int": np.int64, "float": np.float64, "text": object}
         gathered = [np.concatenate([piece[number] for piece in pieces]) if pieces
                     else np.empty(0, dtype=empty[kind]) for number, kind in enumerate(kinds)]
-        import_ids = gathered[0]
-        data: dict[str, object] = {}
-        for column, values in zip(columns, gathered[1:], strict=True):
-            if column == TIME:
-                present = {dtypes.get(import_id, "datetime64[ns]")
-                           for import_id in np.unique(import_ids).tolist()}
-                data[column] = _restore_time(values, present)
-            elif column in floats or column == ROW:
-                data[column] = values  # NULL (None) became NaN in the float conversion
-            else:
-                data[column] = pd.Series(values, dtype=object).astype(_TEXT_DTYPE)
-        data[IMPORT_ID] = import_ids
-        return pd.DataFrame(data, columns=[*columns, IMPORT_ID])
+        return _frame(columns, floats, gathered, dtypes)
+
+    def _read_blocks(self, columns: Sequence[str], floats: Sequence[str],
+                     filters: Sequence[tuple[str, list | None]],
+                     dtype_column: str) -> pd.DataFrame:
+        """The readings, from their blocks (see :meth:`_read_table`)."""
+        sql_columns = [_TIME_NS if column == TIME else column for column in columns]
+        import_ids = dict(filters).get(IMPORT_ID)
+        keep = [(column, [str(value) for value in values]) for column, values in filters
+                if column != IMPORT_ID and values is not None]
+        statement = "SELECT import_id, data FROM reading_blocks"
+        parameters: list[object] = []
+        if import_ids is not None:
+            statement += " WHERE import_id IN (SELECT value FROM json_each(?))"
+            parameters.append(json.dumps([int(value) for value in import_ids]))
+        statement += " ORDER BY import_id, block"
+        tables, ids = [], []
+        with self._snapshot():
+            cursor = _retry(lambda: self._connection.execute(statement, parameters), self._path)
+            while batch := cursor.fetchmany(16):
+                for import_id, data in batch:
+                    decoded = decode_block(data, sql_columns, keep)
+                    tables.append(decoded)
+                    ids.append(np.full(decoded.num_rows, import_id, dtype=np.int64))
+            dtypes = dict(self._query(f"SELECT id, {dtype_column} FROM imports"))
+        empty = pa.table({column: pa.array([], type=pa.int64() if column in ("row", _TIME_NS)
+                                           else pa.float64() if column in floats
+                                           else pa.string()) for column in sql_columns})
+        table = pa.concat_tables(tables, promote_options="permissive") if tables else empty
+        del tables
+        gathered = [np.concatenate(ids) if ids else np.empty(0, dtype=np.int64)]
+        gathered += [column_values(table, column) for column in sql_columns]
+        return _frame(columns, floats, gathered, dtypes)
 
     def _import_rows(self) -> tuple[list[str], list[tuple]]:
         columns = list(_IMPORT_COLUMNS)
@@ -407,8 +456,7 @@ class SQLiteStore(Store):
 
         def work(connection: sqlite3.Connection) -> dict[str, int]:
             readings = connection.execute(
-                "SELECT COUNT(*) FROM readings WHERE import_id IN "
-                "(SELECT id FROM imports WHERE is_demo = 1)").fetchone()[0]
+                "SELECT COALESCE(SUM(rows), 0) FROM imports WHERE is_demo = 1").fetchone()[0]
             imports = connection.execute("DELETE FROM imports WHERE is_demo = 1").rowcount
             machines = connection.execute("DELETE FROM machines WHERE is_demo = 1").rowcount
             connection.execute("DELETE FROM site WHERE is_demo = 1")
@@ -520,16 +568,27 @@ def _insert_import(connection: sqlite3.Connection, readings: _Prepared,
          readings.time_dtype, 0 if environment is None else environment.rows,
          "datetime64[ns]" if environment is None else environment.time_dtype))
     import_id = int(cursor.lastrowid)
-    for table, sql_columns, prepared in (("readings", _READING_SQL, readings),
-                                         ("environment", _ENVIRONMENT_SQL, environment)):
-        if prepared is None:
-            continue
-        names = ", ".join(f'"{column}"' for column in ("import_id", *sql_columns))
-        marks = ", ".join("?" * (len(sql_columns) + 1))
-        statement = f"INSERT INTO {table} ({names}) VALUES ({marks})"
-        for rows in prepared.chunks(import_id, CHUNK_ROWS):
-            _insert_chunk(connection, statement, rows)
+    _insert_blocks(connection, import_id, readings, 0)
+    if environment is not None:
+        for rows in environment.chunks(import_id, CHUNK_ROWS):
+            _insert_chunk(connection, _ENVIRONMENT_INSERT, rows)
     return import_id
+
+
+def _insert_blocks(connection: sqlite3.Connection, import_id: int, readings: _Prepared,
+                   first_block: int) -> int:
+    """Write readings as blocks of at most :data:`CHUNK_ROWS` (:mod:`engine.store.blocks`),
+    numbered from ``first_block``; returns the next block's number."""
+    arrays = [readings.time_ns if column == _TIME_NS else array
+              for column, array in zip(_READING_SQL, readings.arrays, strict=True)]
+    block = first_block
+    for start in range(0, readings.rows, CHUNK_ROWS):
+        stop = min(start + CHUNK_ROWS, readings.rows)
+        _insert_chunk(connection, _BLOCK_INSERT,
+                      [(import_id, block, stop - start,
+                        encode_block(_READING_SQL, arrays, start, stop))])
+        block += 1
+    return block
 
 
 
@@ -553,20 +612,20 @@ def _insert_bundle(connection: sqlite3.Connection, bundle: BundleReader,
     machines: dict[int, set[str]] = {import_id: set() for import_id in new_ids.values()}
     sessions: dict[int, set[str]] = {import_id: set() for import_id in new_ids.values()}
     machine_at, session_at = READING_COLUMNS.index(MACHINE), READING_COLUMNS.index(SESSION)
-    for environment, table, sql_columns in ((False, "readings", _READING_SQL),
-                                            (True, "environment", _ENVIRONMENT_SQL)):
-        names = ", ".join(f'"{column}"' for column in ("import_id", *sql_columns))
-        marks = ", ".join("?" * (len(sql_columns) + 1))
-        statement = f"INSERT INTO {table} ({names}) VALUES ({marks})"
+    next_block: dict[int, int] = dict.fromkeys(new_ids.values(), 0)
+    for environment in (False, True):
         for entry, prepared in bundle.blocks(environment=environment):
             if entry["id"] not in new_ids:
                 continue
             import_id = new_ids[entry["id"]]
-            for rows in prepared.chunks(import_id, CHUNK_ROWS):
-                _insert_chunk(connection, statement, rows)
-            if not environment:
-                machines[import_id].update(pd.unique(prepared.arrays[machine_at]).tolist())
-                sessions[import_id].update(pd.unique(prepared.arrays[session_at]).tolist())
+            if environment:
+                for rows in prepared.chunks(import_id, CHUNK_ROWS):
+                    _insert_chunk(connection, _ENVIRONMENT_INSERT, rows)
+                continue
+            next_block[import_id] = _insert_blocks(connection, import_id, prepared,
+                                                   next_block[import_id])
+            machines[import_id].update(pd.unique(prepared.arrays[machine_at]).tolist())
+            sessions[import_id].update(pd.unique(prepared.arrays[session_at]).tolist())
     connection.executemany("UPDATE imports SET machines = ?, sessions = ?, session_names = ? "
                            "WHERE id = ?",
                            [(", ".join(sorted(machines[import_id])),
