@@ -20,23 +20,28 @@ from tests.helpers.store_worker import make_readings
 from tests.test_store import MACHINES_TEXT
 
 
+def three_imports(store) -> None:
+    """The machines and site of MACHINES_TEXT, and three imports: one in UTC, a second in a
+    local time zone, a third with naive times, flagged readings and an unknown machine."""
+    machine_file = parse_machines_text(MACHINES_TEXT)
+    for machine in machine_file.machines:
+        store.save_machine(machine)
+    store.save_site(machine_file.site.spec)
+    first = make_readings(3_000, seed=1)
+    second = make_readings(2_000, seed=2)
+    second[col.TIME] = second[col.TIME].dt.tz_convert("Europe/Berlin")
+    third = make_readings(1_000, seed=3)
+    third[col.TIME] = third[col.TIME].dt.tz_localize(None)
+    third.loc[::10, col.MACHINE] = "not-described"
+    third.loc[::7, col.FLAGS] = "user_flag"
+    for number, frame in enumerate((first, second, third), 1):
+        store.import_readings(frame, f"import {number}")
+
+
 @pytest.fixture
 def lab(tmp_path):
-    machine_file = parse_machines_text(MACHINES_TEXT)
     with open_store(tmp_path / "lab.sqlite3") as store:
-        for machine in machine_file.machines:
-            store.save_machine(machine)
-        store.save_site(machine_file.site.spec)
-        first = make_readings(3_000, seed=1)
-        second = make_readings(2_000, seed=2)
-        # A second import in a local time zone, a third with naive times and an unknown machine.
-        second[col.TIME] = second[col.TIME].dt.tz_convert("Europe/Berlin")
-        third = make_readings(1_000, seed=3)
-        third[col.TIME] = third[col.TIME].dt.tz_localize(None)
-        third.loc[::10, col.MACHINE] = "not-described"
-        third.loc[::7, col.FLAGS] = "user_flag"
-        for number, frame in enumerate((first, second, third), 1):
-            store.import_readings(frame, f"import {number}")
+        three_imports(store)
         yield store
 
 

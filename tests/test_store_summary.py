@@ -14,37 +14,28 @@ import pytest
 
 from engine import analysis
 from engine import columns as col
-from engine.machines import parse_machines_text
 from engine.store import open_store
 from engine.store import summary as summaries
 from engine.store.cache import DerivedCache
 from tests.helpers.store_worker import make_readings
-from tests.test_store import MACHINES_TEXT
-from tests.test_store_cache import assert_same_findings, derived_files, everything_at_once
+from tests.test_store_cache import (
+    assert_same_findings,
+    derived_files,
+    everything_at_once,
+    three_imports,
+)
 
 
 @pytest.fixture
 def lab(tmp_path):
-    """Four imports: three share their sessions ('morning', 'afternoon'; one in a local zone,
-    one with naive times, flagged readings and an undescribed machine), the fourth has
-    sessions of its own and readings without a session."""
-    machine_file = parse_machines_text(MACHINES_TEXT)
+    """Four imports: the three of the cache's tests, which share their sessions ('morning',
+    'afternoon'), and a fourth with sessions of its own and readings without a session."""
     with open_store(tmp_path / "lab.sqlite3") as store:
-        for machine in machine_file.machines:
-            store.save_machine(machine)
-        store.save_site(machine_file.site.spec)
-        first = make_readings(3_000, seed=1)
-        second = make_readings(2_000, seed=2)
-        second[col.TIME] = second[col.TIME].dt.tz_convert("Europe/Berlin")
-        third = make_readings(1_000, seed=3)
-        third[col.TIME] = third[col.TIME].dt.tz_localize(None)
-        third.loc[::10, col.MACHINE] = "not-described"
-        third.loc[::7, col.FLAGS] = "user_flag"
+        three_imports(store)
         fourth = make_readings(6_000, seed=4)
         fourth[col.SESSION] = np.where(np.arange(6_000) < 4_500, "evening", None)
         fourth.loc[::9, col.FLAGS] = "user_flag"
-        for number, frame in enumerate((first, second, third, fourth), 1):
-            store.import_readings(frame, f"import {number}")
+        store.import_readings(fourth, "import 4")
         yield store
 
 

@@ -125,20 +125,6 @@ def _unified_time(tables: list[pa.Table], column: str) -> list[pa.Table]:
     return unified
 
 
-def derived_table(readings: pd.DataFrame, machine_file: MachineFile) -> pa.Table:
-    """The derived readings of one import as the Arrow table its file holds.
-
-    Parameters
-    ----------
-    readings : pandas.DataFrame
-        Exactly what ``store.readings(import_ids=[import_id])`` returns, without ``import_id``.
-    machine_file : MachineFile
-        The store's machines and site.
-    """
-    derived = analysis.derive(readings, machine_file.by_id(), machine_file.site)
-    return pa.Table.from_pandas(derived, preserve_index=False)
-
-
 @dataclass
 class ImportFiles:
     """What the cache keeps of one import: its derived readings, its groups and its sample
