@@ -984,6 +984,7 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
     figure.update_xaxes(tickmode="array", tickvals=list(range(len(tick_text))),
                         ticktext=[text if crowded else _wrap(text) for text in tick_text],
                         title_text="", tickangle=-30 if crowded else 0, automargin=True,
+                        ticklabeloverflow="allow",  # a long first name is not hidden
                         tickfont={"size": 11 if crowded else 12})
     figure.update_yaxes(rangemode="tozero")  # a charge per revolution is never negative
     if crowded:  # the slanted names need the room under the axis that the legend takes

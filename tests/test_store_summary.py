@@ -168,3 +168,26 @@ def test_an_empty_lab_has_an_empty_summary(tmp_path):
     assert summary.readings == 0
     assert summary.findings.empty and summary.groups.empty
     assert summary.sessions_in_run_order(["any"]) == []
+
+
+@pytest.mark.parametrize("rh_range", [(0, 100), (35, 45), (0, 40), (60, 100), (50, 50)])
+def test_a_humidity_range_read_from_the_files_keeps_what_the_page_filter_keeps(lab, rh_range):
+    """The Compare page's humidity filter, applied as the cache's files are read, keeps the
+    same readings as the filter written out in numpy on all readings (NaN kept; the slider's
+    ends at 0 and 100 % keep the readings beyond them)."""
+    cache = DerivedCache(lab)
+    # Edge values in a fifth import: exactly at the ends, just past them, missing, beyond 100 %.
+    edges = make_readings(12, seed=9)
+    edges[col.RH] = [0.35, 0.45, 0.3499999999, 0.4500000001, np.nan, 1.02, -0.01, 0.0, 1.0,
+                     0.5, 0.355, 0.6]
+    lab.import_readings(edges, "edges")
+    everything = cache.read(columns=[col.MACHINE, col.RH, col.CURRENT_A])
+    percent = everything[col.RH].to_numpy() * 100
+    low, high = rh_range
+    with np.errstate(invalid="ignore"):
+        expected = (np.isnan(percent) | ((percent >= low) & (percent <= high))
+                    | ((high == 100) & (percent > 100)) | ((low == 0) & (percent < 0)))
+    got = cache.read(columns=[col.MACHINE, col.RH, col.CURRENT_A],
+                     rows=summaries.humidity_condition(rh_range))
+    np.testing.assert_array_equal(got[col.CURRENT_A].to_numpy(),
+                                  everything[col.CURRENT_A].to_numpy()[expected])

@@ -469,7 +469,8 @@ class DerivedCache:
              machines: Iterable[str] | None = None,
              import_ids: Iterable[int] | None = None,
              machine_file: MachineFile | None = None,
-             sessions: Iterable[str] | None = None) -> pd.DataFrame:
+             sessions: Iterable[str] | None = None,
+             rows: pc.Expression | None = None) -> pd.DataFrame:
         """Derived readings, only the columns, machines and sessions asked for.
 
         Parameters
@@ -486,6 +487,9 @@ class DerivedCache:
             Keep only the readings of these sessions ("" for readings without one); None keeps
             all. An import that holds none of the machines' readings in these sessions (its
             group file tells) is not opened.
+        rows : pyarrow.compute.Expression, optional
+            Keep only the readings for which it is true (e.g.
+            :func:`engine.store.summary.humidity_condition`), applied as each file is read.
 
         Returns
         -------
@@ -512,6 +516,8 @@ class DerivedCache:
         if condition is not None:
             files = {key: path for key, path in files.items()
                      if _holds_any(path, machine_names, session_names)}
+        if rows is not None:
+            condition = rows if condition is None else condition & rows
         tables = []
         for import_id, path in files.items():
             table = pq.read_table(path, columns=wanted, filters=condition,

@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from engine import analysis
 from engine import columns as col
@@ -393,6 +394,27 @@ def combine(parts: Sequence[tuple[int, pd.DataFrame]], sample: pd.DataFrame | No
         del readings
         groups.loc[shared, "findings"] = [again[key] for key in keys]
     return groups, _thinned_sample(sample)
+
+
+def humidity_condition(rh_range: tuple[float, float]) -> pc.Expression:
+    """The readings a relative-humidity range keeps, as an Arrow expression for reading
+    (:meth:`engine.store.cache.DerivedCache.read`): those whose humidity times 100 lies in
+    ``rh_range`` [%], ends included, those without humidity, and beyond 0 or 100 % those past
+    the range's end when it is at 0 or 100 (a slider stops there).
+
+    The same readings as the pages' filter of a read frame (the same double products and
+    comparisons, in Arrow instead of numpy).
+    """
+    low, high = float(rh_range[0]), float(rh_range[1])
+    humidity = pc.field(col.RH)
+    percent = pc.multiply(humidity, 100.0)
+    kept = (humidity.is_null() | pc.is_nan(humidity)
+            | ((percent >= low) & (percent <= high)))
+    if high == 100:
+        kept = kept | (percent > 100.0)
+    if low == 0:
+        kept = kept | (percent < 0.0)
+    return kept
 
 
 def sample_table(derived: pd.DataFrame, positions: np.ndarray) -> pa.Table:
