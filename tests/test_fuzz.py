@@ -842,9 +842,9 @@ def _store_state(store) -> tuple:
     return (store.counts(), store.imports().to_dict("list"),
             connection.execute("SELECT id, toml, is_demo FROM machines ORDER BY id").fetchall(),
             connection.execute("SELECT key, value, is_demo FROM site ORDER BY key").fetchall(),
-            connection.execute("SELECT COUNT(*), SUM(rows), TOTAL(LENGTH(data)), "
-                               "GROUP_CONCAT(HEX(SUBSTR(data, 1, 0)) || LENGTH(data)) "
-                               "FROM reading_blocks").fetchall(),
+            connection.execute("SELECT COUNT(*), SUM(rows), GROUP_CONCAT(HEX(data)) "
+                               "FROM (SELECT rows, data FROM reading_blocks ORDER BY rowid)"
+                               ).fetchall(),
             connection.execute("SELECT COUNT(*), TOTAL(rh) FROM environment").fetchall())
 
 

@@ -29,10 +29,13 @@ from tests.test_store_cache import (
 @pytest.fixture
 def lab(tmp_path):
     """Four imports: the three of the cache's tests, which share their sessions ('morning',
-    'afternoon'), and a fourth with sessions of its own and readings without a session."""
+    'afternoon'), and a fourth with sessions of its own, readings without a session and naive
+    times in microseconds."""
     with open_store(tmp_path / "lab.sqlite3") as store:
         three_imports(store)
         fourth = make_readings(6_000, seed=4)
+        # Naive times in microseconds, as a CSV read gives them.
+        fourth[col.TIME] = fourth[col.TIME].dt.tz_localize(None).astype("datetime64[us]")
         fourth[col.SESSION] = np.where(np.arange(6_000) < 4_500, "evening", None)
         fourth.loc[::9, col.FLAGS] = "user_flag"
         store.import_readings(fourth, "import 4")
@@ -191,3 +194,31 @@ def test_a_humidity_range_read_from_the_files_keeps_what_the_page_filter_keeps(l
                      rows=summaries.humidity_condition(rh_range))
     np.testing.assert_array_equal(got[col.CURRENT_A].to_numpy(),
                                   everything[col.CURRENT_A].to_numpy()[expected])
+
+
+def test_a_read_of_some_imports_gives_the_times_a_read_of_all_would(lab):
+    """Only the third import holds the undescribed machine, and its times are naive; the lab
+    mixes zones, so every read gives zone-aware UTC times, whatever imports it opens (a day
+    starts at the same hour for the findings as for the charts)."""
+    cache = DerivedCache(lab)
+    some = cache.read(columns=[col.MACHINE, col.TIME], machines=["not-described"])
+    every = cache.read(columns=[col.MACHINE, col.TIME])
+    assert str(some[col.TIME].dtype) == str(every[col.TIME].dtype) == "datetime64[ns, UTC]"
+    expected = every[every[col.MACHINE] == "not-described"][col.TIME].reset_index(drop=True)
+    pd.testing.assert_series_equal(some[col.TIME], expected)
+
+
+def test_the_humidity_bounds_are_finite_when_a_reading_holds_an_infinite_humidity(tmp_path):
+    """A slider cannot reach infinity: the bounds leave out infinite humidities (the reading
+    stays, and a slider at 100 % keeps it)."""
+    with open_store(tmp_path / "lab.sqlite3") as store:
+        three_imports(store)
+        odd = make_readings(50, seed=11)
+        odd.loc[3, col.RH] = np.inf
+        odd.loc[4, col.RH] = -np.inf
+        store.import_readings(odd, "odd")
+        summary = DerivedCache(store).summary()
+        reference = everything_at_once(store)
+    finite = reference[col.RH][np.isfinite(reference[col.RH])]
+    assert summary.bounds(col.RH) == (finite.min(), finite.max())
+    assert summary.readings == len(reference)

@@ -53,7 +53,7 @@ CACHE_FORMAT = 1
 ROW_GROUP_ROWS = 1_000_000
 #: Engine modules whose code decides the derived columns: their source is part of the key.
 _DERIVE_MODULES = ("analysis", "air", "carriers", "ceiling", "machines", "arrangements",
-                   "units", "columns")
+                   "units", "columns", "store/summary")
 # Text columns of few distinct values: read as pandas categoricals (a byte or two per reading
 # instead of the text itself).
 _TEXT_COLUMNS = (col.MACHINE, col.SESSION, col.FLAGS, col.NOTE)
@@ -98,13 +98,16 @@ def _write_atomically(table: pa.Table, path: Path) -> None:
             temporary.unlink()
 
 
-def _unified_time(tables: list[pa.Table], column: str) -> list[pa.Table]:
+def _unified_time(tables: list[pa.Table], column: str,
+                  lab_types: Iterable[pa.DataType] = ()) -> list[pa.Table]:
     """Give every table's time column one type, by the rule of :meth:`Store.readings`.
 
     One type among the imports stays; otherwise zone-aware UTC when any import is zone-aware
-    (naive times taken as UTC), else naive; in nanoseconds.
+    (naive times taken as UTC), else naive; in nanoseconds. ``lab_types`` are the time types of
+    the lab's other imports, not read: a read of some imports gives the type that a read of
+    all would (so that a day starts at the same hour whatever was read).
     """
-    types = {table.schema.field(column).type for table in tables}
+    types = {table.schema.field(column).type for table in tables} | set(lab_types)
     if len(types) <= 1:
         return tables
     aware = any(getattr(kind, "tz", None) for kind in types)
@@ -434,7 +437,7 @@ class DerivedCache:
                 _write_atomically(groups_table, groups_path)
             for path in self._folder.glob("lab-*.parquet"):
                 if path not in (groups_path, sample_path):
-                    with contextlib.suppress(FileNotFoundError):
+                    with contextlib.suppress(OSError):  # gone already, or a read-only folder
                         path.unlink()
         return summaries.lab_summary(kept[0], kept[1], machine_file.by_id())
 
@@ -498,6 +501,7 @@ class DerivedCache:
             the same order, with a fresh RangeIndex), restricted as asked.
         """
         files = self.refresh(machine_file)
+        every_file = list(files.values())
         if import_ids is not None:
             chosen = {int(value) for value in import_ids}
             files = {key: path for key, path in files.items() if key in chosen}
@@ -528,7 +532,9 @@ class DerivedCache:
         if not tables:
             return self._empty(wanted)
         if col.TIME in tables[0].column_names:
-            tables = _unified_time(tables, col.TIME)
+            lab_types = [] if len(tables) == len(every_file) else [
+                pq.read_schema(path).field(col.TIME).type for path in every_file]
+            tables = _unified_time(tables, col.TIME, lab_types)
         table = pa.concat_tables(tables)
         del tables
         frame = table.to_pandas(self_destruct=True)  # each column freed once converted

@@ -160,9 +160,9 @@ def group_table(derived: pd.DataFrame, machines: Mapping[str, Machine] | Machine
     groups : pandas.DataFrame
         Columns :data:`GROUP_COLUMNS`, one row per group in order of its first reading:
         ``first`` (position of its first reading), ``readings``, ``flagged`` (readings with a
-        flag), the smallest and largest relative humidity [-] and time among its readings
-        (missing values left out; NaN or NaT when none), and ``findings``, the group's row of
-        ``analysis.findings(derived, machines, by_session=True)`` as JSON text.
+        flag), the smallest and largest finite relative humidity [-] and time among its
+        readings (missing values left out; NaN or NaT when none), and ``findings``, the
+        group's row of ``analysis.findings(derived, machines, by_session=True)`` as JSON text.
     sample : numpy.ndarray of int
         Positions of the readings kept to draw, in stored order: at most
         :data:`SAMPLE_CLEAN` clean and :data:`SAMPLE_FLAGGED` flagged readings of each group,
@@ -188,7 +188,7 @@ def group_table(derived: pd.DataFrame, machines: Mapping[str, Machine] | Machine
         is_clean = clean[rows]
         flagged.append(int(rows.size - np.count_nonzero(is_clean)))
         humidity = rh[rows]
-        humidity = humidity[~np.isnan(humidity)]
+        humidity = humidity[np.isfinite(humidity)]  # a slider's ends: finite values only
         rh_min.append(float(humidity.min()) if humidity.size else math.nan)
         rh_max.append(float(humidity.max()) if humidity.size else math.nan)
         when = stamps[rows]
@@ -219,7 +219,9 @@ def group_table(derived: pd.DataFrame, machines: Mapping[str, Machine] | Machine
 
 def _times_like(stamps: np.ndarray, dtype) -> pd.Series:
     """Integers of :attr:`pandas.arrays.DatetimeArray.asi8` back as times of ``dtype``."""
-    unit = getattr(dtype, "unit", "ns")
+    # A zone-aware dtype names its unit; a numpy one (naive times) keeps it in the dtype
+    # itself (a CSV read gives microseconds).
+    unit = dtype.unit if isinstance(dtype, pd.DatetimeTZDtype) else np.datetime_data(dtype)[0]
     values = pd.Series(stamps.view(f"datetime64[{unit}]"))
     zone = getattr(dtype, "tz", None)
     return values.dt.tz_localize("UTC").dt.tz_convert(zone) if zone is not None else values
