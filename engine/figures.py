@@ -719,8 +719,8 @@ def current_vs_speed(derived: pd.DataFrame | None, findings: pd.DataFrame | None
             fit_rev_s = np.linspace(*fit_range, _LINE_POINTS)
             fitted_ua = _micro_amp(charge_nc / _NANO * fit_rev_s) + offset_ua
             fits.add(machine_id, label, colour, session, _rpm(fit_rev_s), fitted_ua,
-                     "Fit I = q f + I0: q = %{customdata[0]:.3g} nC, "
-                     "I0 = %{customdata[1]:.3g} µA", (charge_nc, offset_ua))
+                     "Fit I = q f + I0: q = %{customdata[0]:,.4~g} nC, "
+                     "I0 = %{customdata[1]:,.3~g} µA", (charge_nc, offset_ua))
     lines.extend(fits.traces())
     _flush(figure, lines)
     shown_flagged = flagged & np.isfinite(speed_rev_s)
@@ -924,8 +924,8 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
                 session_name = _escape(_session_of(row))
                 fitted["text"].append(
                     (f"{session_name}: " if session_name else "")
-                    + f"Fitted q = {value:.3g} nC"
-                    + (f" (95 % CI {low:.3g} to {high:.3g} nC)" if has_interval else ""))
+                    + f"Fitted q = {value:,.4g} nC"
+                    + (f" (95 % CI {low:,.4g} to {high:,.4g} nC)" if has_interval else ""))
             if machine is None:
                 continue
             density = density_all[in_session]
@@ -938,7 +938,7 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
             ceilings["y"].append(float(ceiling) * _NANO)
             ceilings["text"].append(
                 f"Ceiling per revolution at relative air density {density:.3f}"
-                f"<br>{float(ceiling) * _NANO:.3g} nC: {machine.units:g} unit"
+                f"<br>{float(ceiling) * _NANO:,.4g} nC: {machine.units:g} unit"
                 f"{'s' if machine.units != 1 else ''}<br>{_escape(machine.unit_rule.rule)}")
         boxes_and_marks.append(dict(type="box",
             **box, name=label, legendgroup=machine_id, marker={"color": colour},
@@ -948,7 +948,7 @@ def charge_per_rev(derived: pd.DataFrame | None, findings: pd.DataFrame | None =
                 x=np.concatenate(strip_x), y=np.concatenate(strip_y), mode="markers",
                 name=f"{label}: readings", legendgroup=machine_id, showlegend=False,
                 marker={"color": colour, "size": 4, "opacity": 0.45},
-                hovertemplate="Charge per revolution %{y:.3g} nC"))
+                hovertemplate="Charge per revolution %{y:,.4~g} nC"))
         if fitted["x"]:
             boxes_and_marks.append(dict(type="scatter",
                 x=fitted["x"], y=fitted["y"], text=fitted["text"], mode="markers",

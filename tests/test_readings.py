@@ -828,3 +828,18 @@ def test_humidity_written_as_fractions_without_a_unit_is_read_as_fractions():
     text = text.replace(",rh\n", ",rh [%]\n")
     assert read_readings(text.encode(), name="percent.csv").frame["rh"].iloc[0] == \
         pytest.approx(0.0045)
+
+
+@pytest.mark.parametrize("encoding", ["utf-8", "utf-8-sig", "utf-16", "cp1252"])
+def test_a_header_cell_of_two_lines_is_one_header_in_every_layout(encoding):
+    """A header cell with a line break inside its quotes (a spreadsheet's Alt+Enter) is one
+    cell of the header, whichever cell it is: the readings below are all read, none made of
+    the header's second line. (The C parser's row skipping counted that line in one layout and
+    not in another; a fuzz test found it.)"""
+    text = (',"two\nlines",alpha,time,rh [%]\n'
+            "disc-a,disc-a,disc-a,2000-01-01T00:00:00,40\n"
+            "disc-a,disc-a,disc-a,2000-01-01T00:01:00,41\n")
+    result = read_environment(text.encode(encoding), name="log.csv")
+    assert len(result.frame) == 2
+    assert result.frame["rh"].tolist() == pytest.approx([0.40, 0.41])  # % in the header
+    assert result.frame["time"].notna().all()

@@ -248,9 +248,20 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
         skip_blank_lines=False,
     )
     frame = None
+    first_line = skipped + 1  # the file's line that holds the first data row
     if _plain_preamble(text, skipped):
         frame = _arrow_read_csv(inp, encoding, separator, decimal, skipped, width,
                                 label_positions, options.max_rows + 1)
+    else:
+        # A quoted line break above the data (a header cell of two lines): the C parser's
+        # skiprows counts such a cell's lines in some layouts and not in others, so it starts
+        # at the first data row's byte instead and skips nothing.
+        start = _data_start(inp, text, separator, encoding, skipped)
+        if start is not None:
+            kwargs.update(skiprows=0, _start=start[0])
+            if start[2] != encoding:  # UTF-16 read on from the middle: its byte order named
+                kwargs["_encoding"] = start[2]
+            first_line = start[1] + 1
     try:
         if frame is None:
             frame = _pandas_read_csv(inp, encoding, kwargs)
@@ -281,7 +292,7 @@ def _read_csv(inp: _Input, options: ReadOptions, wanted: Sequence[str]) -> _Tabl
             f"{inp.name}: has more than {options.max_rows:,} data rows, the most read from one "
             "file; split it into smaller files"
         )
-    lines = np.arange(skipped + 1, skipped + 1 + len(frame), dtype=np.int64)
+    lines = np.arange(first_line, first_line + len(frame), dtype=np.int64)
     if header_index:
         messages.append(f"{inp.name}: skipped {header_index} line(s) above the header")
     decisions.append(
@@ -412,9 +423,57 @@ def _line_count(inp: _Input) -> int:
     return count + (last != b"\n")
 
 
-def _pandas_read_csv(inp: _Input, encoding: str, kwargs: dict) -> pd.DataFrame:
+def _data_start(inp: _Input, text: str, separator: str, encoding: str,
+                skipped: int) -> tuple[int, int, str] | None:
+    """Byte offset and line count of the file's first ``skipped`` records (quoted line breaks
+    inside them counted), and the encoding to read on from there with; None where that is not
+    sure (records that do not end within the text read, an encoding not known here)."""
+    name = codecs.lookup(encoding).name
+    sample = inp.sample
+    if name in ("utf-8", "utf-8-sig", "cp1252", "iso8859-1", "latin-1", "ascii"):
+        bom = len(codecs.BOM_UTF8) if sample.startswith(codecs.BOM_UTF8) else 0
+        unit = "utf-8" if name == "utf-8-sig" else encoding
+    elif name.startswith("utf-16"):
+        # From the middle of the file the byte order is no longer told by a mark: name it.
+        if sample.startswith(codecs.BOM_UTF16_LE):
+            bom, unit = 2, "utf-16-le"
+        elif sample.startswith(codecs.BOM_UTF16_BE):
+            bom, unit = 2, "utf-16-be"
+        elif name in ("utf-16-le", "utf-16-be"):
+            bom, unit = 0, name
+        else:
+            return None
+    else:
+        return None
+    reader = csv.reader(io.StringIO(text), delimiter=separator)
     try:
-        return pd.read_csv(inp.open(), encoding=encoding, **kwargs)
+        for _number in range(skipped):
+            next(reader)
+    except (StopIteration, csv.Error):
+        return None
+    line_count = reader.line_num
+    prefix = "".join(line + "\n" for line in text.split("\n")[:line_count])
+    if len(prefix) > len(text):
+        return None
+    return (bom + len(prefix.encode(unit)), line_count,
+            unit if name.startswith("utf-16") else encoding)
+
+
+def _pandas_read_csv(inp: _Input, encoding: str, kwargs: dict) -> pd.DataFrame:
+    start = kwargs.get("_start", 0)
+    if not start:
+        return _pandas_read_from(inp.open(), inp, encoding, kwargs)
+    source = inp.open()
+    with source.open("rb") if isinstance(source, Path) else source as handle:
+        handle.seek(start)
+        return _pandas_read_from(handle, inp, encoding, kwargs)
+
+
+def _pandas_read_from(source, inp: _Input, encoding: str, kwargs: dict) -> pd.DataFrame:
+    try:
+        return pd.read_csv(source, encoding=kwargs.get("_encoding", encoding),
+                           **{key: value for key, value in kwargs.items()
+                              if key not in ("_start", "_encoding")})
     except UnicodeDecodeError:
         raise
     except pd.errors.EmptyDataError:
