@@ -538,15 +538,23 @@ def _clean_flags(readings: pd.DataFrame) -> pd.Series:
     return flags.astype("str")
 
 
-def _update_flags(flags: pd.Series, additions: Sequence[tuple[str, np.ndarray]],
-                  owned_codes: Sequence[str] = DERIVE_FLAGS) -> pd.Series:
-    """Remove the codes that derive owns, then append codes where their masks are true.
+def _flag_texts(flags: pd.Series, additions: Sequence[tuple[str, np.ndarray]],
+                owned_codes: Sequence[str] = DERIVE_FLAGS) -> tuple[np.ndarray, list[str]]:
+    """Remove the codes that derive owns, then append codes where their masks are true: the
+    new flags text of each reading as a code into a list of distinct texts.
 
     Flags take few distinct values, so the work runs once per distinct combination of a flags
-    text and the masks, never once per reading; the result is gathered back with one take.
-    Existing codes keep their order; new codes follow in the order of ``additions``.
+    text and the masks, never once per reading. Existing codes keep their order; new codes
+    follow in the order of ``additions``.
     """
     text_codes, texts = pd.factorize(flags)
+    return _added_flags(text_codes, [str(text) for text in texts], additions, owned_codes)
+
+
+def _added_flags(text_codes: np.ndarray, texts: Sequence[str],
+                 additions: Sequence[tuple[str, np.ndarray]],
+                 owned_codes: Sequence[str]) -> tuple[np.ndarray, list[str]]:
+    """:func:`_flag_texts` of flags given as codes into ``texts``."""
     key = text_codes.astype(np.int64)
     for _code, mask in additions:
         key = key * 2 + mask.astype(np.int64)
@@ -560,8 +568,7 @@ def _update_flags(flags: pd.Series, additions: Sequence[tuple[str, np.ndarray]],
         kept += [code for (code, _mask), on in zip(additions, bits, strict=True)
                  if on and code not in kept]
         new_texts.append(";".join(kept))
-    gathered = pd.array(new_texts, dtype="str").take(key_codes)
-    return pd.Series(gathered, index=flags.index, name=flags.name)
+    return key_codes, new_texts
 
 
 # --- derive ------------------------------------------------------------------------------------
@@ -737,7 +744,7 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
                                                               posinf=np.inf)))
     above = efficiency > 1.0 + COVERAGE_FACTOR * np.nan_to_num(efficiency_u, nan=0.0,
                                                                posinf=np.inf)
-    flagged_after = _update_flags(flags, [
+    after_codes, after_texts = _flag_texts(flags, [
         (MISSING_FLAG, missing),
         ("negative", negative),
         ("unknown_machine", ~known),
@@ -745,11 +752,13 @@ def derive(readings: pd.DataFrame, machines: Mapping[str, Machine] | MachineFile
         ("above_ceiling", above),
     ])
     # A reading without any flag must give an efficiency, so that used + flagged = total.
-    no_efficiency = (flagged_after == "").to_numpy() & ~np.isfinite(efficiency)
+    no_efficiency = (np.array([text == "" for text in after_texts], dtype=bool)[after_codes]
+                     & ~np.isfinite(efficiency))
+    final_codes, final_texts = _added_flags(after_codes, after_texts,
+                                            [(MISSING_FLAG, no_efficiency)], owned_codes=())
     out[col.SPEED_REV_S] = filled_speed
-    # .array: placed by position, so repeated row labels cannot misalign it
-    out[col.FLAGS] = _update_flags(flagged_after, [(MISSING_FLAG, no_efficiency)],
-                                   owned_codes=()).array
+    # Placed by position, so repeated row labels cannot misalign it; one take of the texts.
+    out[col.FLAGS] = pd.array(final_texts, dtype="str").take(final_codes)
     out[col.CEILING_A] = ceiling
     out[col.EFFICIENCY] = efficiency
     out[col.EFFICIENCY_U] = efficiency_u
