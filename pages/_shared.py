@@ -619,7 +619,8 @@ def _filtered_findings(path: str, signature: tuple,  # noqa: ARG001 - cache key
     return found, len(readings), flagged
 
 
-def findings_of(machine_ids, sessions, rh_range=None, date_range=None,
+def findings_of(summary: summaries.LabSummary, machine_file: MachineFile, machine_ids,
+                sessions, rh_range=None, date_range=None,
                 reference_rh: float = analysis.REFERENCE_RH) -> tuple[pd.DataFrame, int, int]:
     """Findings per machine and session of the readings the filters keep, with the number of
     readings kept and of those flagged.
@@ -627,15 +628,14 @@ def findings_of(machine_ids, sessions, rh_range=None, date_range=None,
     Whole machine-session groups at the reference humidity the summary was made at come from
     the lab's summary (:meth:`engine.store.summary.LabSummary.findings_of`, the same values as
     fitting their readings); otherwise the kept readings are read from the derived cache and
-    fitted (a small result, kept for the next run).
+    fitted (a small result, kept for the next run). ``summary`` and ``machine_file`` are the
+    ones the page read.
     """
-    summary = lab_summary()
     if rh_range is None and date_range is None and reference_rh == analysis.REFERENCE_RH:
         chosen = summary.groups[summary.selected(machine_ids, sessions)]
-        return (summary.findings_of(store().machines(), machine_ids, sessions),
+        return (summary.findings_of(machine_file, machine_ids, sessions),
                 int(chosen["readings"].sum()), int(chosen["flagged"].sum()))
-    signature = store_signature()
-    return _filtered_findings(str(lab_path()), signature,
+    return _filtered_findings(str(lab_path()), store_signature(),
                               tuple(str(key) for key in machine_ids),
                               tuple(str(name) for name in sessions), rh_range, date_range,
                               float(reference_rh))
@@ -676,15 +676,10 @@ def show_flash() -> None:
         (st.error if error else st.success)(plain(message))
 
 
-def load_findings(reference_rh: float = analysis.REFERENCE_RH) -> pd.DataFrame:
+def load_findings() -> pd.DataFrame:
     """Findings per machine and session of the whole store (a small frame, kept until the store
     changes)."""
-    summary = lab_summary()
-    if reference_rh == analysis.REFERENCE_RH:
-        return summary.findings
-    machine_ids = list(dict.fromkeys(summary.groups["machine"]))
-    sessions = list(dict.fromkeys(summary.groups["session"]))
-    return findings_of(machine_ids, sessions, reference_rh=reference_rh)[0]
+    return lab_summary().findings
 
 
 DASH = "—"
@@ -765,9 +760,10 @@ def show_findings(findings: pd.DataFrame, machines, reference_rh: float = 0.45,
     return table
 
 
-def undescribed_warning(machines) -> None:
-    """Readings of machine ids the lab does not describe: a warning with the fix, not findings."""
-    counts = lab_summary().machine_counts()
+def undescribed_warning(machines, summary: summaries.LabSummary) -> None:
+    """Readings of machine ids the lab does not describe: a warning with the fix, not findings.
+    ``summary`` is the lab's summary the page read."""
+    counts = summary.machine_counts()
     unknown = counts[~counts.index.astype("str").isin(list(machines)) & (counts > 0)]
     if unknown.empty:
         return
@@ -870,15 +866,3 @@ def read_upload(upload, options, kind: str = "readings"):
     data = upload.getvalue()
     digest = hashlib.sha256(data).hexdigest()
     return _read_upload(digest, upload.name, options, kind, data)
-
-
-def dashboard_sessions_in_run_order(machine_ids) -> list[str]:
-    """The sessions of these machines in the order they were run (earliest reading first), so
-    that "before" comes before "after"; from the lab's summary."""
-    return lab_summary().sessions_in_run_order(machine_ids)
-
-
-def dashboard_bounds(column: str) -> tuple[object, object]:
-    """Smallest and largest value of ``col.RH`` or ``col.TIME`` among all the readings, missing
-    values left out (NaN or NaT when none); from the lab's summary."""
-    return lab_summary().bounds(column)

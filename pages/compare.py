@@ -21,7 +21,7 @@ if summary.readings == 0:
     st.page_link("pages/readings.py", label="Import readings", icon=":material/upload_file:")
     st.stop()
 
-shared.undescribed_warning(machines)
+shared.undescribed_warning(machines, summary)
 present = set(summary.groups["machine"])
 machine_ids = [machine_id for machine_id in machines if machine_id in present]
 if not machine_ids:
@@ -32,7 +32,7 @@ with st.container(border=True):
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids,
                             format_func=labels.get, key="compare-machines",
                             placeholder="Choose machines")
-    sessions = shared.dashboard_sessions_in_run_order(chosen)
+    sessions = summary.sessions_in_run_order(chosen)
     # Sessions follow the machines: when the machines change, every session of the chosen
     # machines is selected again (a selection that would match nothing is never kept).
     if st.session_state.get("compare-machines-seen") != chosen:
@@ -42,7 +42,7 @@ with st.container(border=True):
                                      format_func=lambda name: name or "(no session)",
                                      placeholder="Choose sessions")
     first, second, third = st.columns([3, 3, 2])
-    rh_lowest, rh_highest = shared.dashboard_bounds(col.RH)
+    rh_lowest, rh_highest = summary.bounds(col.RH)
     rh_range = (0, 100)
     rh_whole = True  # the humidity filter keeps every reading
     if not pd.isna(rh_lowest):
@@ -51,7 +51,7 @@ with st.container(border=True):
         rh_bounds = (max(0, min(low, 100)), max(0, min(high, 100)))
         rh_range = first.slider("Relative humidity [%]", 0, 100, rh_bounds, key="compare-rh")
         rh_whole = rh_range[0] <= rh_bounds[0] and rh_range[1] >= rh_bounds[1]
-    earliest, latest = shared.dashboard_bounds(col.TIME)
+    earliest, latest = summary.bounds(col.TIME)
     date_range = None
     if not pd.isna(earliest):
         first_day, last_day = earliest.date(), latest.date()
@@ -69,7 +69,8 @@ with st.container(border=True):
 # Whole machine-session groups: their findings and counts come from the lab's summary; a
 # humidity or date filter reads the readings of the chosen groups and fits them.
 findings, shown_count, flagged = shared.findings_of(
-    chosen, chosen_sessions, None if rh_whole else rh_range, date_range, reference_rh)
+    summary, machine_file, chosen, chosen_sessions, None if rh_whole else rh_range, date_range,
+    reference_rh)
 if shown_count == 0:
     st.warning("No readings match these filters: widen the humidity range or pick more "
                "machines or sessions.")

@@ -65,10 +65,10 @@ st.subheader("Latest findings")
 if counts["readings"] == 0:
     st.write("No readings yet. Import a readings file to see each machine against its ceiling.")
 else:
-    findings = shared.load_findings()
+    summary = shared.lab_summary()  # findings of every machine and session, kept
     machines = store.machines().by_id()
-    shared.show_findings(findings, machines, key="overview-findings")
-    shared.undescribed_warning(machines)
+    shared.show_findings(summary.findings, machines, key="overview-findings")
+    shared.undescribed_warning(machines, summary)
     st.caption("One row per machine and session. Efficiency is the measured current over the "
                "ceiling. Flagged readings are kept but left out of the fits; the Readings and "
                "Sessions pages show them.")

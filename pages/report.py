@@ -21,12 +21,12 @@ if summary.readings == 0:
     st.info("No readings to report yet. Import readings first, or restore a lab bundle below.")
 else:
     labels = {machine.id: machine.label for machine in machine_file.machines}
-    shared.undescribed_warning(machines)
+    shared.undescribed_warning(machines, summary)
     present = set(summary.groups["machine"])
     machine_ids = [machine_id for machine_id in machines if machine_id in present]
     chosen = st.multiselect("Machines", machine_ids, default=machine_ids, key="report-machines",
                             format_func=lambda key: labels.get(key, key))
-    sessions = shared.dashboard_sessions_in_run_order(chosen)
+    sessions = summary.sessions_in_run_order(chosen)
     chosen_sessions = st.multiselect("Sessions", sessions, default=sessions,
                                      key="report-sessions",
                                      format_func=lambda name: name or "(no session)")
@@ -39,7 +39,8 @@ else:
         st.warning("Pick at least one machine and one session.")
     else:
         # Whole machine-session groups: the cached findings of all readings give them exactly.
-        findings = shared.findings_of(chosen, chosen_sessions)[0]
+        findings = shared.findings_of(summary, machine_file, chosen,
+                                      chosen_sessions)[0]
         st.write(f"{selected_count:,} readings of {len(chosen)} machines in "
                  f"{len(chosen_sessions)} sessions.")
         chosen_machines = {key: machines[key] for key in chosen if key in machines}

@@ -16,7 +16,7 @@ if summary.readings == 0:
     st.info("No readings yet: import a session on the Readings page.")
     st.stop()
 
-shared.undescribed_warning(labels)
+shared.undescribed_warning(labels, summary)
 machine_ids = [machine_id for machine_id in labels
                if machine_id in set(summary.groups["machine"])]
 if not machine_ids:
