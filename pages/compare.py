@@ -34,8 +34,10 @@ with st.container(border=True):
                             placeholder="Choose machines")
     sessions = summary.sessions_in_run_order(chosen)
     # Sessions follow the machines: when the machines change, every session of the chosen
-    # machines is selected again (a selection that would match nothing is never kept).
-    if st.session_state.get("compare-machines-seen") != chosen:
+    # machines is selected again (a selection that would match nothing is never kept). Coming
+    # back from another page, Streamlit has forgotten the sessions widget: all are selected.
+    if st.session_state.get("compare-machines-seen") != chosen or \
+            "compare-sessions" not in st.session_state:
         st.session_state["compare-machines-seen"] = list(chosen)
         st.session_state["compare-sessions"] = sessions
     chosen_sessions = st.multiselect("Sessions", sessions, key="compare-sessions",

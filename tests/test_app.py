@@ -191,6 +191,17 @@ def test_compare_draws_four_charts_and_filters(demo_lab):
     assert len(charts(app)) == 4 and "No readings match" not in texts(app)
 
 
+def test_compare_keeps_its_sessions_when_the_user_comes_back_from_another_page(demo_lab):
+    # Streamlit forgets a widget's value on a run that does not draw it: coming back to
+    # Compare, every session of the chosen machines is selected again, never none.
+    app = open_page("pages/compare.py")
+    app.switch_page("pages/machines.py").run()
+    app.switch_page("pages/compare.py").run()
+    assert not app.exception
+    assert len(app.multiselect(key="compare-sessions").value) == 8
+    assert len(charts(app)) == 4 and "No readings match" not in texts(app)
+
+
 def test_compare_says_what_to_do_when_nothing_matches(demo_lab):
     app = open_page("pages/compare.py")
     app.multiselect(key="compare-machines").set_value([]).run()
